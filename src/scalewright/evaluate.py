@@ -1,0 +1,47 @@
+"""Fit one rival model to the data and evaluate it: the estimation core
+called with the BLAS pinned to one thread, then fit indices, standardized
+solution and warnings.
+
+Why one BLAS thread: on the 2-core machines this tool is built for, a
+multi-threaded BLAS made the small matrix products of the engine many times
+slower and erratic (measured; see ``benchmarks/``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from scalewright.diagnostics import model_warnings
+from scalewright.estimate.normal import complete_data_blocks, fit_normal
+from scalewright.estimate.result import Estimate, invert_information
+from scalewright.indices import fit_indices, independence_chi_square, saturated_loglik
+from scalewright.modelresult import ModelResult
+from scalewright.specify import build_layout
+from scalewright.standardize import standardize
+
+NORMAL_ML = "maximum likelihood (normal theory)"
+
+
+def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
+    """Normal-theory ML for one model on complete data ``x`` (n × p, columns
+    in ``spec.items`` order)."""
+    with threadpool_limits(limits=1, user_api="blas"):
+        blocks = complete_data_blocks(x)
+        layout = build_layout(spec, blocks[0].cov)
+        theta, record, objective = fit_normal(layout, blocks)
+        _, _, info = objective.value_grad_info(theta)
+        acov, unidentified = invert_information(info, objective.n)
+        loglik = objective.loglik(theta)
+        estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified)
+        covs = [b.cov for b in blocks]
+        ns = [b.n for b in blocks]
+        mats = estimate.matrices()
+        fit = fit_indices(
+            loglik=loglik, saturated=saturated_loglik(covs, ns), df=layout.df(),
+            n=objective.n, n_params=layout.n_params + layout.p,
+            baseline=independence_chi_square(covs, ns), sample_covs=covs,
+            implied_covs=[mats.implied_cov], weights=ns)
+        std = standardize(mats)
+        warnings = model_warnings(estimate, std)
+    return ModelResult(spec.name, estimate, fit, std, NORMAL_ML, tuple(warnings))

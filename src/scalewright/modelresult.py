@@ -1,0 +1,174 @@
+"""One fitted model's results as plain data: fit indices, estimates,
+standardized solution, warnings.  ``to_dict()`` is the JSON contract
+(see DEVELOPERS.md, "JSON contract"); later stages add keys to ``extra``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import stats
+
+from scalewright.estimate.result import Estimate
+from scalewright.indices import FitIndices
+from scalewright.layout import CONSTRUCT, GENERAL, HIGHER, LOADING, PATH, RESIDUAL_COV
+from scalewright.standardize import Standardized, delta_method_se, standardize
+
+
+@dataclass(frozen=True)
+class ModelResult:
+    """Everything reported about one rival model."""
+
+    name: str
+    estimate: Estimate
+    fit: FitIndices
+    std: Standardized
+    estimator: str
+    warnings: tuple[str, ...]
+    extra: dict = field(default_factory=dict)   # keys added by later stages (reliability, hints…)
+
+    @property
+    def converged(self) -> bool:
+        return self.estimate.record.converged
+
+    def to_dict(self) -> dict:
+        est = self.estimate
+        layout = est.layout
+        out = {
+            "name": self.name,
+            "converged": self.converged,
+            "estimator": self.estimator,
+            "fit": self.fit.to_dict(),
+            "optimizer": est.record.to_dict(),
+            "identification": list(layout.notes),
+            "n_used": est.n,
+            "items": list(layout.items),
+            "constructs": [{"name": f, "kind": k} for f, k in zip(layout.factors, layout.kinds)],
+            "loadings": loading_rows(est, self.std),
+            "higher_order_paths": path_rows(est, self.std),
+            "construct_correlations": correlation_rows(est),
+            "residual_variances": residual_variance_rows(est, self.std),
+            "residual_covariances": residual_covariance_rows(est, self.std),
+            "r_squared": [{"item": it, "value": float(v)}
+                          for it, v in zip(layout.items, self.std.r_squared)],
+            "warnings": list(self.warnings),
+        }
+        out.update(self.extra)
+        return out
+
+
+def _z_and_p(estimate: float, se: float) -> tuple[float | None, float | None]:
+    if not np.isfinite(se) or se <= 0:
+        return None, None
+    z = estimate / se
+    return float(z), float(2 * stats.norm.sf(abs(z)))
+
+
+def _num(x) -> float | None:
+    return float(x) if x is not None and np.isfinite(x) else None
+
+
+def _free_lookup(est: Estimate, kind: str) -> dict:
+    return {(p.a, p.b): k for k, p in enumerate(est.layout.params) if p.kind == kind}
+
+
+def loading_rows(est: Estimate, std: Standardized) -> list[dict]:
+    """Every non-zero loading, free or fixed (a marker loading has no SE)."""
+    layout = est.layout
+    lam = est.matrices().loadings
+    free = _free_lookup(est, LOADING)
+    se = est.se
+    rows = []
+    for j, f in enumerate(layout.factors):
+        for i, item in enumerate(layout.items):
+            k = free.get((f, item))
+            if k is None and lam[i, j] == 0.0:
+                continue
+            s = float(se[k]) if k is not None else None
+            z, p = _z_and_p(lam[i, j], s) if s is not None else (None, None)
+            rows.append({"construct": f, "item": item, "estimate": float(lam[i, j]),
+                         "se": _num(s), "z": z, "p_value": p, "fixed": k is None,
+                         "std_estimate": float(std.loadings[i, j]),
+                         "primary": layout.primary.get(item) == f or layout.kinds[j] == GENERAL})
+    return rows
+
+
+def path_rows(est: Estimate, std: Standardized) -> list[dict]:
+    """Paths from a higher-order factor to the constructs it explains."""
+    layout = est.layout
+    beta = est.matrices().paths
+    free = _free_lookup(est, PATH)
+    se = est.se
+    rows = []
+    for c, h in zip(*np.nonzero(beta)):
+        k = free.get((layout.factors[h], layout.factors[c]))
+        s = float(se[k]) if k is not None else None
+        z, p = _z_and_p(beta[c, h], s) if s is not None else (None, None)
+        rows.append({"higher": layout.factors[h], "construct": layout.factors[c],
+                     "estimate": float(beta[c, h]), "se": _num(s), "z": z, "p_value": p,
+                     "fixed": k is None, "std_estimate": float(std.paths[c, h])})
+    return rows
+
+
+def correlation_rows(est: Estimate) -> list[dict]:
+    """Model-implied correlations between latent variables that are not zero
+    by design, with delta-method standard errors."""
+    layout = est.layout
+    phi = est.matrices().latent_cov
+    m = len(layout.factors)
+    pairs = [(j, k) for j in range(m) for k in range(j + 1, m)
+             if abs(phi[j, k]) > 1e-12 or _structurally_free(layout, j, k)]
+    if not pairs:
+        return []
+    rows_idx = np.array([p[0] for p in pairs])
+    cols_idx = np.array([p[1] for p in pairs])
+
+    def correlations(theta):
+        cov = layout.patterns[0].matrices(theta).latent_cov
+        d = np.sqrt(np.abs(np.diag(cov)))
+        return cov[rows_idx, cols_idx] / (d[rows_idx] * d[cols_idx])
+
+    values = correlations(est.theta)
+    ses = delta_method_se(est.theta, est.acov, correlations)
+    out = []
+    for (j, k), r, s in zip(pairs, values, ses):
+        z, p = _z_and_p(r, s)
+        out.append({"a": layout.factors[j], "b": layout.factors[k], "estimate": float(r),
+                    "se": _num(s), "z": z, "p_value": p,
+                    "covariance": float(phi[j, k])})
+    return out
+
+
+def _structurally_free(layout, j, k) -> bool:
+    a, b = layout.factors[j], layout.factors[k]
+    return any(p.kind == "factor_covariance" and {p.a, p.b} == {a, b} for p in layout.params)
+
+
+def residual_variance_rows(est: Estimate, std: Standardized) -> list[dict]:
+    theta = est.matrices().residuals
+    free = _free_lookup(est, RESIDUAL_COV)
+    se = est.se
+    rows = []
+    for i, item in enumerate(est.layout.items):
+        k = free[(item, item)]
+        z, p = _z_and_p(theta[i, i], se[k])
+        rows.append({"item": item, "estimate": float(theta[i, i]), "se": _num(se[k]),
+                     "z": z, "p_value": p, "std_estimate": float(std.residual_variances[i])})
+    return rows
+
+
+def residual_covariance_rows(est: Estimate, std: Standardized) -> list[dict]:
+    layout = est.layout
+    theta = est.matrices().residuals
+    se = est.se
+    index = {item: i for i, item in enumerate(layout.items)}
+    rows = []
+    for k, prm in enumerate(layout.params):
+        if prm.kind != RESIDUAL_COV or prm.a == prm.b:
+            continue
+        i, j = index[prm.a], index[prm.b]
+        z, p = _z_and_p(theta[i, j], se[k])
+        rows.append({"a": prm.a, "b": prm.b, "estimate": float(theta[i, j]), "se": _num(se[k]),
+                     "z": z, "p_value": p, "std_estimate": float(std.residual_correlations[i, j])})
+    return rows
