@@ -1,0 +1,102 @@
+"""The ``scalewright`` command: parse arguments, call the API, print, exit.
+
+Exit codes: 0 the command ran (whatever the fit); 2 something the user must
+fix (one paragraph on stderr, no traceback); 1 a bug in scalewright (the
+traceback is printed so it can be reported).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import textwrap
+import traceback
+import warnings
+from pathlib import Path
+
+from scalewright import __version__
+from scalewright.errors import ScalewrightWarning, StudyError
+
+DEFAULT_OUT = Path("reports")
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="scalewright",
+        description="Check that a questionnaire's hypothesised structure holds.")
+    parser.add_argument("--version", action="version", version=f"scalewright {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    check = commands.add_parser(
+        "check", help="fit every model in a model file and write the report",
+        description="Fit every rival model in MODEL_FILE, write DIR/<name>.json and "
+                    "DIR/<name>.html.")
+    check.add_argument("model_file", metavar="MODEL_FILE")
+    check.add_argument("--out", metavar="DIR", type=Path, default=DEFAULT_OUT,
+                       help=f"folder for the report (default: ./{DEFAULT_OUT})")
+
+    init = commands.add_parser(
+        "init", help="draft a model file from a data file's columns",
+        description="Write a first model file for DATA_FILE, to edit before checking.")
+    init.add_argument("data_file", metavar="DATA_FILE")
+    init.add_argument("--to", metavar="PATH", type=Path, default=None,
+                      help="where to write the draft (default: beside the data, <data>.yaml)")
+
+    demo = commands.add_parser(
+        "demo", help="write the invented demo study into a folder and check it",
+        description="Write the teacher workplace climate demo (data and model file) into DIR "
+                    "and check it; the report goes to DIR/report.")
+    demo.add_argument("folder", metavar="DIR", nargs="?", type=Path,
+                      default=Path("scalewright-demo"))
+    return parser
+
+
+def _run(args) -> int:
+    from scalewright import api
+    if args.command == "check":
+        result = api.check(args.model_file, out=args.out)
+        _summarise(result, args.out)
+    elif args.command == "init":
+        from scalewright.draft import draft_model_file
+        path = draft_model_file(args.data_file, args.to)
+        print(f"Drafted {path}. Edit the constructs, then run: scalewright check {path}")
+    elif args.command == "demo":
+        from scalewright.demo import write_demo
+        model_file = write_demo(args.folder)
+        out = args.folder / "report"
+        result = api.check(model_file, out=out)
+        _summarise(result, out)
+    return 0
+
+
+def _summarise(result, out: Path) -> None:
+    stem = result.study.path.stem
+    print(f"{result.study.title}: {result.n_used} of {result.data.n_rows} rows used.")
+    for m in result.models:
+        f = m.fit
+        state = "" if m.converged else "  (did not converge)"
+        print(f"  {m.name:<24} chi2 = {f.chi_square:.2f} on {f.df} df, CFI = {f.cfi:.3f}, "
+              f"RMSEA = {f.rmsea:.3f}, SRMR = {f.srmr:.3f}{state}")
+    print(f"Report: {out / (stem + '.html')}   Data: {out / (stem + '.json')}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ScalewrightWarning)  # they are in the report
+            return _run(args)
+    except StudyError as exc:
+        print(textwrap.fill(str(exc), width=100), file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+    except Exception:  # noqa: BLE001 - anything else is a bug, said plainly
+        traceback.print_exc()
+        print("\nThis is a bug in scalewright, not a problem with your files. Please report "
+              "it with the message above.", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,58 @@
+"""Write a check's results to disk: the JSON (the source of truth) and the
+HTML report rendered from the same dict.
+
+Only files that scalewright wrote earlier are ever replaced: an existing
+file at a target path that is not a scalewright output is left alone and
+the user is asked to choose another folder.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from scalewright.errors import StudyError
+
+#: first bytes that mark a file as written by scalewright
+JSON_MARK = '{\n  "tool": {\n    "name": "scalewright"'
+HTML_MARK = '<meta name="generator" content="scalewright'
+
+
+def to_json(report: dict) -> str:
+    """The JSON text of a result dict (stable key order, two-space indent)."""
+    return json.dumps(report, indent=2, ensure_ascii=False, allow_nan=False,
+                      default=_not_serialisable) + "\n"
+
+
+def _not_serialisable(value):
+    raise TypeError(f"scalewright bug: {type(value).__name__} in the result dict")
+
+
+def write_outputs(result, folder: Path) -> dict[str, Path]:
+    """Write ``<folder>/<stem>.json`` and ``<stem>.html``; return their paths."""
+    from scalewright.report.render import render_html
+
+    report = result.to_dict()
+    stem = result.study.path.stem
+    folder.mkdir(parents=True, exist_ok=True)
+    texts = {"json": (to_json(report), JSON_MARK), "html": (render_html(report), HTML_MARK)}
+    paths = {}
+    for suffix, (text, mark) in texts.items():
+        target = folder / f"{stem}.{suffix}"
+        refuse_foreign(target, mark)
+        target.write_text(text, encoding="utf-8")
+        paths[suffix] = target
+    return paths
+
+
+def refuse_foreign(target: Path, mark: str) -> None:
+    """Raise StudyError if ``target`` exists and was not written by scalewright."""
+    if not target.exists():
+        return
+    with open(target, encoding="utf-8", errors="replace") as fh:
+        head = fh.read(4096)
+    if mark not in head:
+        raise StudyError(
+            f"{target}: this file already exists and was not written by scalewright, so it "
+            "will not be overwritten. Choose another output folder with --out, or move the "
+            "file away.")
