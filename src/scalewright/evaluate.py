@@ -33,7 +33,8 @@ def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
         _, _, info = objective.value_grad_info(theta)
         acov, unidentified = invert_information(info, objective.n)
         loglik = objective.loglik(theta)
-        estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified)
+        estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified,
+                            blocks)
         covs = [b.cov for b in blocks]
         ns = [b.n for b in blocks]
         mats = estimate.matrices()

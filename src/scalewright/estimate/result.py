@@ -16,7 +16,8 @@ class Estimate:
 
     ``acov`` is the asymptotic covariance matrix of ``theta`` (``None`` when
     the information matrix is singular); ``unidentified`` lists the indices
-    of parameters involved in the singularity.
+    of parameters involved in the singularity; ``blocks`` are the data
+    moments the model was fitted to (see :mod:`scalewright.estimate.normal`).
     """
 
     layout: Layout
@@ -27,6 +28,7 @@ class Estimate:
     loglik: float
     method: str
     unidentified: tuple[int, ...] = ()
+    blocks: tuple = ()
 
     def matrices(self, group: int = 0) -> Matrices:
         return self.layout.patterns[group].matrices(self.theta)
