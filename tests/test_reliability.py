@@ -55,7 +55,8 @@ def test_alpha_matches_pingouin_on_holzinger(construct):
 
 def test_alpha_matches_holzinger_reference_values():
     # design/references.md [computed with pingouin]: 0.62612 / 0.88271 / 0.68846
-    got = [cronbach_alpha(np.cov(hz.data()[items].to_numpy().T)) for items in hz.CONSTRUCTS.values()]
+    got = [cronbach_alpha(np.cov(hz.data()[items].to_numpy().T))
+           for items in hz.CONSTRUCTS.values()]
     # tolerance: half a unit in the 5th decimal given
     assert_allclose(got, [0.62612, 0.88271, 0.68846], atol=5e-6)
 
@@ -129,7 +130,8 @@ def test_no_reverse_keying_note_when_items_agree():
 
 
 def test_single_item_construct_raises_study_error():
-    with pytest.raises(StudyError, match=r"Construct 'speed' has 1 item \('x7'\).*at least two items"):
+    with pytest.raises(StudyError,
+                       match=r"Construct 'speed' has 1 item \('x7'\).*at least two items"):
         alpha_report(np.array([[1.0]]), ["x7"], "speed")
 
 

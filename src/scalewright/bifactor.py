@@ -274,7 +274,8 @@ def higher_order_coefficients(loadings: np.ndarray, latent_cov: np.ndarray,
     omega hierarchical of the higher-order factor.
 
     .. math::
-        R^2_c = \\frac{\\phi^{*2}_{ch}}{\\phi^*_{hh}\\,\\phi^*_{cc}} = \\frac{\\gamma_c^2\\phi_{hh}}{\\gamma_c^2\\phi_{hh} + \\psi_{cc}},
+        R^2_c = \\frac{\\phi^{*2}_{ch}}{\\phi^*_{hh}\\,\\phi^*_{cc}}
+              = \\frac{\\gamma_c^2\\phi_{hh}}{\\gamma_c^2\\phi_{hh} + \\psi_{cc}},
         \\qquad
         \\omega_{H} = \\frac{(\\mathbf 1^\\top\\Lambda\\Phi^*_{\\cdot h})^2/\\phi^*_{hh}}{\\mathbf 1^\\top\\hat\\Sigma\\mathbf 1}
 

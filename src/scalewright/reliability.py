@@ -272,7 +272,8 @@ def _checked_cov(cov, item_names: Sequence[str], construct: str) -> np.ndarray:
     """The covariance matrix as a float array, after the checks a user can act on."""
     cov = np.asarray(cov, dtype=float)
     if cov.ndim != 2 or cov.shape[0] != cov.shape[1] or cov.shape[0] != len(item_names):
-        raise ValueError(f"covariance of shape {cov.shape} does not match {len(item_names)} item names")
+        raise ValueError(f"covariance of shape {cov.shape} does not match "
+                         f"{len(item_names)} item names")
     if len(item_names) < 2:
         raise StudyError(
             f"Construct '{construct}' has {len(item_names)} item"

@@ -203,7 +203,8 @@ def fornell_larcker(ave: Sequence[float], latent_corr: np.ndarray,
             construct_a=construct_names[i], construct_b=construct_names[j], correlation=float(rij),
             sqrt_ave_a=float(root[i]), sqrt_ave_b=float(root[j]),
             convention=Convention(
-                name="Fornell–Larcker", threshold=float(lim), met=bool(ok), source=_FORNELL_LARCKER,
+                name="Fornell–Larcker", threshold=float(lim), met=bool(ok),
+                source=_FORNELL_LARCKER,
                 wording=(f"The correlation of '{construct_names[i]}' and '{construct_names[j]}' "
                          f"({rij:.2f}) is {'below' if ok else 'not below'} the smaller √AVE "
                          f"({lim:.2f}); by this convention the constructs "
