@@ -291,12 +291,14 @@ def test_threshold_correlation_covariances_match_replications(replications):
 
 def test_too_many_distinct_values_suggests_continuous_treatment():
     x = np.tile(np.arange(1.0, 13.0), 10)
-    with pytest.raises(StudyError, match=r"Item 'age' has 12 different answer values \(1 to 12\).*at most 10.*continuous"):
+    expected = r"Item 'age' has 12 different answer values \(1 to 12\).*at most 10.*continuous"
+    with pytest.raises(StudyError, match=expected):
         thresholds(x, item="age")
 
 
 def test_fractional_answers_are_rejected_as_ordinal():
-    with pytest.raises(StudyError, match=r"Item 'score' has answers that are not whole numbers \(for example 2.5\)"):
+    expected = r"Item 'score' has answers that are not whole numbers \(for example 2.5\)"
+    with pytest.raises(StudyError, match=expected):
         thresholds(np.array([1.0, 2.0, 2.5, 3.0]), item="score")
 
 
@@ -429,3 +431,13 @@ def test_positive_definite_matrix_is_left_alone(four_items):
     assert not moments.smoothed
     assert moments.smoothing_note == ""
     assert_allclose(moments.correlations, moments.raw_correlations, rtol=0, atol=0)
+
+
+def test_summary_dict_survives_a_json_round_trip(four_items):
+    import json
+
+    moments = ordinal_moments(four_items, ("a", "b", "c", "d"))
+    summary = json.loads(json.dumps(moments.to_dict()))
+    assert summary["items"] == ["a", "b", "c", "d"]
+    assert_allclose(summary["correlations"], moments.correlations, rtol=0, atol=0)
+    assert len(summary["correlation_se"]) == 6
