@@ -329,6 +329,14 @@ def bic_weights(bic: Sequence[float]) -> np.ndarray:
     return rel / rel.sum()
 
 
+def _declared(spec) -> dict:
+    """What the researcher wrote about a model: first specified, why, changes."""
+    changes = getattr(spec, "changes", ()) or ()
+    return {"first": bool(getattr(spec, "first", False)),
+            "rationale": getattr(spec, "rationale", None),
+            "changes": [{"change": c.change, "cue": c.cue, "reason": c.reason} for c in changes]}
+
+
 def _comparable(model: dict) -> tuple:
     """Models whose likelihoods are on the same data: same item set and N."""
     return (frozenset(model.get("items", ())), model.get("n_used"))
@@ -349,8 +357,10 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
     dict
         ``{"comparison": {"models": [row, ...], "nested_tests": [...],
         "bic_weights": {name: weight}}}``.  A row holds the model's fit
-        indices (:data:`ROW_FIT_KEYS` that it has), ``first``, ``converged``,
-        ``n_used``, ``delta_bic`` and ``bic_weight``; BIC weights are computed
+        indices (:data:`ROW_FIT_KEYS` that it has), what the model file says
+        of it (``first``, ``rationale``, ``changes`` as a list of ``{change,
+        cue, reason}``), ``converged``, ``n_used``, ``delta_bic`` and
+        ``bic_weight``; BIC weights are computed
         among converged models fitted to the same items and rows as the
         first such model (others get ``None``).  Each nested test holds
         ``restricted``, ``general``, ``chi_square``, ``df``, ``p_value``,
@@ -358,7 +368,7 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
         ``scaling_factor`` and ``note``.
     """
     by_name = {m["name"]: m for m in models}
-    first = {s.name: bool(getattr(s, "first", False)) for s in specs}
+    spec_of = {s.name: s for s in specs}
     converged = [m for m in models if m["converged"] and m["fit"].get("bic") is not None]
     pool = [m for m in converged if _comparable(m) == _comparable(converged[0])] if converged else []
     weights = dict(zip((m["name"] for m in pool), bic_weights([m["fit"]["bic"] for m in pool])
@@ -366,7 +376,7 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
     best_bic = min((m["fit"]["bic"] for m in pool), default=None)
     rows = []
     for m in models:
-        row = {"name": m["name"], "first": first.get(m["name"], False),
+        row = {"name": m["name"], **_declared(spec_of.get(m["name"])),
                "converged": bool(m["converged"]), "estimator": m.get("estimator"),
                "n_used": m.get("n_used")}
         row.update({k: m["fit"][k] for k in ROW_FIT_KEYS if k in m["fit"]})

@@ -1,0 +1,270 @@
+"""The report as an ordered document: sections of blocks (paragraphs,
+tables, figures, lists), assembled from the result dict.
+
+The template only lays these blocks out; every number is formatted and
+every sentence written here or in the modules this one calls.  Tables and
+figures are numbered in reading order, so that the HTML and the exported
+tables (``--tables``) carry the same numbers.
+
+Sections appear only when their key is in the result dict: a key another
+part of scalewright has not produced simply leaves its block out.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from markupsafe import Markup
+
+from scalewright.report import charts, checklist, narrative, tables
+from scalewright.report.diagram import arcs_omitted, path_diagram
+from scalewright.report.formatting import count, dec
+from scalewright.report.references import references_used
+
+ABOUT_LABELS = (
+    ("rationale", "Why this structure"),
+    ("population", "Population"),
+    ("sampling", "Sampling"),
+    ("exclusions", "Exclusions"),
+    ("sample_size", "Sample size"),
+    ("response_format", "Response format"),
+    ("clustering", "Clustering"),
+)
+
+
+#: subsection heading of each per-model table, in order
+_GROUP = {
+    "loadings": "Loadings and correlations", "matrix": "Loadings and correlations",
+    "paths": "Loadings and correlations", "correlations": "Loadings and correlations",
+    "residuals": "Residuals", "residual_covariances": "Residuals", "thresholds": "Residuals",
+    "reliability": "Reliability and distinctness", "validity": "Reliability and distinctness",
+    "htmt": "Reliability and distinctness", "bifactor": "Reliability and distinctness",
+    "higher_order": "Reliability and distinctness",
+    "hints": "Where the model is strained", "residual_correlations": "Where the model is strained",
+    "item_review": "Item review", "refinement": "Item review",
+}
+
+
+@dataclass
+class Section:
+    """One ``<section>``: an id for links, a heading, blocks in order."""
+
+    id: str
+    title: str
+    blocks: list = field(default_factory=list)
+    css: str = ""
+
+    def p(self, text: str, css: str = "") -> None:
+        self.blocks.append({"type": "p", "text": text, "css": css})
+
+    def h3(self, text: str) -> None:
+        self.blocks.append({"type": "h3", "text": text})
+
+    def items(self, entries, css: str = "") -> None:
+        self.blocks.append({"type": "list", "items": list(entries), "css": css})
+
+
+@dataclass
+class Document:
+    """Everything the template shows."""
+
+    report: dict
+    sections: list[Section] = field(default_factory=list)
+    tables: list = field(default_factory=list)
+    figures: int = 0
+
+    def table(self, section: Section, table) -> None:
+        numbered = table.numbered(len(self.tables) + 1)
+        self.tables.append(numbered)
+        section.blocks.append({"type": "table", "table": numbered})
+
+    def figure(self, section: Section, svg: str, caption: str, css: str = "") -> None:
+        self.figures += 1
+        section.blocks.append({"type": "figure", "svg": Markup(svg), "caption": caption,
+                               "number": self.figures, "css": css})
+
+
+def header_facts(report: dict) -> list[tuple[str, str]]:
+    data = report["data"]
+    estimators = list(dict.fromkeys(str(m.get("estimator")) for m in report["models"]))
+    return [
+        ("Data file", data["file"]),
+        ("SHA-256", data["sha256"]),
+        ("Rows read / used", f"{count(data['n_rows'])} / {count(data['n_used'])}"),
+        ("Missing answers", str(data.get("missing_handling", "–"))),
+        ("Estimation", "; ".join(estimators)),
+        ("Model file", report["study"].get("model_file", "–")),
+        ("Software", f"scalewright {report['tool']['version']}"),
+        ("Created", report["created"]),
+    ]
+
+
+def _summary(doc: Document) -> None:
+    r = doc.report
+    s = Section("summary", "Summary")
+    for text in narrative.summary_paragraphs(r):
+        s.p(text)
+    sentence = narrative.abstract_sentence(r)
+    if sentence:
+        s.blocks.append({"type": "abstract", "text": sentence})
+    doc.table(s, tables.summary_fit_table(r))
+    doc.sections.append(s)
+
+
+def _design(doc: Document) -> None:
+    r = doc.report
+    s = Section("design", "Study design")
+    about = r["study"].get("about") or {}
+    entries = []
+    for key, label in ABOUT_LABELS:
+        value = about.get(key)
+        if value:
+            entries.append({"term": label, "text": str(value), "missing": False})
+        else:
+            entries.append({"term": label, "missing": True,
+                            "text": f"Not stated in the model file. Add ‘{key}:’ under ‘about:’."})
+    s.blocks.append({"type": "dl", "items": entries})
+    rows = (r.get("comparison") or {}).get("models", [])
+    stated = [row for row in rows if row.get("rationale")]
+    if stated:
+        s.h3("Rationale given for each model")
+        s.blocks.append({"type": "dl", "items": [
+            {"term": row["name"], "text": row["rationale"], "missing": False} for row in stated]})
+    doc.sections.append(s)
+
+
+def _comparison(doc: Document) -> None:
+    r = doc.report
+    comparison = r.get("comparison")
+    if not comparison:
+        return
+    s = Section("comparison", "Rival models compared")
+    first = [row["name"] for row in comparison["models"] if row.get("first")]
+    s.p(f"The model specified first is ‘{first[0]}’." if first else
+        "The model file does not mark which model was specified first; add ‘first: true’ "
+        "under that model.", "" if first else "missing")
+    doc.table(s, tables.comparison_table(r))
+    bars = charts.weight_bars(comparison["models"])
+    if bars:
+        doc.figure(s, bars, "BIC weights of the rival models (the same numbers as the last "
+                            "column of the table above).", "weights")
+    if comparison.get("nested_tests"):
+        doc.table(s, tables.nested_table(r))
+    else:
+        s.p("No pair of these models is nested (as declared in the model file or found by "
+            "comparing their specifications), so no chi-square difference test applies.")
+    changed = [(row["name"], c) for row in comparison["models"] for c in row.get("changes") or ()]
+    if changed:
+        s.h3("Changes from the model specified first")
+        s.items(f"‘{name}’: {c['change']}. Cue: {c.get('cue') or 'not stated'}. Reason: "
+                f"{c.get('reason') or 'not stated in the model file'}." for name, c in changed)
+    doc.sections.append(s)
+
+
+def _model(doc: Document, m: dict, index: int) -> None:
+    s = Section(f"model-{index}", f"Model ‘{m['name']}’", css="model")
+    opt = m.get("optimizer") or {}
+    state = ("converged" if m.get("converged", True) else "did NOT converge")
+    s.p(f"{m.get('estimator', '')}; {state}"
+        + (f" after {opt['iterations']} iterations" if opt.get("iterations") is not None else "")
+        + f"; N = {count(m.get('n_used'))}; {m['fit'].get('df')} degrees of freedom. "
+        + " ".join(m.get("identification", ())))
+    if m.get("warnings"):
+        s.blocks.append({"type": "warnings", "items": list(m["warnings"])})
+    doc.figure(s, path_diagram(m, f"fig-m{index}"),
+               "Standardized estimates. Straight arrows: loadings (and higher-order paths); "
+               "curved double-headed arrows: correlations between constructs (left) and between "
+               "item residuals (right). Dashed lines are negative; thicker lines are larger."
+               + (" Construct correlations are in the table, not drawn."
+                  if arcs_omitted(m) else ""), "diagram")
+    current = None
+    for key, table in tables.model_tables(m, index).items():
+        group = _GROUP[key]
+        if group != current:
+            s.h3(group)
+            current = group
+        doc.table(s, table)
+        if key == "residual_correlations" and m["residual_correlations"].get("matrix"):
+            doc.figure(s, charts.heat_map(m["residual_correlations"], f"fig-m{index}-heat")
+                       + charts.heat_legend(),
+                       "Residual correlations (observed minus implied), lower triangle. Darker "
+                       "is larger; hatched cells are negative; outlined cells reach the flag "
+                       "threshold.", "heat")
+    notes = m.get("modification_hint_notes") or {}
+    if "modification_hints" in m and not m["modification_hints"]:
+        s.p(notes.get("not_computed") or
+            f"No modification index reaches {dec(notes.get('threshold'), 1)}.")
+    if "refinement" in m and not (m["refinement"] or {}).get("steps"):
+        s.p((m["refinement"] or {}).get("stopped") or "No refinement path was computed.")
+    doc.sections.append(s)
+
+
+def _invariance(doc: Document) -> None:
+    r = doc.report
+    if not r.get("invariance"):
+        return
+    s = Section("invariance", "Measurement invariance")
+    doc.table(s, tables.invariance_table(r))
+    released = r.get("released") or []
+    if released:
+        s.h3("Constraints released")
+        s.items(str(x) if not isinstance(x, dict) else
+                ", ".join(f"{k}: {v}" for k, v in x.items()) for x in released)
+    doc.sections.append(s)
+
+
+def _data(doc: Document) -> None:
+    r = doc.report
+    data = r["data"]
+    s = Section("data", "The data")
+    dropped = data.get("dropped") or {}
+    reasons = "; ".join(f"{count(v)} for {k}" for k, v in dropped.items() if v)
+    s.p(f"{count(data['n_rows'])} rows were read from {data['file']}; {count(data['n_used'])} "
+        f"were used" + (f" ({reasons})" if reasons else "") + ". Missing answers were handled by "
+        f"{data.get('missing_handling', '–')}.")
+    doc.table(s, tables.screening_table(r))
+    if (data.get("screening") or {}).get("mardia"):
+        doc.table(s, tables.mardia_table(r))
+    doc.sections.append(s)
+
+
+def _methods(doc: Document) -> None:
+    r = doc.report
+    s = Section("methods", "Methods paragraph and references")
+    s.p("Generated from what this check ran; adapt it to your own words and add what only "
+        "you know (sample, design, reasons).", "lead")
+    for text in narrative.methods_paragraphs(r):
+        s.p(text, "methods")
+    s.h3("References")
+    s.items(references_used(r), "references")
+    doc.sections.append(s)
+
+
+def _cautions(doc: Document) -> None:
+    s = Section("cautions", "Cautions")
+    s.blocks.append({"type": "dl", "items": [
+        {"term": title, "text": text, "missing": False}
+        for title, text in narrative.cautions(doc.report)]})
+    doc.sections.append(s)
+
+
+def _checklist(doc: Document) -> None:
+    s = Section("checklist", "Reporting checklist")
+    doc.table(s, tables.checklist_table(checklist.checklist_rows(doc.report)))
+    doc.sections.append(s)
+
+
+def build_document(report: dict) -> Document:
+    """The whole report, in reading order."""
+    doc = Document(report)
+    _summary(doc)
+    _design(doc)
+    _comparison(doc)
+    for index, m in enumerate(report["models"], start=1):
+        _model(doc, m, index)
+    _invariance(doc)
+    _data(doc)
+    _methods(doc)
+    _cautions(doc)
+    _checklist(doc)
+    return doc

@@ -1,0 +1,345 @@
+"""Words generated from the numbers: the plain-language summary, a sentence
+fit for an abstract, the methods paragraph and the cautions.
+
+Every sentence here is built from values in the result dict and says no
+more than they do: the models are compared ("the indices favour"), never
+proclaimed true; cutoffs are called conventions; where criteria disagree
+the text says so and leaves the choice to the researcher.
+"""
+
+from __future__ import annotations
+
+from scalewright.report.conventions import (FIT_CUTOFFS, HU_BENTLER, RELIABILITY_MINIMUM,
+                                            RELIABILITY_SOURCE, SALIENCE)
+from scalewright.report.formatting import coef, count, dec, interval, p_equals
+
+_NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")
+
+
+def _number(n: int) -> str:
+    return _NUMBERS[n] if 0 <= n < len(_NUMBERS) else count(n)
+
+
+def _names(names) -> str:
+    quoted = [f"‘{n}’" for n in names]
+    if len(quoted) <= 2:
+        return " and ".join(quoted)
+    return ", ".join(quoted[:-1]) + " and " + quoted[-1]
+
+
+def _plain_list(words) -> str:
+    words = list(words)
+    return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
+
+
+def _models(report: dict) -> dict:
+    return {m["name"]: m for m in report.get("models", ())}
+
+
+def _rows(report: dict) -> list[dict]:
+    return (report.get("comparison") or {}).get("models", [])
+
+
+def _first_name(report: dict) -> str | None:
+    for row in _rows(report):
+        if row.get("first"):
+            return row["name"]
+    return None
+
+
+def equivalent_groups(report: dict) -> list[set]:
+    """Sets of models that nested tests found equivalent (0 df difference)."""
+    groups: list[set] = []
+    for t in (report.get("comparison") or {}).get("nested_tests", ()):
+        if t.get("df") == 0:
+            pair = {t["restricted"], t["general"]}
+            joined = [g for g in groups if g & pair]
+            for g in joined:
+                groups.remove(g)
+                pair |= g
+            groups.append(pair)
+    return groups
+
+
+def favoured(report: dict) -> dict:
+    """Which model(s) the information criteria favour.
+
+    Returns ``{"bic": [names], "bic_weight": w, "aic": name | None, "focus": name}``:
+    the lowest-BIC model together with any model equivalent to it, their
+    summed BIC weight, the lowest-AIC model, and the model the summary
+    describes in detail (the BIC favourite; among equivalent models the one
+    specified first, else the first in the file).  Without a comparison the
+    focus is the model specified first, else the first model.
+    """
+    models = report.get("models", [])
+    rows = [r for r in _rows(report) if r.get("bic_weight") is not None]
+    first = _first_name(report)
+    if not rows:
+        focus = first or (models[0]["name"] if models else None)
+        return {"bic": [], "bic_weight": None, "aic": None, "focus": focus}
+    best = min(rows, key=lambda r: r["bic"])
+    group = next((g for g in equivalent_groups(report) if best["name"] in g), {best["name"]})
+    names = [r["name"] for r in rows if r["name"] in group]
+    weight = sum(r["bic_weight"] for r in rows if r["name"] in group)
+    aic = min(rows, key=lambda r: r["aic"])["name"]
+    focus = first if first in names else names[0]
+    return {"bic": names, "bic_weight": weight, "aic": aic, "focus": focus}
+
+
+def _fit_phrase(fit: dict) -> str:
+    return (f"CFI = {coef(fit.get('cfi'))}, TLI = {coef(fit.get('tli'))}, RMSEA = "
+            f"{coef(fit.get('rmsea'))} {interval(fit.get('rmsea_ci90'))} and SRMR = "
+            f"{coef(fit.get('srmr'))}")
+
+
+def _chi_phrase(fit: dict) -> str:
+    return f"χ² = {dec(fit.get('chi_square'), 2)}, df = {fit.get('df')}, {p_equals(fit.get('p_value'))}"
+
+
+def _against_cutoffs(fit: dict) -> str:
+    inside = [c.label for c in FIT_CUTOFFS if c.met(fit.get(c.index))]
+    outside = [c.label for c in FIT_CUTOFFS if c.met(fit.get(c.index)) is False]
+    if not outside:
+        return f"all within the conventional cutoffs of {HU_BENTLER}"
+    if not inside:
+        return f"all outside the conventional cutoffs of {HU_BENTLER}"
+    return (f"within the conventional cutoffs of {HU_BENTLER} for {_plain_list(inside)}, "
+            f"outside them for {_plain_list(outside)}")
+
+
+def weak_items(model: dict, salience: float = SALIENCE) -> list[str]:
+    """Items whose standardized loading on their own first-order construct is
+    below ``salience`` in absolute value."""
+    first_order = {c["name"] for c in model.get("constructs", ()) if c.get("kind") == "construct"}
+    return [row["item"] for row in model.get("loadings", ())
+            if row.get("primary") and row["construct"] in first_order
+            and row.get("std_estimate") is not None and abs(row["std_estimate"]) < salience]
+
+
+def _comparison_paragraph(report: dict, fav: dict) -> str | None:
+    comparison = report.get("comparison")
+    if not comparison or not fav["bic"]:
+        return None
+    n = len(comparison["models"])
+    if len(fav["bic"]) > 1:
+        text = (f"Of the {_number(n)} rival models, BIC favours {_names(fav['bic'])}, which are "
+                f"equivalent here (they fit identically and cannot be told apart by the data); "
+                f"together they carry a BIC weight of {coef(fav['bic_weight'], 2)}.")
+    else:
+        text = (f"Of the {_number(n)} rival models, BIC favours {_names(fav['bic'])} (BIC weight "
+                f"{coef(fav['bic_weight'], 2)}).")
+    disagree = []
+    if fav["aic"] not in fav["bic"]:
+        disagree.append(f"AIC, which penalises extra parameters less, favours {_names([fav['aic']])}")
+    for t in comparison.get("nested_tests", ()):
+        if (t["restricted"] in fav["bic"] and t.get("p_value") is not None
+                and t["p_value"] < 0.05):
+            disagree.append(f"the chi-square difference test prefers {_names([t['general']])} to "
+                            f"{_names([t['restricted']])} (Δχ² = {dec(t['chi_square'], 2)}, "
+                            f"df = {t['df']}, {p_equals(t['p_value'])})")
+    if disagree:
+        text += (f" However, {'; '.join(disagree)}. The criteria disagree, so the choice "
+                 "should rest on what the constructs are meant to be, not on these numbers alone.")
+    return text
+
+
+def _focus_paragraph(report: dict, fav: dict) -> str | None:
+    name = fav["focus"]
+    model = _models(report).get(name)
+    if model is None:
+        return None
+    first = _first_name(report)
+    role = (" (the model specified first)" if name == first
+            else "" if first is None else f" (the model specified first was {_names([first])})")
+    if not model.get("converged", True):
+        return (f"‘{name}’{role} did not converge: its numbers should not be interpreted "
+                "(see its section).")
+    fit = model["fit"]
+    p = fit.get("p_value")
+    verdict = ("rejects exact fit" if p is not None and p < 0.05
+               else "does not reject exact fit")
+    return (f"‘{name}’{role} has {_fit_phrase(fit)}: {_against_cutoffs(fit)}. The chi-square "
+            f"test {verdict} ({_chi_phrase(fit)}).")
+
+
+def _reliability_paragraph(model: dict) -> str | None:
+    rows = model.get("reliability")
+    if not rows:
+        return None
+    def value(row):
+        return row.get("omega") if row.get("omega") is not None else row.get("alpha")
+    named = [(row["construct"], value(row)) for row in rows if value(row) is not None]
+    if not named:
+        return None
+    high = [f"{c} ({coef(v, 2)})" for c, v in named if v >= RELIABILITY_MINIMUM]
+    low = [f"{c} ({coef(v, 2)})" for c, v in named if v < RELIABILITY_MINIMUM]
+    what = "Omega" if any(row.get("omega") is not None for row in rows) else "Alpha"
+    parts = []
+    if high:
+        parts.append(f"at least {coef(RELIABILITY_MINIMUM, 2)} for {_plain_list(high)}")
+    if low:
+        parts.append(f"below it for {_plain_list(low)}")
+    return (f"{what} in ‘{model['name']}’ is {' and '.join(parts)}; {coef(RELIABILITY_MINIMUM, 2)} "
+            f"is a common minimum for research use, and decisions about individuals need more "
+            f"({RELIABILITY_SOURCE}).")
+
+
+def _strain_paragraph(model: dict) -> str | None:
+    parts = []
+    weak = weak_items(model)
+    if weak:
+        parts.append(f"{_plain_list(weak)} load{'s' if len(weak) == 1 else ''} below "
+                     f"{coef(SALIENCE, 2)} on {'its' if len(weak) == 1 else 'their'} construct")
+    hints = model.get("modification_hints") or []
+    if hints:
+        h = hints[0]
+        what = (f"a loading of {h['item']} on {h['construct']}" if h.get("kind") == "loading"
+                else f"the residual covariance of {h.get('item_a')} and {h.get('item_b')}")
+        parts.append(f"the largest modification index ({dec(h['mi'], 1)}) concerns {what}")
+    residuals = model.get("residual_correlations") or {}
+    largest = residuals.get("largest") or []
+    if largest:
+        top = largest[0]
+        flagged = residuals.get("n_flagged", 0)
+        parts.append(f"{_number(flagged)} residual correlation{'s' * (flagged != 1)} reach "
+                     f"|{coef(residuals.get('threshold'), 2)}|, the largest "
+                     f"{coef(top['value'], 2)} ({top['a']} with {top['b']})")
+    warnings = model.get("warnings") or []
+    if warnings:
+        parts.append(f"the estimation gave {_number(len(warnings))} warning"
+                     f"{'s' * (len(warnings) != 1)}")
+    if not parts:
+        return None
+    return f"Where ‘{model['name']}’ is strained: {'; '.join(parts)}."
+
+
+def summary_paragraphs(report: dict) -> list[str]:
+    """The plain-language summary, one paragraph per string."""
+    data = report["data"]
+    dropped = data["n_rows"] - data["n_used"]
+    out = [f"The answers of {count(data['n_used'])} of the {count(data['n_rows'])} respondents "
+           f"were analysed" + (f" ({count(dropped)} rows were left out: "
+                               f"{data.get('missing_handling', 'see the data section')})."
+                               if dropped else ".")]
+    fav = favoured(report)
+    model = _models(report).get(fav["focus"], {})
+    for paragraph in (_comparison_paragraph(report, fav), _focus_paragraph(report, fav),
+                      _reliability_paragraph(model) if model else None,
+                      _strain_paragraph(model) if model else None):
+        if paragraph:
+            out.append(paragraph)
+    out.append("These figures describe how well each model reproduces the answers of this "
+               "sample. Good fit does not show that the scales measure what they are meant to; "
+               "see the cautions at the end.")
+    return out
+
+
+def abstract_sentence(report: dict) -> str:
+    """One sentence for an abstract: two global fit statistics, local fit,
+    and whether the model described is the one specified first."""
+    fav = favoured(report)
+    model = _models(report).get(fav["focus"])
+    if model is None:
+        return ""
+    fit = model["fit"]
+    first = _first_name(report)
+    origin = ("the model specified first" if fav["focus"] == first
+              else "not the model specified first" if first else
+              "the model file does not say which model was specified first")
+    residuals = model.get("residual_correlations") or {}
+    largest = residuals.get("largest") or []
+    local = (f"the largest residual correlation was {coef(largest[0]['value'], 2)}"
+             if largest else "local fit was not examined")
+    return (f"In {count(report['data']['n_used'])} respondents, the model ‘{model['name']}’ "
+            f"({origin}) gave χ²({fit.get('df')}) = {dec(fit.get('chi_square'), 2)}, "
+            f"{p_equals(fit.get('p_value'))}, CFI = {coef(fit.get('cfi'))}, RMSEA = "
+            f"{coef(fit.get('rmsea'))}, 90% CI {interval(fit.get('rmsea_ci90'))}, SRMR = "
+            f"{coef(fit.get('srmr'))}; {local}.")
+
+
+def methods_paragraphs(report: dict) -> list[str]:
+    """A methods paragraph built from what was run, for the researcher to adapt."""
+    models = report.get("models", [])
+    data = report["data"]
+    names = [m["name"] for m in models]
+    estimators = list(dict.fromkeys(str(m.get("estimator")) for m in models))
+    notes = list(dict.fromkeys(n for m in models for n in m.get("identification", ())))
+    tool = report["tool"]
+    deps = tool.get("dependencies")
+    software = f"scalewright {tool['version']}" + (
+        " (" + ", ".join(f"{k} {v}" for k, v in deps.items()) + ")" if deps else "")
+    out = [(f"We fitted {_number(len(models))} rival confirmatory factor model"
+            f"{'s' * (len(models) != 1)} ({_names(names)}) to the answers of "
+            f"{count(data['n_used'])} of {count(data['n_rows'])} respondents with {software}. "
+            f"Estimation was by {_plain_list(estimators)} (Jöreskog, 1969); missing answers were "
+            f"handled by {data.get('missing_handling', 'the default of the software')}. "
+            + " ".join(notes))]
+    fit = ("Global fit was judged with the chi-square test and with CFI (Bentler, 1990), TLI "
+           "(Tucker & Lewis, 1973), RMSEA with its 90% confidence interval (Steiger & Lind, "
+           "1980; Browne & Cudeck, 1993) and SRMR, read against the conventional cutoffs of Hu "
+           "and Bentler (1999) as guides rather than rules.")
+    if report.get("comparison"):
+        fit += (" Rival models were compared by AIC (Akaike, 1974), BIC (Schwarz, 1978) and "
+                "BIC-based model weights (Raftery, 1995; Wagenmakers & Farrell, 2004)")
+        if report["comparison"].get("nested_tests"):
+            fit += ", and nested models by chi-square difference tests"
+            if any(t.get("scaled") for t in report["comparison"]["nested_tests"]):
+                fit += " scaled as proposed by Satorra and Bentler (2001)"
+        fit += "."
+    out.append(fit)
+    extra = ["Item distributions were described by skewness and excess kurtosis, and "
+             "multivariate normality by Mardia's (1970) coefficients."]
+    present = {k for m in models for k in m}
+    if "reliability" in present:
+        extra.append("Reliability of each construct's sum score was estimated by Cronbach's "
+                     "(1951) alpha with the interval of Feldt, Woodruff and Salih (1987), by "
+                     "McDonald's (1999) omega from the fitted model and by coefficient H "
+                     "(Hancock & Mueller, 2001).")
+    if "validity" in present:
+        extra.append("Distinctness of constructs was examined with the average variance "
+                     "extracted and the Fornell–Larcker (1981) comparison, and with the HTMT "
+                     "ratio (Henseler, Ringle & Sarstedt, 2015).")
+    if "bifactor" in present or "higher_order" in present:
+        extra.append("For general-factor models, omega hierarchical, explained common variance "
+                     "and related indices were computed as described by Rodriguez, Reise and "
+                     "Haviland (2016).")
+    if "modification_hints" in present:
+        extra.append("Local misfit was examined through residual correlations and modification "
+                     "indices (Sörbom, 1989) with expected parameter changes; no model was "
+                     "changed because of them.")
+    out.append(" ".join(extra))
+    return out
+
+
+def cautions(report: dict) -> list[tuple[str, str]]:
+    """The standing cautions, as (short title, text)."""
+    out = [
+        ("Fit is not validity",
+         "A model that reproduces the answers well can still measure something other than what "
+         "its constructs are called. Fit indices say how closely the model reproduces the item "
+         "covariances; evidence that the scores mean what they are meant to mean comes from "
+         "content, response processes and relations with other variables."),
+        ("Cutoffs are conventions",
+         f"The cutoffs marked in this report come from simulations of particular models "
+         f"({HU_BENTLER}); with other numbers of items, loadings or sample sizes they can be "
+         "too strict or too lenient (McNeish & Wolf, 2023). Every index is reported so that a "
+         "reader can apply other criteria."),
+        ("Equivalent models",
+         "Other models, with different meanings, can fit these data exactly as well as any model "
+         "shown here; a good fit does not rule them out."),
+        ("Individual decisions",
+         "Scores used to make decisions about individual people need more evidence of "
+         "reliability and validity than scores used for research on groups (Standards for "
+         "Educational and Psychological Testing; AERA, APA & NCME, 2014)."),
+    ]
+    if any("modification_hints" in m for m in report.get("models", ())):
+        out.insert(2, ("Modification indices capitalise on chance",
+                       "Freeing a parameter because its modification index is large tailors the "
+                       "model to this sample; such changes often fail to replicate (MacCallum, "
+                       "Roznowski & Necowitz, 1992). Change a model only for a reason you would "
+                       "defend without the index, and test the changed model on new data."))
+    if any(row.get("changes") for row in _rows(report)):
+        out.insert(3, ("Changed models are untested",
+                       "A model changed after seeing these data has not been tested by them: "
+                       "confirm it on a new sample before relying on it."))
+    return out

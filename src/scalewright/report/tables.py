@@ -1,0 +1,562 @@
+"""Every table of the report, built once from the result dict and written
+three ways: HTML (by the template), CSV and Markdown (``--tables DIR``).
+
+A :class:`Table` holds cells that are already formatted to reporting
+precision (:mod:`scalewright.report.formatting`), so the three forms show the
+same numbers.  Marks against conventions (✓/✗) are kept apart from the
+number: they are shown in HTML and Markdown and left out of the CSV, whose
+cells a spreadsheet can read as numbers.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+from scalewright.errors import StudyError
+from scalewright.report.charts import frequency_chart, frequency_text
+from scalewright.report.conventions import (FIT_CUTOFFS, MEETS, MISSES, RELIABILITY_MINIMUM,
+                                            RELIABILITY_SOURCE, SALIENCE, cutoff_note, fit_marks)
+from scalewright.report.formatting import (DASH, coef, count, dec, interval, percent, plain,
+                                           pval)
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One formatted cell.
+
+    ``header`` marks a row header (``<th scope="row">``); ``mark`` is a
+    symbol shown after the text (✓/✗); ``css`` names classes for the HTML;
+    ``shade`` (0–9) darkens the background by size (loading matrix);
+    ``chart`` is inline SVG shown in the HTML in place of ``text`` (which
+    carries the same numbers for CSV and Markdown).
+    """
+
+    text: str
+    header: bool = False
+    mark: str = ""
+    css: str = ""
+    shade: int | None = None
+    chart: str = ""
+
+
+@dataclass(frozen=True)
+class Table:
+    """A captioned table: ``columns`` are header labels, ``rows`` lists of cells.
+
+    ``left`` is the number of leading text columns (left-aligned); the rest
+    are numbers (right-aligned).  ``number`` is set when the document is
+    assembled (Table 1, 2, …).
+    """
+
+    key: str
+    title: str
+    columns: tuple[str, ...]
+    rows: tuple[tuple[Cell, ...], ...]
+    notes: tuple[str, ...] = ()
+    left: int = 1
+    number: int = 0
+    css: str = ""
+    wide: bool = field(default=False)
+
+    def numbered(self, number: int) -> "Table":
+        return replace(self, number=number)
+
+    def to_csv(self) -> str:
+        """The table as CSV (ASCII minus, no marks, header row first)."""
+        buffer = io.StringIO()
+        writer = csv.writer(buffer, lineterminator="\n")
+        writer.writerow(self.columns)
+        for row in self.rows:
+            writer.writerow([plain(c.text) for c in row])
+        return buffer.getvalue()
+
+    def to_markdown(self) -> str:
+        """The table as a Markdown pipe table with its caption and notes."""
+        def esc(text: str) -> str:
+            return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+
+        def cell(c: Cell) -> str:
+            return esc(f"{c.text} {c.mark}".strip())
+
+        align = ["---"] * self.left + ["---:"] * (len(self.columns) - self.left)
+        lines = [f"**Table {self.number}.** {esc(self.title)}", "",
+                 "| " + " | ".join(esc(c) for c in self.columns) + " |",
+                 "| " + " | ".join(align) + " |"]
+        lines += ["| " + " | ".join(cell(c) for c in row) + " |" for row in self.rows]
+        if self.notes:
+            lines += [""] + [f"*Note.* {esc(n)}" if i == 0 else esc(n)
+                             for i, n in enumerate(self.notes)]
+        return "\n".join(lines) + "\n"
+
+
+def _h(text) -> Cell:
+    return Cell(str(text), header=True)
+
+
+def _c(text: str, **kw) -> Cell:
+    return Cell(text, **kw)
+
+
+def _marked(value, met: bool | None, text: str) -> Cell:
+    if met is None:
+        return Cell(text)
+    return Cell(text, mark=MEETS if met else MISSES, css="meets" if met else "misses")
+
+
+def slug(name: str) -> str:
+    """A file-name-safe form of a model name: lower case, letters, digits, '-'."""
+    s = re.sub(r"[^a-z0-9]+", "-", name.lower()).strip("-")
+    return s or "model"
+
+
+# --------------------------------------------------------------------------- fit and comparison
+
+def _fit_cells(fit: dict) -> list[Cell]:
+    marks = fit_marks(fit)
+    cells = []
+    for c in FIT_CUTOFFS:
+        text = coef(fit.get(c.index))
+        if c.index == "rmsea":
+            text = f"{text} {interval(fit.get('rmsea_ci90'))}"
+        cells.append(_marked(fit.get(c.index), marks[c.index]["met"], text))
+    return cells
+
+
+def summary_fit_table(report: dict) -> Table:
+    """One row per rival model: χ², df, p and the four indices marked against cutoffs."""
+    rows = []
+    weights = (report.get("comparison") or {}).get("bic_weights", {})
+    for m in report["models"]:
+        f = m["fit"]
+        name = m["name"] + ("" if m.get("converged", True) else " (did not converge)")
+        rows.append((_h(name), _c(dec(f.get("chi_square"), 2)), _c(str(f.get("df"))),
+                     _c(pval(f.get("p_value"))), *_fit_cells(f),
+                     _c(coef(weights[m["name"]], 2) if m["name"] in weights else DASH)))
+    return Table("summary-fit", "Fit of the rival models at a glance",
+                 ("Model", "χ²", "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR",
+                  "BIC weight"), tuple(rows), (cutoff_note(),))
+
+
+def comparison_table(report: dict) -> Table:
+    """Rival models side by side with information criteria and BIC weights."""
+    comparison = report["comparison"]
+    robust = any("chi_square_scaled" in r for r in comparison["models"])
+    columns = ["Model", "Specified first", "χ²"] + (["χ² scaled"] if robust else []) + [
+        "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR", "AIC", "BIC", "ΔBIC", "BIC weight"]
+    rows = []
+    for r in comparison["models"]:
+        cells = [_h(r["name"] + ("" if r.get("converged", True) else " (did not converge)")),
+                 Cell("yes" if r.get("first") else "", css="text"),
+                 _c(dec(r.get("chi_square"), 2))]
+        if robust:
+            cells.append(_c(dec(r.get("chi_square_scaled"), 2)))
+        cells += [_c(str(r.get("df"))), _c(pval(r.get("p_value"))), _c(coef(r.get("cfi"))),
+                  _c(coef(r.get("tli"))),
+                  _c(f"{coef(r.get('rmsea'))} {interval(r.get('rmsea_ci90'))}"),
+                  _c(coef(r.get("srmr"))), _c(dec(r.get("aic"), 1)), _c(dec(r.get("bic"), 1)),
+                  _c(dec(r.get("delta_bic"), 1)), _c(coef(r.get("bic_weight"), 3))]
+        rows.append(tuple(cells))
+    notes = ["AIC = −2 log-likelihood + 2k (Akaike 1974); BIC = −2 log-likelihood + k ln N "
+             "(Schwarz 1978), k counting the item means. The BIC weight is exp(−ΔBIC/2) "
+             "normalised over the models, an approximate probability of each model among these "
+             "rivals under equal prior odds (Raftery 1995; Wagenmakers & Farrell 2004); it says "
+             "nothing about models not in the list."]
+    if any(r.get("bic_weight") is None and r.get("converged", True) for r in comparison["models"]):
+        notes.append("Models without a weight use other items or rows than the first model, so "
+                     "their likelihoods cannot be compared with it.")
+    if robust:
+        notes.append("χ² scaled: the mean-scaled statistic (Satorra & Bentler 1994).")
+    return Table("comparison", "Rival models side by side", tuple(columns), tuple(rows),
+                 tuple(notes), left=2)
+
+
+def nested_table(report: dict) -> Table:
+    """Chi-square difference tests between nested models."""
+    rows = []
+    for t in report["comparison"]["nested_tests"]:
+        rows.append((_h(t["restricted"]), Cell(t["general"], css="text"),
+                     _c(dec(t.get("chi_square"), 2)), _c(str(t.get("df"))),
+                     _c(pval(t.get("p_value"))),
+                     Cell(t["how_detected"] + (f" Note: {t['note']}." if t.get("note") else ""),
+                          css="text prose")))
+    notes = ("Δχ² is the restricted model's chi-square minus the general model's, on the "
+             "difference in degrees of freedom (Steiger, Shapiro & Browne 1985); a small p says "
+             "the restrictions cost more fit than chance would explain. A large p does not show "
+             "that the restricted model is right.",)
+    return Table("nested-tests", "Chi-square difference tests between nested models",
+                 ("Restricted model", "General model", "Δχ²", "Δdf", "p", "How the nesting is known"),
+                 tuple(rows), notes, left=2)
+
+
+# --------------------------------------------------------------------------- one model
+
+def loadings_table(m: dict, prefix: str) -> Table:
+    rows = []
+    for row in m["loadings"]:
+        std = row.get("std_estimate")
+        weak = std is not None and row.get("primary") and abs(std) < SALIENCE
+        rows.append((_h(row["item"]), Cell(row["construct"], css="text"),
+                     _c(dec(row["estimate"])),
+                     _c("fixed" if row.get("fixed") else dec(row.get("se"))),
+                     _c(dec(row.get("z"), 2)), _c(pval(row.get("p_value"))),
+                     Cell(coef(std), mark="▽" if weak else "", css="weak" if weak else "")))
+    return Table(f"{prefix}-loadings", f"Loadings of ‘{m['name']}’",
+                 ("Item", "Construct", "Estimate", "SE", "z", "p", "Standardized"), tuple(rows),
+                 (f"▽ standardized loading below |{coef(SALIENCE, 2)}| on the item's own "
+                  "construct (a common rule of thumb for a salient loading). Standard errors "
+                  "from the expected information; 'fixed' marks a loading fixed for scaling.",),
+                 left=2)
+
+
+def loading_matrix(m: dict, prefix: str) -> Table:
+    """Items × latent variables, standardized loadings, cells shaded by size."""
+    factors = [c["name"] for c in m["constructs"]
+               if any(r["construct"] == c["name"] for r in m["loadings"])]
+    value = {(r["item"], r["construct"]): r.get("std_estimate") for r in m["loadings"]}
+    rows = []
+    for item in m["items"]:
+        cells = [_h(item)]
+        for f in factors:
+            v = value.get((item, f))
+            if v is None:
+                cells.append(Cell(""))
+            else:
+                cells.append(Cell(coef(v, 2), shade=min(9, int(abs(v) * 10)),
+                                  css="salient" if abs(v) >= SALIENCE else ""))
+        rows.append(tuple(cells))
+    return Table(f"{prefix}-matrix", f"Standardized loading matrix of ‘{m['name']}’",
+                 ("Item", *factors), tuple(rows),
+                 (f"Darker cells carry larger loadings; loadings of |{coef(SALIENCE, 2)}| or more "
+                  "are in bold. Empty cells are fixed at zero by the model.",),
+                 css="matrix")
+
+
+def paths_table(m: dict, prefix: str) -> Table:
+    rows = [(_h(r["construct"]), Cell(r["higher"], css="text"), _c(dec(r["estimate"])),
+             _c("fixed" if r.get("fixed") else dec(r.get("se"))), _c(pval(r.get("p_value"))),
+             _c(coef(r.get("std_estimate"))), _c(coef((r.get("std_estimate") or 0) ** 2)
+                                                  if r.get("std_estimate") is not None else DASH))
+            for r in m["higher_order_paths"]]
+    return Table(f"{prefix}-paths", f"Higher-order paths of ‘{m['name']}’",
+                 ("Construct", "Explained by", "Estimate", "SE", "p", "Standardized",
+                  "Share explained"), tuple(rows),
+                 ("Share explained: the squared standardized path, the part of the construct's "
+                  "variance the higher-order factor accounts for.",), left=2)
+
+
+def correlations_table(m: dict, prefix: str) -> Table:
+    rows = [(_h(r["a"]), Cell(r["b"], css="text"), _c(coef(r["estimate"])),
+             _c(dec(r.get("se"))), _c(pval(r.get("p_value"))))
+            for r in m["construct_correlations"]]
+    return Table(f"{prefix}-correlations", f"Construct correlations in ‘{m['name']}’",
+                 ("Construct", "With", "Correlation", "SE", "p"), tuple(rows),
+                 ("Model-implied correlations; standard errors by the delta method.",), left=2)
+
+
+def residuals_table(m: dict, prefix: str) -> Table:
+    r2 = {r["item"]: r["value"] for r in m.get("r_squared", ())}
+    rows = [(_h(r["item"]), _c(dec(r["estimate"])), _c(dec(r.get("se"))),
+             _c(coef(r.get("std_estimate"))), _c(coef(r2.get(r["item"]))))
+            for r in m["residual_variances"]]
+    return Table(f"{prefix}-residuals", f"Residual variances and R² of ‘{m['name']}’",
+                 ("Item", "Residual variance", "SE", "Standardized", "R²"), tuple(rows),
+                 ("A negative residual variance (a Heywood case) is reported as estimated and "
+                  "flagged among the warnings.",))
+
+
+def residual_covariances_table(m: dict, prefix: str) -> Table:
+    rows = [(_h(r["a"]), Cell(r["b"], css="text"), _c(dec(r["estimate"])),
+             _c(dec(r.get("se"))), _c(pval(r.get("p_value"))), _c(coef(r.get("std_estimate"))))
+            for r in m["residual_covariances"]]
+    return Table(f"{prefix}-residual-covariances",
+                 f"Residual covariances declared in ‘{m['name']}’",
+                 ("Item", "With", "Covariance", "SE", "p", "Residual correlation"), tuple(rows),
+                 left=2)
+
+
+def reliability_table(m: dict, prefix: str) -> Table:
+    rows = []
+    for r in m["reliability"]:
+        omega = r.get("omega")
+        rows.append((_h(r["construct"]), _c(count(r.get("n_items"))),
+                     _c(f"{coef(r.get('alpha'), 2)} {interval(r.get('alpha_ci95'), 2)}"),
+                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
+                             coef(omega, 2)),
+                     _c(coef(r.get("coefficient_h"), 2))))
+    return Table(f"{prefix}-reliability", f"Reliability of the constructs of ‘{m['name']}’",
+                 ("Construct", "Items", "Alpha [95% CI]", "Omega", "H"), tuple(rows),
+                 (f"Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
+                  f"omega total from the fitted model (McDonald 1999); coefficient H (Hancock & "
+                  f"Mueller 2001). {MEETS}/{MISSES}: omega at least / below "
+                  f"{coef(RELIABILITY_MINIMUM, 2)}, a common minimum for research use "
+                  f"({RELIABILITY_SOURCE}); decisions about individuals need more.",))
+
+
+def validity_table(m: dict, prefix: str) -> Table:
+    v = m["validity"]
+    ave, cr = v.get("ave", {}), v.get("composite_reliability", {})
+    rows = []
+    for c in dict.fromkeys([*ave, *cr]):
+        a = ave.get(c)
+        rows.append((_h(c), _marked(a, None if a is None else a > 0.5, coef(a, 2)),
+                     _c(coef(None if a is None else a ** 0.5, 2)), _c(coef(cr.get(c), 2))))
+    return Table(f"{prefix}-validity", f"Average variance extracted of ‘{m['name']}’",
+                 ("Construct", "AVE", "√AVE", "Composite reliability"), tuple(rows),
+                 (f"{MEETS}/{MISSES}: AVE above / not above .50, the convention of Fornell & "
+                  "Larcker (1981); by the same convention each construct's √AVE should exceed "
+                  "its correlations with the others.",))
+
+
+def htmt_table(m: dict, prefix: str) -> Table:
+    rows = []
+    for r in m["validity"]["htmt"]:
+        value = r.get("value")
+        rows.append((_h(r["a"]), Cell(r["b"], css="text"),
+                     _marked(value, None if value is None else value < 0.85, coef(value, 2))))
+    return Table(f"{prefix}-htmt", f"Heterotrait–monotrait ratios in ‘{m['name']}’",
+                 ("Construct", "With", "HTMT"), tuple(rows),
+                 (f"{MEETS}/{MISSES}: below / not below .85, the stricter convention of Henseler, "
+                  "Ringle & Sarstedt (2015) for distinct constructs (.90 for conceptually "
+                  "similar ones).",), left=2)
+
+
+def bifactor_table(coefficients: dict, key: str, title: str) -> Table:
+    rows = [(_h(f"total score ({coefficients.get('general', 'general')})"),
+             _c(coef(coefficients.get("omega_total"), 2)),
+             _c(coef(coefficients.get("omega_hierarchical"), 2)), _c(DASH),
+             _c(coef(coefficients.get("h"), 2)))]
+    for s in coefficients.get("subscales", ()):
+        rows.append((_h(s["factor"]), _c(coef(s.get("omega_subscale"), 2)),
+                     _c(coef(s.get("general_share"), 2)),
+                     _c(coef(s.get("omega_hierarchical_subscale"), 2)), _c(coef(s.get("h"), 2))))
+    return Table(key, title, ("Score", "Omega", "Share of the general factor",
+                              "Share of the specific factor", "H"), tuple(rows),
+                 (f"Explained common variance (ECV) {coef(coefficients.get('ecv'), 2)}; percent "
+                  f"of uncorrelated item pairs (PUC) {coef(coefficients.get('puc'), 2)}; relative "
+                  f"omega {coef(coefficients.get('relative_omega'), 2)}. Omega hierarchical is "
+                  "the share of the general factor in the total score (Rodriguez, Reise & "
+                  "Haviland 2016).",))
+
+
+def hints_table(m: dict, prefix: str) -> Table:
+    rows = []
+    for h in m["modification_hints"]:
+        what = (f"{h.get('item')} on {h.get('construct')}" if h.get("kind") == "loading"
+                else f"{h.get('item_a')} with {h.get('item_b')}")
+        kind = "loading" if h.get("kind") == "loading" else "residual covariance"
+        rows.append((_h(what), Cell(kind, css="text"), _c(dec(h.get("mi"), 1)),
+                     _c(dec(h.get("epc"))), _c(coef(h.get("std_epc"), 2)),
+                     Cell(h.get("reading", ""), css="text prose")))
+    notes = m.get("modification_hint_notes") or {}
+    return Table(f"{prefix}-hints", f"Modification hints for ‘{m['name']}’",
+                 ("Parameter", "Kind", "MI", "EPC", "Std. EPC", "Reading"), tuple(rows),
+                 tuple(n for n in (notes.get("caution"), notes.get("judging")) if n), left=2)
+
+
+def residual_correlations_table(m: dict, prefix: str) -> Table:
+    res = m["residual_correlations"]
+    rows = []
+    for r in res.get("largest", ()):
+        flagged = r.get("flagged")
+        rows.append((_h(r["a"]), Cell(r["b"], css="text"),
+                     Cell(coef(r["value"], 2), mark="◆" if flagged else "",
+                          css="flag" if flagged else ""),
+                     _c(dec(r.get("standardized"), 2))))
+    return Table(f"{prefix}-residual-correlations",
+                 f"Largest residual correlations of ‘{m['name']}’",
+                 ("Item", "With", "Residual correlation", "z"), tuple(rows),
+                 (f"Observed minus model-implied correlation; ◆ at or beyond "
+                  f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb). z: the "
+                  "standardized residual.",), left=2)
+
+
+def item_review_table(m: dict, prefix: str) -> Table:
+    rows = []
+    for r in m["item_review"]:
+        details = r.get("details") or [{"text": f} for f in r.get("flags", ())]
+        rows.append((_h(r["item"]), Cell("; ".join(d.get("text", "") for d in details),
+                                         css="text prose")))
+    return Table(f"{prefix}-item-review", f"Items to look at in ‘{m['name']}’",
+                 ("Item", "Why"), tuple(rows), left=2)
+
+
+def refinement_table(m: dict, prefix: str) -> Table:
+    ref = m["refinement"]
+    constructs = list(dict.fromkeys(c for s in ref.get("steps", ())
+                                    for c in (s.get("reliability") or {})))
+    rows = []
+    for k, s in enumerate(ref.get("steps", ())):
+        fit = s.get("fit") or {}
+        rel = s.get("reliability") or {}
+        rows.append((_h(str(k)), Cell(s.get("removed") or "none (as specified)", css="text"),
+                     _c(coef(fit.get("cfi"))), _c(coef(fit.get("rmsea"))),
+                     _c(coef(fit.get("srmr"))), *[_c(coef(rel.get(c), 2)) for c in constructs]))
+    notes = tuple(n for n in (ref.get("note"), ref.get("stopped")) if n)
+    return Table(f"{prefix}-refinement", f"A refinement path for ‘{m['name']}’ (a suggestion)",
+                 ("Step", "Item removed", "CFI", "RMSEA", "SRMR",
+                  *[f"Alpha {c}" for c in constructs]), tuple(rows), notes, left=2)
+
+
+def thresholds_table(m: dict, prefix: str) -> Table:
+    data = m["thresholds"]
+    entries = data if isinstance(data, list) else [{"item": k, "values": v} for k, v in data.items()]
+    width = max((len(e.get("values") or e.get("thresholds") or ()) for e in entries), default=0)
+    rows = []
+    for e in entries:
+        values = list(e.get("values") or e.get("thresholds") or ())
+        rows.append((_h(e["item"]), *[_c(dec(v, 2)) for v in values],
+                     *[_c("") for _ in range(width - len(values))]))
+    return Table(f"{prefix}-thresholds", f"Item thresholds in ‘{m['name']}’",
+                 ("Item", *[f"τ{k + 1}" for k in range(width)]), tuple(rows))
+
+
+def model_tables(m: dict, index: int) -> dict[str, Table]:
+    """Every table of one model whose key is present, in document order."""
+    prefix = f"m{index}-{slug(m['name'])}"
+    out = {"loadings": loadings_table(m, prefix), "matrix": loading_matrix(m, prefix)}
+    if m.get("higher_order_paths"):
+        out["paths"] = paths_table(m, prefix)
+    if m.get("construct_correlations"):
+        out["correlations"] = correlations_table(m, prefix)
+    out["residuals"] = residuals_table(m, prefix)
+    if m.get("residual_covariances"):
+        out["residual_covariances"] = residual_covariances_table(m, prefix)
+    if m.get("thresholds"):
+        out["thresholds"] = thresholds_table(m, prefix)
+    if m.get("reliability"):
+        out["reliability"] = reliability_table(m, prefix)
+    if m.get("validity"):
+        out["validity"] = validity_table(m, prefix)
+        if m["validity"].get("htmt"):
+            out["htmt"] = htmt_table(m, prefix)
+    if isinstance(m.get("bifactor"), dict):
+        out["bifactor"] = bifactor_table(m["bifactor"], f"{prefix}-bifactor",
+                                         f"General and specific factors in ‘{m['name']}’")
+    if isinstance(m.get("higher_order"), dict) and m["higher_order"].get("coefficients"):
+        out["higher_order"] = bifactor_table(
+            m["higher_order"]["coefficients"], f"{prefix}-higher-order",
+            f"The higher-order factor of ‘{m['name']}’ in its Schmid–Leiman form")
+    if m.get("modification_hints"):
+        out["hints"] = hints_table(m, prefix)
+    if (m.get("residual_correlations") or {}).get("largest"):
+        out["residual_correlations"] = residual_correlations_table(m, prefix)
+    if m.get("item_review"):
+        out["item_review"] = item_review_table(m, prefix)
+    if (m.get("refinement") or {}).get("steps"):
+        out["refinement"] = refinement_table(m, prefix)
+    return out
+
+
+# --------------------------------------------------------------------------- data
+
+def screening_table(report: dict) -> Table:
+    wording = {i["name"]: i.get("wording") for i in report["study"].get("items", ())}
+    reverse = {i["name"] for i in report["study"].get("items", ()) if i.get("reverse")}
+    rows = []
+    for it in report["data"]["screening"]["items"]:
+        name = it["item"] + (" (R)" if it["item"] in reverse else "")
+        rows.append((_h(name), Cell(wording.get(it["item"]) or "", css="text prose"),
+                     _c(count(it.get("n"))), _c(percent(it.get("pct_missing"))),
+                     _c(dec(it.get("mean"), 2)), _c(dec(it.get("sd"), 2)),
+                     _c(dec(it.get("skewness"), 2)), _c(dec(it.get("excess_kurtosis"), 2)),
+                     Cell(frequency_text(it.get("frequencies") or {}), css="chart",
+                          chart=frequency_chart(it.get("frequencies") or {}))))
+    return Table("items", "The items: wording, answers and distribution",
+                 ("Item", "Wording", "n", "Missing", "Mean", "SD", "Skewness", "Excess kurtosis",
+                  "Answers per category"),
+                 tuple(rows),
+                 ("(R) reverse-keyed: answers were turned round before analysis. n counts the "
+                  "answers given; statistics after reverse keying and before any row was left out.",),
+                 left=2)
+
+
+def mardia_table(report: dict) -> Table:
+    m = report["data"]["screening"]["mardia"]
+    rows = ((_h("Skewness"), _c(dec(m.get("skewness"), 2)),
+             _c(f"χ²({count(m.get('skewness_df'))}) = {dec(m.get('skewness_chi2'), 1)}"),
+             _c(pval(m.get("skewness_p")))),
+            (_h("Kurtosis"), _c(dec(m.get("kurtosis"), 2)), _c(f"z = {dec(m.get('kurtosis_z'), 2)}"),
+             _c(pval(m.get("kurtosis_p")))))
+    expected = m.get("p")
+    note = (f"Mardia (1970), on the {count(m.get('n'))} rows that answer every item. Under "
+            f"multivariate normality the kurtosis is p(p + 2) = "
+            f"{count(expected * (expected + 2)) if expected else DASH}.")
+    return Table("mardia", "Multivariate normality (Mardia's coefficients)",
+                 ("Coefficient", "Value", "Test", "p"), tuple(rows), (note,))
+
+
+def invariance_table(report: dict) -> Table:
+    rows = []
+    for s in report["invariance"]:
+        fit = s.get("fit") or {}
+        delta = s.get("delta") or {}
+        test = s.get("difference_test") or {}
+        rows.append((_h(s.get("step", "")), _c(dec(fit.get("chi_square"), 2)),
+                     _c(str(fit.get("df", DASH))), _c(coef(fit.get("cfi"))),
+                     _c(coef(fit.get("rmsea"))), _c(coef(fit.get("srmr"))),
+                     _c(coef(delta.get("cfi"))), _c(coef(delta.get("rmsea"))),
+                     _c(coef(delta.get("srmr"))), _c(dec(test.get("chi_square"), 2)),
+                     _c(str(test.get("df", DASH))), _c(pval(test.get("p_value"))),
+                     Cell(str(s.get("decision") or ""), css="text prose")))
+    return Table("invariance", "Measurement invariance, step by step",
+                 ("Step", "χ²", "df", "CFI", "RMSEA", "SRMR", "ΔCFI", "ΔRMSEA", "ΔSRMR",
+                  "Δχ²", "Δdf", "p", "Decision"), tuple(rows),
+                 ("Decisions follow the change criteria of Cheung & Rensvold (2002) and Chen "
+                  "(2007), which are conventions.",))
+
+
+def checklist_table(rows: list[dict]) -> Table:
+    cells = [(_h(str(r["number"])), Cell(r["line"], css="text prose"),
+              Cell(r["status"], css=f"text status-{r['status'].split()[0]}"),
+              Cell(r["where"], css="text prose")) for r in rows]
+    return Table("checklist", "Reporting checklist: where each line is answered",
+                 ("#", "What a reviewer looks for", "Status", "Where / what to add"), tuple(cells),
+                 ("Lines merged from published reporting guidelines for confirmatory factor "
+                  "analysis (Jackson, Gillaspy & Purc-Stephenson 2009; Schreiber et al. 2006; "
+                  "Appelbaum et al. 2018; Hoyle & Isherwood 2013; AERA, APA & NCME 2014; "
+                  "COSMIN).",), left=4)
+
+
+# --------------------------------------------------------------------------- export
+
+#: a file in a tables folder listing what scalewright wrote there
+MANIFEST = ".scalewright-tables"
+
+
+def write_tables(tables, folder: Path) -> list[Path]:
+    """Write each table as ``NN-key.csv`` and ``NN-key.md`` into ``folder``.
+
+    The folder must be new, empty, or one scalewright wrote tables into
+    before (it holds the manifest file :data:`MANIFEST`); the tables of the
+    earlier run are replaced.  Any other folder is refused with a
+    StudyError, so that no file scalewright did not write is overwritten.
+    Returns the paths written, in table order.
+    """
+    folder = Path(folder)
+    manifest = folder / MANIFEST
+    if folder.exists() and not folder.is_dir():
+        raise StudyError(f"{folder}: the tables folder given with --tables is a file. Give the "
+                         "path of a folder (it is created if needed).")
+    if folder.is_dir() and any(folder.iterdir()) and not manifest.exists():
+        raise StudyError(f"{folder}: this folder already holds files that scalewright did not "
+                         "write, so the tables will not be written there. Give --tables a new "
+                         "or empty folder.")
+    folder.mkdir(parents=True, exist_ok=True)
+    if manifest.exists():
+        for name in manifest.read_text(encoding="utf-8").split():
+            old = folder / Path(name).name
+            if old.is_file():
+                old.unlink()
+    written = []
+    for t in tables:
+        stem = f"{t.number:02d}-{t.key}"
+        for suffix, text in (("csv", t.to_csv()), ("md", t.to_markdown())):
+            path = folder / f"{stem}.{suffix}"
+            path.write_text(text, encoding="utf-8")
+            written.append(path)
+    manifest.write_text("".join(f"{p.name}\n" for p in written), encoding="utf-8")
+    return written
