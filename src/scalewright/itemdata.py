@@ -1,0 +1,472 @@
+"""Read the item answers named by a :class:`~scalewright.studyfile.Study`.
+
+One job: open the data file the model file names, take the item, id and
+grouping columns, turn missing-answer codes into NaN, check the answers
+(numbers only, inside the response range, not constant, not all missing),
+apply reverse keying and return one float64 matrix in :class:`ItemData`.
+
+The user's file is only ever opened for reading.  Large text files are parsed
+in one pass by pyarrow's CSV reader, reading only the needed columns, and the
+answers are copied column by column into a single preallocated float64 array.
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import hashlib
+import os
+import zipfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pyreadstat
+
+from scalewright.errors import StudyError
+from scalewright.studyfile import Place, Study, format_code
+
+_CHUNK = 1 << 20  # bytes per read when hashing the data file
+_SHOW = 5  # example cells quoted in a message
+_MANY_GROUPS = 10  # more groups than this must be confirmed with allow_many: true
+_READ_ERRORS = (OSError, ValueError, pa.ArrowException, pyreadstat.ReadstatError,
+                zipfile.BadZipFile, KeyError)
+
+
+@dataclass(frozen=True)
+class ItemData:
+    """The answers to the study's items, ready for screening and estimation.
+
+    ``values`` is read-only: rows are people in file order, columns are
+    ``items`` in ``study.items`` order, NaN marks a missing answer, and reverse
+    keying has been applied.  ``group`` holds the group label of each row (None
+    where the grouping column is missing; ``n_group_missing`` counts those).
+    """
+
+    file: Path
+    sha256: str
+    n_rows: int
+    items: tuple[str, ...]
+    values: np.ndarray
+    group: np.ndarray | None
+    row_ids: np.ndarray | None
+    columns: tuple[str, ...]
+    n_group_missing: int = 0
+
+    def complete_rows(self) -> np.ndarray:
+        """Boolean mask of the rows that answered every item."""
+        return ~np.isnan(self.values).any(axis=1)
+
+
+def read_items(study: Study) -> ItemData:
+    """Read, recode and check the study's item columns.
+
+    Missing-answer codes (``data: missing``): a numeric code matches a cell
+    numerically (-9 matches -9.0); a text code matches a cell as stripped text,
+    and a text code that reads as a number ('-9') also matches numerically.
+    Empty cells, and the usual not-available marks of the CSV reader (NA, N/A,
+    NaN, null), are missing too; in .sav files the user-defined missing values
+    are missing.  Reverse keying maps x to low + high - x with ``scale: [low,
+    high]``.
+
+    Parameters
+    ----------
+    study : Study
+
+    Returns
+    -------
+    ItemData
+
+    Raises
+    ------
+    StudyError
+        When the file is missing or unreadable, an item or the grouping column
+        is absent, an item column holds text, answers lie outside the response
+        range, an item is constant or has no answers, or there are more than
+        10 groups without ``allow_many: true``.
+    """
+    source = _Source(study)
+    digest = source.sha256()
+    columns = source.columns()
+    source.require(columns)
+    frame = source.read(columns)
+    n_rows = len(frame)
+    if n_rows == 0:
+        source.fail(f"the data file '{source.shown}' has column names but no rows of answers",
+                    "Check that the right file is named")
+    row_ids = None
+    if study.data.id_column is not None:
+        row_ids = frame[columns[study.data.id_column]].to_numpy()
+    codes = _Codes(study.data.missing)
+    items = tuple(study.items)
+    values = np.empty((n_rows, len(items)), dtype=np.float64)
+    for j, item in enumerate(items):
+        values[:, j] = _numbers(frame.pop(columns[item]), item, codes, source, row_ids)
+    group, n_group_missing = (None, 0) if study.groups is None else \
+        _groups(frame[columns[study.groups.column]], codes, source)
+    del frame
+    codes.apply(values)
+    _check_answers(values, items, source, row_ids)
+    if study.scale is not None:
+        low, high = study.scale
+        reverse = [j for j, item in enumerate(items) if study.items[item].reverse]
+        values[:, reverse] = low + high - values[:, reverse]
+    values.flags.writeable = False
+    return ItemData(file=study.data.file, sha256=digest, n_rows=n_rows, items=items,
+                    values=values, group=group, row_ids=row_ids,
+                    columns=tuple(columns), n_group_missing=n_group_missing)
+
+
+# --------------------------------------------------------------------------- the file
+
+class _Source:
+    """The data file of a study: messages, header, reading."""
+
+    def __init__(self, study: Study):
+        self.study = study
+        self.path = study.data.file
+        self.suffix = self.path.suffix.lower()
+        try:
+            self.shown = os.path.relpath(self.path, study.path.parent)
+        except ValueError:  # another drive on Windows
+            self.shown = str(self.path)
+        if self.shown.startswith(".."):
+            self.shown = str(self.path)
+        self.place = study.place_of("data", "file")
+
+    def fail(self, problem: str, fix: str, place: Place | None = None):
+        end = "" if fix.endswith((".", "?")) else "."
+        raise StudyError(f"{place or self.place}: {problem}. {fix}{end}")
+
+    def sha256(self) -> str:
+        """SHA-256 of the file's bytes, read in 1 MiB chunks."""
+        if not self.path.is_file():
+            where = "a folder" if self.path.is_dir() else "not found"
+            self.fail(f"the data file '{self.shown}' is {where} (looked for {self.path})",
+                      "Check the name under data: file:; a relative path is read from the "
+                      "folder of the model file")
+        digest = hashlib.sha256()
+        try:
+            with open(self.path, "rb") as handle:
+                for chunk in iter(lambda: handle.read(_CHUNK), b""):
+                    digest.update(chunk)
+        except OSError as exc:
+            self.fail(f"the data file '{self.shown}' cannot be read ({exc.strerror})",
+                      "Check the file's permissions and that no other program locks it")
+        return digest.hexdigest()
+
+    # header ------------------------------------------------------------------
+    def columns(self) -> dict[str, object]:
+        """Every column of the file: name as text -> the label the reader uses."""
+        try:
+            if self.suffix in (".csv", ".tsv", ".txt"):
+                labels = pd.read_csv(self.path, sep=self._separator(), nrows=0,
+                                     encoding="utf-8").columns
+            elif self.suffix == ".xlsx":
+                labels = pd.read_excel(self.path, sheet_name=self._sheet(), nrows=0,
+                                       engine="openpyxl").columns
+            elif self.suffix == ".parquet":
+                labels = pq.read_schema(self.path).names
+            else:
+                labels = self._stat_reader()(self.path, metadataonly=True)[1].column_names
+        except pd.errors.EmptyDataError:
+            self.fail(f"the data file '{self.shown}' is empty",
+                      "Name a file with a header row of column names and one row per person")
+        except _READ_ERRORS as exc:
+            self._unreadable(exc)
+        columns = {str(label): label for label in labels}
+        if self.suffix == ".csv" and len(columns) == 1:
+            (name,) = columns
+            for sep, word in ((";", "semicolons"), ("\t", "tabs")):
+                if sep in name:
+                    self.fail(f"the data file '{self.shown}' has a single column "
+                              f"('{name[:40]}'): its columns seem separated by {word}, "
+                              f"not commas", "Save it with commas, or rename it to .txt so "
+                                             "that the separator is detected")
+        return columns
+
+    def _separator(self) -> str:
+        if self.suffix == ".csv":
+            return ","
+        if self.suffix == ".tsv":
+            return "\t"
+        with open(self.path, encoding="utf-8", errors="replace", newline="") as handle:
+            sample = handle.read(64 * 1024)
+        try:
+            return csv.Sniffer().sniff(sample, delimiters=",\t;| ").delimiter
+        except csv.Error:
+            self.fail(f"the columns of the text file '{self.shown}' are not separated by "
+                      f"commas, tabs, semicolons, bars or spaces in a consistent way",
+                      "Save the data as .csv (comma-separated) and name that file")
+
+    def _sheet(self):
+        sheet = self.study.data.sheet
+        if sheet is None:
+            return 0
+        try:
+            book = openpyxl.load_workbook(self.path, read_only=True)
+        except _READ_ERRORS as exc:
+            self._unreadable(exc)
+        names = book.sheetnames
+        book.close()
+        if sheet not in names:
+            close = difflib.get_close_matches(sheet, names, n=1)
+            hint = f"Did you mean '{close[0]}'? " if close else ""
+            self.fail(f"the workbook '{self.shown}' has no sheet called '{sheet}'",
+                      f"{hint}Its sheets are: {', '.join(names)}",
+                      self.study.place_of("data", "sheet"))
+        return sheet
+
+    def _stat_reader(self):
+        return pyreadstat.read_sav if self.suffix == ".sav" else pyreadstat.read_dta
+
+    def _unreadable(self, exc: Exception):
+        self.fail(f"the data file '{self.shown}' could not be read as a {self.suffix} file "
+                  f"({type(exc).__name__}: {str(exc)[:200]})",
+                  "Check that it opens in the program that wrote it, that its extension "
+                  "matches its format and that text files are saved as UTF-8")
+
+    # columns present ---------------------------------------------------------
+    def require(self, columns: dict[str, object]):
+        """Every item, the id column and the grouping column must be columns of the file."""
+        study = self.study
+        folded = {name.strip().casefold(): name for name in columns}
+        absent = [item for item in study.items if item not in columns]
+        if absent:
+            parts = []
+            for item in absent:
+                use = _first_use(study, item)
+                hint = _close_column(item, columns, folded)
+                parts.append(f"'{item}' ({use}{'; did you mean ' + repr(hint) + '?' if hint else ''})")
+            listing = "" if any(_close_column(i, columns, folded) for i in absent) else \
+                f" The file's columns are: {_listing(columns)}."
+            what = "the item" if len(absent) == 1 else f"{len(absent)} items:"
+            self.fail(f"{what} {', '.join(parts)} {'is' if len(absent) == 1 else 'are'} not "
+                      f"{'a column' if len(absent) == 1 else 'columns'} of the data file "
+                      f"'{self.shown}'",
+                      f"Use the column names exactly as written in the file's header, or "
+                      f"rename the columns.{listing}")
+        for keys, column, role in ((("data", "id"), study.data.id_column, "id column"),
+                                   (("groups", "column"),
+                                    study.groups and study.groups.column, "grouping column")):
+            if column is not None and column not in columns:
+                hint = _close_column(column, columns, folded)
+                self.fail(f"the {role} '{column}' is not a column of the data file "
+                          f"'{self.shown}'",
+                          f"Did you mean '{hint}'?" if hint else
+                          f"The file's columns are: {_listing(columns)}",
+                          study.place_of(*keys))
+
+    # reading -----------------------------------------------------------------
+    def read(self, columns: dict[str, object]) -> pd.DataFrame:
+        study = self.study
+        wanted = [*study.items]
+        wanted += [c for c in (study.data.id_column, study.groups and study.groups.column) if c]
+        labels = [columns[name] for name in wanted]
+        try:
+            if self.suffix in (".csv", ".tsv", ".txt"):
+                return pd.read_csv(self.path, sep=self._separator(), engine="pyarrow",
+                                   usecols=labels, encoding="utf-8")
+            if self.suffix == ".xlsx":
+                chosen = set(wanted)
+                return pd.read_excel(self.path, sheet_name=self._sheet(), engine="openpyxl",
+                                     usecols=lambda label: str(label) in chosen)
+            if self.suffix == ".parquet":
+                return pd.read_parquet(self.path, columns=labels)
+            return self._stat_reader()(self.path, usecols=labels, apply_value_formats=False)[0]
+        except _READ_ERRORS as exc:
+            self._unreadable(exc)
+
+
+def _first_use(study: Study, item: str) -> str:
+    """Where an item is used, in words: "construct 'support' in model 'm1'"."""
+    for m in study.models:
+        for construct, items in m.constructs.items():
+            if item in items:
+                return f"construct '{construct}' in model '{m.name}'"
+    return "named under items: wording"
+
+
+def _item_place(study: Study, item: str) -> Place:
+    for m in study.models:
+        for construct, items in m.constructs.items():
+            if item in items:
+                return study.place_of("models", m.name, "constructs", construct,
+                                      items.index(item))
+    return study.place_of("items", "wording", item)
+
+
+def _close_column(name: str, columns, folded: dict) -> str | None:
+    """A column that differs only in case/spaces, else the closest by difflib."""
+    if name.strip().casefold() in folded:
+        return folded[name.strip().casefold()]
+    close = difflib.get_close_matches(name, list(columns), n=1)
+    return close[0] if close else None
+
+
+def _listing(columns, limit: int = 30) -> str:
+    names = list(columns)
+    more = f" and {len(names) - limit} more" if len(names) > limit else ""
+    return ", ".join(names[:limit]) + more
+
+
+def _rows(rows: np.ndarray, row_ids, shown_values=None) -> str:
+    """"data row 4 (id T12): 'n/a'" for the first few rows (1-based, counted after the header)."""
+    parts = []
+    for k, row in enumerate(rows[:_SHOW]):
+        who = f" (id {format_code(row_ids[row]) if _is_number(row_ids[row]) else row_ids[row]})" \
+            if row_ids is not None else ""
+        value = "" if shown_values is None else f": {shown_values[k]}"
+        parts.append(f"data row {row + 1}{who}{value}")
+    return "; ".join(parts)
+
+
+def _is_number(value) -> bool:
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
+
+
+# --------------------------------------------------------------------------- recoding
+
+class _Codes:
+    """The missing-answer codes, split into numeric and text codes."""
+
+    def __init__(self, codes: tuple):
+        self.text = {c.strip() for c in codes if isinstance(c, str)}
+        numeric = [float(c) for c in codes if not isinstance(c, str)]
+        numeric += [float(c) for c in self.text if _reads_as_number(c)]
+        self.numeric = np.array(sorted(set(numeric)), dtype=np.float64)
+
+    def apply(self, values: np.ndarray):
+        """Set the cells equal to a numeric code to NaN, in place."""
+        if self.numeric.size:
+            values[np.isin(values, self.numeric)] = np.nan
+
+    def matches(self, value) -> bool:
+        """Whether one value (a group value) is a missing-answer code."""
+        if isinstance(value, str):
+            value = value.strip()
+            if value in self.text:
+                return True
+            if not _reads_as_number(value):
+                return False
+        return bool(np.isin(float(value), self.numeric))
+
+
+def _reads_as_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _numbers(column: pd.Series, item: str, codes: _Codes, source: _Source, row_ids) -> np.ndarray:
+    """One item column as float64 (numeric codes are applied later, on the whole matrix)."""
+    if column.dtype.kind in "iufb":
+        return column.to_numpy(dtype=np.float64, na_value=np.nan)
+    cells = column.to_numpy(dtype=object)
+    present = ~pd.isna(cells)
+    text = pd.Series(cells[present], dtype=object).astype(str).str.strip()
+    numbers = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, copy=True)
+    is_code = text.isin(codes.text).to_numpy()
+    numbers[is_code] = np.nan
+    bad = np.isnan(numbers) & ~is_code & (text != "").to_numpy()
+    if bad.any():
+        rows = np.flatnonzero(present)[bad]
+        found = text.to_numpy()[bad]
+        distinct = list(dict.fromkeys(found))
+        count = int(bad.sum())
+        fix = "Recode the answers as numbers"
+        if len(distinct) <= 3 and not any(ch.isdigit() for value in distinct for ch in value):
+            shown = " or ".join(repr(v) for v in distinct)
+            written = [repr(c) if isinstance(c, str) else format_code(c)
+                       for c in source.study.data.missing]
+            example = ", ".join([*written, *map(repr, distinct)])
+            fix = (f"If {shown} means 'no answer', add it to missing: under data: (e.g. missing: "
+                   f"[{example}]); otherwise recode the answers as numbers")
+        source.fail(f"in the data file '{source.shown}', the item column '{item}' holds text in "
+                    f"{count} cell{'s' if count > 1 else ''} "
+                    f"({_rows(rows, row_ids, [repr(v) for v in found])})", fix)
+    out = np.full(len(cells), np.nan)
+    out[present] = numbers
+    return out
+
+
+def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
+    """Answers inside the response range; no constant or empty item."""
+    study = source.study
+    if study.scale is not None:
+        low, high = study.scale
+        with np.errstate(invalid="ignore"):
+            outside = (values < low) | (values > high)
+        counts = outside.sum(axis=0)
+        if counts.any():
+            j = int(np.flatnonzero(counts)[0])
+            rows = np.flatnonzero(outside[:, j])
+            others = [f"'{items[k]}' {counts[k]}" for k in np.flatnonzero(counts)[1:]]
+            also = f"; other items with such answers: {', '.join(others)}" if others else ""
+            source.fail(f"in the data file '{source.shown}', the item '{items[j]}' has "
+                        f"{counts[j]} answer{'s' if counts[j] > 1 else ''} outside the response "
+                        f"range {format_code(low)} to {format_code(high)} given by scale: on "
+                        f"line {study.place_of('items', 'scale').line} "
+                        f"({_rows(rows, row_ids, [format_code(v) for v in values[rows[:_SHOW], j]])}"
+                        f"{also})",
+                        "If these are missing-answer codes, add them to missing: under data:; "
+                        "otherwise correct the data or the scale",
+                        study.place_of("items", "scale"))
+    answered = (~np.isnan(values)).sum(axis=0)
+    for j in np.flatnonzero(answered == 0):
+        source.fail(f"in the data file '{source.shown}', the item '{items[j]}' has no answers: "
+                    f"all {values.shape[0]} cells are empty or missing-answer codes",
+                    "Check the column in the data file, or remove the item from the models",
+                    _item_place(study, items[j]))
+    with np.errstate(invalid="ignore"):
+        constant = np.nanmin(values, axis=0) == np.nanmax(values, axis=0)
+    for j in np.flatnonzero(constant):
+        value = float(np.nanmin(values[:, j]))
+        source.fail(f"in the data file '{source.shown}', everyone who answered the item "
+                    f"'{items[j]}' gave the same answer ({format_code(value)}; "
+                    f"{answered[j]} answers)",
+                    "An item without variation carries no information: remove it from the "
+                    "models, or check that the right column was exported",
+                    _item_place(study, items[j]))
+
+
+def _groups(column: pd.Series, codes: _Codes, source: _Source) -> tuple[np.ndarray, int]:
+    """Group label per row (None where missing) and the number of rows without a group."""
+    spec = source.study.groups
+    where = source.study.place_of("groups", "column")
+    index, uniques = pd.factorize(column, use_na_sentinel=True)
+    given = {format_code(value): label for value, label in spec.labels.items()}
+    names = []
+    for value in uniques:
+        if codes.matches(value):
+            names.append(None)
+            continue
+        key = format_code(value)
+        if spec.labels and key not in given:
+            count = int((index == len(names)).sum())
+            source.fail(f"the grouping column '{spec.column}' holds the value '{key}' "
+                        f"({count} row{'s' if count > 1 else ''}), which has no label under "
+                        f"groups: labels", f"Add a label for it, e.g. {key}: name, or add it to "
+                                           f"missing: under data: if it means 'no answer'",
+                        source.study.place_of("groups", "labels"))
+        names.append(given.get(key, key))
+    table = np.array([*names, None], dtype=object)  # index -1 (missing cell) -> None
+    group = table[index]
+    missing = pd.isna(group)
+    present = sorted({name for name in names if name is not None})
+    if len(present) > _MANY_GROUPS and not spec.allow_many:
+        source.fail(f"the grouping column '{spec.column}' has {len(present)} different values "
+                    f"(e.g. {', '.join(present[:5])})",
+                    "More than 10 groups is unusual for a group comparison; check the column, "
+                    "or confirm with allow_many: true under groups:", where)
+    if spec.reference is not None and spec.reference not in present:
+        source.fail(f"the reference group '{spec.reference}' does not occur in the grouping "
+                    f"column '{spec.column}'", f"The groups found are: {', '.join(present)}",
+                    source.study.place_of("groups", "reference"))
+    return group, int(missing.sum())
