@@ -1,0 +1,151 @@
+"""Local misfit: residual correlations (observed minus model-implied) and
+standardized residuals, with the largest listed and flagged.
+
+For items ``i, j`` with sample covariance ``s_ij`` and implied covariance
+``σ̂_ij``:
+
+* residual correlation ``r_ij − σ̂_ij / √(σ̂_ii σ̂_jj)``, with ``r`` the sample
+  correlation: the size a reader can judge without knowing the answer scale.
+  Entries beyond ``|.10|`` are flagged (common practice, no source).
+* standardized residual ``(s_ij − σ̂_ij) / SE(s_ij − σ̂_ij)``, a z statistic.
+  Under the model and normality, with ``S`` the ML (÷n) covariance,
+  ``Var(s_ij) = (σ_ii σ_jj + σ_ij²)/n`` and, because ML is efficient,
+  ``Cov(s, σ̂) = Var(σ̂)``, so
+
+      Var(s_ij − σ̂_ij) = (σ_ii σ_jj + σ_ij²)/n − Δ_ij acov(θ̂) Δ_ijᵀ,
+
+  with ``Δ_ij = ∂σ_ij/∂θ`` (Browne 1984, the asymptotic covariance of the
+  residuals of an efficient estimator; Bollen 1989 on normalized versus
+  standardized residuals).  Dividing by the first term
+  alone (the "normalized" residual) understates the size of the z values.
+  ``Δ_ij`` comes from the rank-two cell derivatives,
+  ``Δ_ij,c = a_ic b_jc + b_ic a_jc``.  Where the model reproduces a
+  covariance by construction (a freed residual covariance) the variance is
+  zero and no z is reported.
+
+References
+----------
+Browne, M. W. (1984). Asymptotically distribution-free methods for the
+analysis of covariance structures. British Journal of Mathematical and
+Statistical Psychology 37, 62–83.
+Bollen, K. A. (1989). Structural Equations with Latent Variables. Wiley.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from scalewright.estimate.result import Estimate
+from scalewright.layout import cell_derivatives
+
+#: residual correlations at least this large are flagged (common practice, no source)
+FLAG_AT = 0.10
+
+#: at least this many pairs are listed even when fewer are flagged
+LIST_AT_LEAST = 10
+
+#: a residual variance below this share of Var(s_ij) counts as zero (reproduced by construction)
+_REPRODUCED = 1e-8
+
+
+@dataclass(frozen=True)
+class ResidualCorrelations:
+    """Residual correlations and standardized residuals of one group."""
+
+    items: tuple[str, ...]
+    matrix: np.ndarray               # p × p, observed minus implied correlation
+    standardized: np.ndarray | None  # p × p z values (NaN where undefined), None without acov
+    threshold: float
+
+    def largest(self, at_least: int = LIST_AT_LEAST) -> list[dict]:
+        """Every pair at or beyond the threshold, and at least ``at_least``
+        pairs, largest absolute residual correlation first."""
+        rows, cols = np.triu_indices(len(self.items), k=1)
+        values = self.matrix[rows, cols]
+        order = np.argsort(-np.abs(values), kind="stable")
+        n_flagged = int(np.count_nonzero(np.abs(values) >= self.threshold))
+        out = []
+        for k in order[:max(n_flagged, at_least)]:
+            z = None if self.standardized is None else self.standardized[rows[k], cols[k]]
+            out.append({"a": self.items[rows[k]], "b": self.items[cols[k]],
+                        "value": float(values[k]),
+                        "standardized": float(z) if z is not None and np.isfinite(z) else None,
+                        "flagged": bool(abs(values[k]) >= self.threshold)})
+        return out
+
+    def to_dict(self) -> dict:
+        """``largest``, ``threshold``, the number flagged, and the matrix
+        (rounded to 4 decimals, for a heat map)."""
+        largest = self.largest()
+        return {"threshold": self.threshold,
+                "n_flagged": sum(entry["flagged"] for entry in largest),
+                "largest": largest,
+                "items": list(self.items),
+                "matrix": np.round(self.matrix, 4).tolist()}
+
+
+def residual_correlations(estimate: Estimate, group: int = 0,
+                          threshold: float = FLAG_AT) -> ResidualCorrelations:
+    """Residual correlations and standardized residuals of one group of a
+    normal-theory ML estimate on complete data.
+
+    Parameters
+    ----------
+    estimate : Estimate
+        Its ``blocks`` must hold the group's data as one complete block (the
+        sample covariance is then the saturated estimate).
+    group : int
+        Index of the group (``layout.patterns``).
+    threshold : float
+        Absolute residual correlation from which a pair is flagged.
+
+    Raises
+    ------
+    ValueError
+        When the group's data are split into missing-data blocks: the
+        observed covariance is then the saturated model's estimate, which
+        the caller must supply.
+    """
+    blocks = [b for b in estimate.blocks if b.group == group]
+    p = estimate.layout.p
+    if len(blocks) != 1 or len(blocks[0].observed) != p:
+        raise ValueError("residual correlations need the group's complete-data covariance; "
+                         "with missing-data blocks pass the saturated covariance instead")
+    block = blocks[0]
+    mats = estimate.matrices(group)
+    sigma = mats.implied_cov
+    matrix = _correlation(block.cov) - _correlation(sigma)
+    standardized = None
+    if estimate.acov is not None:
+        standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
+    return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized,
+                                float(threshold))
+
+
+def _correlation(cov: np.ndarray) -> np.ndarray:
+    sd = np.sqrt(np.diag(cov))
+    return cov / np.outer(sd, sd)
+
+
+def _standardized(estimate: Estimate, group: int, residual: np.ndarray, sigma: np.ndarray,
+                  n: int) -> np.ndarray:
+    """z values of the covariance residuals (formula in the module docstring)."""
+    layout = estimate.layout
+    pattern = layout.patterns[group]
+    a, b, _ = cell_derivatives(pattern, estimate.matrices(group))
+    rows, cols = np.triu_indices(layout.p)
+    delta_cells = a[rows] * b[cols] + b[rows] * a[cols]          # ∂σ_ij/∂cell
+    delta = np.zeros((len(rows), layout.n_params))
+    np.add.at(delta.T, pattern.cell_params, delta_cells.T)        # cells sharing a parameter add up
+    var_fitted = np.sum((delta @ estimate.acov) * delta, axis=1)
+    var_sample = (sigma[rows, rows] * sigma[cols, cols] + sigma[rows, cols] ** 2) / n
+    var = var_sample - var_fitted
+    z = np.full(len(rows), np.nan)
+    ok = var > _REPRODUCED * var_sample
+    z[ok] = residual[rows[ok], cols[ok]] / np.sqrt(var[ok])
+    out = np.full((layout.p, layout.p), np.nan)
+    out[rows, cols] = z
+    out[cols, rows] = z
+    return out
