@@ -1,0 +1,245 @@
+"""Item screening: per-item distribution statistics and Mardia's multivariate tests.
+
+Conventions (the report states them):
+
+* SD uses the n - 1 divisor.
+* Skewness and excess kurtosis are the moment estimators
+  g1 = m3 / m2^(3/2) and g2 = m4 / m2^2 - 3, with m_k = (1/n) sum (x - mean)^k,
+  i.e. ``scipy.stats.skew(x)`` and ``scipy.stats.kurtosis(x)`` with
+  ``bias=True``; they are the univariate case of Mardia's b1,p and b2,p
+  (b1,1 = g1^2, b2,1 = g2 + 3), so the item and the multivariate figures agree.
+* Mardia's statistics use the complete rows only and the covariance matrix
+  with the n divisor.
+
+References
+----------
+Joanes, D. N., & Gill, C. A. (1998). Comparing measures of sample skewness and
+kurtosis. Journal of the Royal Statistical Society D, 47, 183-189.
+
+Mardia, K. V. (1970). Measures of multivariate skewness and kurtosis with
+applications. Biometrika, 57, 519-530.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+from scipy import linalg, stats
+from threadpoolctl import ThreadpoolController
+
+from scalewright.itemdata import ItemData
+from scalewright.studyfile import format_code
+
+_MAX_FREQUENCIES = 15  # answer counts are kept for items with at most this many distinct values
+_CHUNK_CELLS = 2_000_000  # floats in one block of whitened rows (16 MB)
+_SINGULAR = 1e-10  # smallest eigenvalue of the item correlation matrix treated as zero
+_BLAS = ThreadpoolController()
+
+
+@dataclass(frozen=True)
+class ItemScreen:
+    """Distribution of one item's answers (after missing codes and reverse keying).
+
+    ``skewness`` and ``excess_kurtosis`` are the moment estimators g1 and g2
+    (see the module docstring); they and ``sd`` are NaN when fewer than two
+    answers or no variation make them undefined.  ``pct_missing`` is a
+    percentage (0-100) of all rows.  ``frequencies`` maps each answer value to
+    its count when the item has at most 15 distinct values, else it is empty.
+    """
+
+    item: str
+    n: int
+    mean: float
+    sd: float
+    min: float
+    max: float
+    skewness: float
+    excess_kurtosis: float
+    pct_missing: float
+    n_distinct: int
+    frequencies: dict[float, int]
+
+
+@dataclass(frozen=True)
+class Mardia:
+    """Mardia's (1970) multivariate skewness b1,p and kurtosis b2,p with their tests.
+
+    ``skewness_chi2`` = n b1,p / 6 on p(p+1)(p+2)/6 df; ``kurtosis_z`` =
+    (b2,p - p(p+2)) / sqrt(8p(p+2)/n), with a two-sided normal p-value.
+    """
+
+    n: int
+    p: int
+    skewness: float
+    skewness_chi2: float
+    skewness_df: float
+    skewness_p: float
+    kurtosis: float
+    kurtosis_z: float
+    kurtosis_p: float
+
+
+@dataclass(frozen=True)
+class Screening:
+    """Screening of every item, and Mardia's tests on the complete rows.
+
+    ``mardia`` is None when there are fewer complete rows than p + 2, or when
+    the items' covariance matrix on those rows is singular (an item is an
+    exact linear combination of others, e.g. a duplicated column).
+    """
+
+    items: tuple[ItemScreen, ...]
+    mardia: Mardia | None
+    n_complete: int
+
+    def to_dict(self) -> dict:
+        """JSON-able form: undefined values become None, answer values become text keys."""
+        items = []
+        for screen_ in self.items:
+            entry = {k: _plain(v) for k, v in asdict(screen_).items() if k != "frequencies"}
+            entry["frequencies"] = {format_code(value): int(count)
+                                    for value, count in screen_.frequencies.items()}
+            items.append(entry)
+        mardia = None if self.mardia is None else \
+            {k: _plain(v) for k, v in asdict(self.mardia).items()}
+        return {"items": items, "mardia": mardia, "n_complete": int(self.n_complete)}
+
+
+def _plain(value):
+    if isinstance(value, (str, int)) and not isinstance(value, bool):
+        return value
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def screen(data: ItemData) -> Screening:
+    """Screen each item and test multivariate normality on the complete rows.
+
+    Parameters
+    ----------
+    data : ItemData
+
+    Returns
+    -------
+    Screening
+    """
+    values = data.values
+    items = tuple(_item(name, values[:, j], data.n_rows) for j, name in enumerate(data.items))
+    complete = data.complete_rows()
+    return Screening(items=items, mardia=mardia_statistics(values, rows=complete),
+                     n_complete=int(complete.sum()))
+
+
+def _item(name: str, column: np.ndarray, n_rows: int) -> ItemScreen:
+    """Moment statistics of one column, NaN cells left out."""
+    x = column[~np.isnan(column)]
+    n = x.size
+    pct_missing = 100.0 * (n_rows - n) / n_rows if n_rows else math.nan
+    if n == 0:
+        return ItemScreen(item=name, n=0, mean=math.nan, sd=math.nan, min=math.nan,
+                          max=math.nan, skewness=math.nan, excess_kurtosis=math.nan,
+                          pct_missing=pct_missing, n_distinct=0, frequencies={})
+    mean = float(x.mean())
+    d = x - mean
+    d2 = d * d
+    m2 = float(d2.mean())
+    m3 = float((d2 * d).mean())
+    m4 = float((d2 * d2).mean())
+    defined = n > 1 and m2 > 0
+    values, counts = np.unique(x, return_counts=True)
+    frequencies = ({float(v): int(c) for v, c in zip(values, counts)}
+                   if values.size <= _MAX_FREQUENCIES else {})
+    return ItemScreen(
+        item=name, n=n, mean=mean,
+        sd=math.sqrt(m2 * n / (n - 1)) if n > 1 else math.nan,
+        min=float(values[0]), max=float(values[-1]),
+        skewness=m3 / m2 ** 1.5 if defined else math.nan,  # g1, Joanes & Gill (1998)
+        excess_kurtosis=m4 / m2 ** 2 - 3.0 if defined else math.nan,  # g2, Joanes & Gill (1998)
+        pct_missing=pct_missing, n_distinct=int(values.size), frequencies=frequencies)
+
+
+def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia | None:
+    """Mardia's multivariate skewness and kurtosis of the rows of `x`.
+
+    With d_i the centred rows and S = (1/n) sum d_i d_i' (ML covariance),
+
+    b1,p = (1/n^2) sum_i sum_j (d_i' S^-1 d_j)^3,   chi2 = n b1,p / 6 on p(p+1)(p+2)/6 df;
+    b2,p = (1/n) sum_i (d_i' S^-1 d_i)^2,           z = (b2,p - p(p+2)) / sqrt(8 p (p+2) / n).
+
+    b1,p is computed without the n x n matrix: with z_i = L^-1 d_i (S = L L')
+    the double sum equals the squared Frobenius norm of the third-moment
+    tensor T_abc = sum_i z_ia z_ib z_ic, which is accumulated over blocks of
+    rows, so memory beyond one centred copy of the data does not grow with n.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, p)
+        Rows without NaN (after `rows` is applied).
+    rows : ndarray of bool, shape (n,), optional
+        Use only these rows (saves the caller a copy of `x`).
+
+    Returns
+    -------
+    Mardia or None
+        None when there are fewer than p + 2 rows or S is singular.
+
+    References
+    ----------
+    Mardia, K. V. (1970). Measures of multivariate skewness and kurtosis with
+    applications. Biometrika, 57, 519-530.
+    """
+    dt = np.array(x.T, order="C") if rows is None else x.T[:, rows]  # one row per item
+    p, n = dt.shape
+    if n < p + 2:
+        return None
+    # one BLAS thread: these small and thin products ran 10-100x slower threaded on a
+    # busy 2-core machine (see DEVELOPERS.md, "Speed")
+    with _BLAS.limit(limits=1, user_api="blas"):
+        dt -= dt.mean(axis=1, keepdims=True)
+        s = dt @ dt.T / n
+        scale = np.sqrt(np.diag(s))
+        if np.any(scale == 0) or np.linalg.eigvalsh(s / np.outer(scale, scale))[0] < _SINGULAR:
+            return None
+        whiten = linalg.solve_triangular(np.linalg.cholesky(s), np.eye(p), lower=True)
+        cubes, squares = _moment_sums(dt, whiten)
+    b1 = cubes / n ** 2  # Mardia (1970), via the tensor identity
+    b2 = squares / n  # Mardia (1970)
+    df = p * (p + 1) * (p + 2) / 6
+    chi2 = n * b1 / 6
+    kurtosis_z = (b2 - p * (p + 2)) / math.sqrt(8 * p * (p + 2) / n)
+    return Mardia(n=n, p=p, skewness=b1, skewness_chi2=chi2, skewness_df=df,
+                  skewness_p=float(stats.chi2.sf(chi2, df)), kurtosis=b2,
+                  kurtosis_z=kurtosis_z, kurtosis_p=float(2 * stats.norm.sf(abs(kurtosis_z))))
+
+
+def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
+    """sum_i sum_j (z_i' z_j)^3 and sum_i (z_i' z_i)^2, with z_i = whiten @ d_i.
+
+    `dt` holds the centred rows d_i as columns (p x n).  The double sum equals
+    sum_abc T_abc^2 with T_abc = sum_i z_ia z_ib z_ic.  T is symmetric in its
+    three indices, so only the slab of each smallest index k is accumulated,
+    S_k[b, c] = T_{k, k+b, k+c} (b, c >= 0), and its squares are weighted by
+    how many ordered triples each entry stands for: three distinct indices
+    have 6 orderings and sit twice in their slab (weight 3); (k, b, b) has 3
+    and sits once (weight 3); (k, k, c) has 3 and sits twice, in the first row
+    and column (weight 1.5); (k, k, k) sits once (weight 1).
+    """
+    p, n = dt.shape
+    slabs = [np.zeros((p - k, p - k)) for k in range(p)]
+    squares = 0.0
+    width = max(1, _CHUNK_CELLS // p)
+    for start in range(0, n, width):
+        block = whiten @ dt[:, start:start + width]
+        squares += float(np.sum(np.einsum("ij,ij->j", block, block) ** 2))
+        for k in range(p):
+            tail = block[k:]
+            slabs[k] += (tail * block[k]) @ tail.T
+    cubes = 0.0
+    for slab in slabs:
+        weight = np.full(slab.shape, 3.0)
+        weight[0, :] = weight[:, 0] = 1.5
+        weight[0, 0] = 1.0
+        cubes += float(np.sum(weight * slab * slab))
+    return cubes, squares
