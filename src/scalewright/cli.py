@@ -34,6 +34,11 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("model_file", metavar="MODEL_FILE")
     check.add_argument("--out", metavar="DIR", type=Path, default=DEFAULT_OUT,
                        help=f"folder for the report (default: ./{DEFAULT_OUT})")
+    check.add_argument("--pdf", action="store_true",
+                       help="also print the report to DIR/<name>.pdf (needs Chromium)")
+    check.add_argument("--tables", metavar="TABLES_DIR", type=Path, default=None,
+                       help="also write every table of the report as CSV and Markdown into "
+                            "TABLES_DIR")
 
     init = commands.add_parser(
         "init", help="draft a model file from a data file's columns",
@@ -56,6 +61,7 @@ def _run(args) -> int:
     if args.command == "check":
         result = api.check(args.model_file, out=args.out)
         _summarise(result, args.out)
+        _extras(result, args)
     elif args.command == "init":
         from scalewright.draft import draft_model_file
         path = draft_model_file(args.data_file, args.to)
@@ -67,6 +73,18 @@ def _run(args) -> int:
         result = api.check(model_file, out=out)
         _summarise(result, out)
     return 0
+
+
+def _extras(result, args) -> None:
+    """The optional outputs of ``check``: tables (--tables) and PDF (--pdf)."""
+    if args.tables is not None:
+        from scalewright.report.document import export_tables
+        written = export_tables(result.to_dict(), args.tables)
+        print(f"Tables: {len(written) // 2} tables as CSV and Markdown in {args.tables}")
+    if args.pdf:
+        from scalewright.report.pdf import print_pdf
+        stem = result.study.path.stem
+        print(f"PDF: {print_pdf(args.out / (stem + '.html'), args.out / (stem + '.pdf'))}")
 
 
 def _summarise(result, out: Path) -> None:

@@ -28,6 +28,10 @@ def _n(x: float) -> str:
     return f"{x:.1f}".rstrip("0").rstrip(".")
 
 
+def _weight(x: float) -> str:
+    return "< .001" if x < 0.001 else coef(x, 3)
+
+
 def _category_key(label: str):
     try:
         return (0, float(label), label)
@@ -74,7 +78,7 @@ def heat_map(residuals: dict, figure_id: str) -> str:
     matrix = residuals["matrix"]
     threshold = residuals.get("threshold") or 0.10
     p = len(items)
-    cell = max(4.0, min(18.0, 560.0 / max(p, 1)))
+    cell = max(4.0, min(24.0, 600.0 / max(p, 1)))
     label_every = 1 if cell >= 9 else max(1, round(9 / cell))
     margin = 8 + max((len(i) for i in items), default=0) * 6.2
     size = margin + p * cell
@@ -158,10 +162,10 @@ def weight_bars(rows: list[dict]) -> str:
                      f'<rect x="{_n(name_w)}" y="{_n(y)}" width="{_n(bar_w)}" height="14" '
                      f'class="track"/><rect x="{_n(name_w)}" y="{_n(y)}" width="{_n(max(w, 0.5))}" '
                      f'height="14" class="bar"/><text x="{_n(name_w + bar_w + 6)}" '
-                     f'y="{_n(y + 11)}" font-size="11">{_e(coef(r["bic_weight"], 3))}</text>')
+                     f'y="{_n(y + 11)}" font-size="11">{_e(_weight(r["bic_weight"]))}</text>')
     height = len(rows) * line + 6
     width = name_w + bar_w + 50
-    label = "BIC weights: " + ", ".join(f"{r['name']} {coef(r['bic_weight'], 3)}" for r in rows)
+    label = "BIC weights: " + ", ".join(f"{r['name']} {_weight(r['bic_weight'])}" for r in rows)
     return (f'<svg xmlns="http://www.w3.org/2000/svg" class="weights" role="img" '
             f'aria-label="{_e(label)}" viewBox="0 0 {_n(width)} {_n(height)}" '
             f'width="{_n(width)}" height="{_n(height)}">' + "".join(parts) + "</svg>")

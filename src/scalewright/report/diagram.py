@@ -23,9 +23,10 @@ from scalewright.report.formatting import coef
 #: beyond this many constructs the correlation arcs would tangle; the table has them
 MAX_ARC_CONSTRUCTS = 5
 
-_GAP = 150          # construct ellipse to item box
+_GAP = 170          # construct ellipse to item box
 _HIGHER_GAP = 170   # higher-order factor to construct
 _TOP = 34
+_LABEL_OFFSET = 26  # label column distance from the item boxes
 
 
 @dataclass(frozen=True)
@@ -120,7 +121,7 @@ def path_diagram(model: dict, figure_id: str) -> str:
     item_x = cx + construct_x_right / 2 + _GAP
     res_pairs = model.get("residual_covariances") or []
     res_room = 26.0 + (40.0 if res_pairs else 0)
-    gx = item_x + item_w + res_room + (110 if general else 0)
+    gx = item_x + item_w + res_room + (170 if general else 0)
     width = gx + (rx[general] + 16 if general else 16)
 
     cy = {}
@@ -162,11 +163,15 @@ def path_diagram(model: dict, figure_id: str) -> str:
         else:
             continue
         cross = kinds[c] == "construct" and own.get(item) != c
-        css = "cross" if cross else "load"
+        if cross:   # ends lower on the item and is labelled further out, apart from the own loading
+            ty += item_h * 0.3
         out.append(f'<line x1="{_n(x0)}" y1="{_n(y0)}" x2="{_n(x1)}" y2="{_n(ty)}" '
-                   f'class="{css}" {_stroke(value)} marker-end="url(#{mid})"/>')
-        t = 0.8
-        out.append(_label(x0 + t * (x1 - x0), y0 + t * (ty - y0), value, small))
+                   f'class="{"cross" if cross else "load"}" {_stroke(value)} '
+                   f'marker-end="url(#{mid})"/>')
+        # labels stand in a column near the items, where the lines are a row apart
+        lx = x1 - (_LABEL_OFFSET * (2.4 if cross else 1.0)) * (1 if x1 > x0 else -1)
+        t = (lx - x0) / (x1 - x0)
+        out.append(_label(lx, y0 + t * (ty - y0), value, small))
 
     # higher-order paths
     for r in paths:

@@ -13,6 +13,7 @@ part of scalewright has not produced simply leaves its block out.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 from markupsafe import Markup
 
@@ -268,3 +269,10 @@ def build_document(report: dict) -> Document:
     _cautions(doc)
     _checklist(doc)
     return doc
+
+
+def export_tables(report: dict, folder) -> list:
+    """Write every table of the report as CSV and Markdown into ``folder``
+    (see :func:`scalewright.report.tables.write_tables`); same numbering as
+    the HTML."""
+    return tables.write_tables(build_document(report).tables, Path(folder))

@@ -218,8 +218,8 @@ def summary_paragraphs(report: dict) -> list[str]:
     data = report["data"]
     dropped = data["n_rows"] - data["n_used"]
     out = [f"The answers of {count(data['n_used'])} of the {count(data['n_rows'])} respondents "
-           f"were analysed" + (f" ({count(dropped)} rows were left out: "
-                               f"{data.get('missing_handling', 'see the data section')})."
+           f"were analysed" + (f"; {count(dropped)} rows were left out (missing answers were "
+                               f"handled by {data.get('missing_handling', 'the default')})."
                                if dropped else ".")]
     fav = favoured(report)
     model = _models(report).get(fav["focus"], {})

@@ -13,7 +13,7 @@ from __future__ import annotations
 import csv
 import io
 import re
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from scalewright.errors import StudyError
@@ -60,7 +60,13 @@ class Table:
     left: int = 1
     number: int = 0
     css: str = ""
-    wide: bool = field(default=False)
+
+    @property
+    def text_columns(self) -> frozenset:
+        """Columns whose header is left-aligned: the leading ones and any of text cells."""
+        return frozenset(k for k in range(len(self.columns))
+                         if k < self.left or any("text" in row[k].css.split() for row in self.rows
+                                                 if k < len(row)))
 
     def numbered(self, number: int) -> "Table":
         return replace(self, number=number)
@@ -91,6 +97,16 @@ class Table:
             lines += [""] + [f"*Note.* {esc(n)}" if i == 0 else esc(n)
                              for i, n in enumerate(self.notes)]
         return "\n".join(lines) + "\n"
+
+
+#: rows of the largest residual correlations and of the strongest hints shown (all are in the JSON)
+MAX_RESIDUAL_ROWS = 15
+MAX_HINT_ROWS = 15
+
+
+def weight(x) -> str:
+    """A model weight: three decimals, '< .001' below that."""
+    return pval(x) if x is not None else DASH
 
 
 def _h(text) -> Cell:
@@ -127,25 +143,30 @@ def _fit_cells(fit: dict) -> list[Cell]:
 
 
 def summary_fit_table(report: dict) -> Table:
-    """One row per rival model: χ², df, p and the four indices marked against cutoffs."""
+    """One row per rival model: χ², df, p and the four indices marked against
+    cutoffs, and the BIC weight when the models were compared."""
+    comparison = report.get("comparison")
+    weights = (comparison or {}).get("bic_weights", {})
     rows = []
-    weights = (report.get("comparison") or {}).get("bic_weights", {})
     for m in report["models"]:
         f = m["fit"]
         name = m["name"] + ("" if m.get("converged", True) else " (did not converge)")
-        rows.append((_h(name), _c(dec(f.get("chi_square"), 2)), _c(str(f.get("df"))),
-                     _c(pval(f.get("p_value"))), *_fit_cells(f),
-                     _c(coef(weights[m["name"]], 2) if m["name"] in weights else DASH)))
-    return Table("summary-fit", "Fit of the rival models at a glance",
-                 ("Model", "χ²", "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR",
-                  "BIC weight"), tuple(rows), (cutoff_note(),))
+        cells = [_h(name), _c(dec(f.get("chi_square"), 2)), _c(str(f.get("df"))),
+                 _c(pval(f.get("p_value"))), *_fit_cells(f)]
+        if comparison:
+            cells.append(_c(weight(weights.get(m["name"]))))
+        rows.append(tuple(cells))
+    columns = ("Model", "χ²", "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR") + (
+        ("BIC weight",) if comparison else ())
+    return Table("summary-fit", "Fit of the rival models at a glance", columns, tuple(rows),
+                 (cutoff_note(),))
 
 
 def comparison_table(report: dict) -> Table:
     """Rival models side by side with information criteria and BIC weights."""
     comparison = report["comparison"]
     robust = any("chi_square_scaled" in r for r in comparison["models"])
-    columns = ["Model", "Specified first", "χ²"] + (["χ² scaled"] if robust else []) + [
+    columns = ["Model", "First", "χ²"] + (["χ² scaled"] if robust else []) + [
         "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR", "AIC", "BIC", "ΔBIC", "BIC weight"]
     rows = []
     for r in comparison["models"]:
@@ -158,20 +179,21 @@ def comparison_table(report: dict) -> Table:
                   _c(coef(r.get("tli"))),
                   _c(f"{coef(r.get('rmsea'))} {interval(r.get('rmsea_ci90'))}"),
                   _c(coef(r.get("srmr"))), _c(dec(r.get("aic"), 1)), _c(dec(r.get("bic"), 1)),
-                  _c(dec(r.get("delta_bic"), 1)), _c(coef(r.get("bic_weight"), 3))]
+                  _c(dec(r.get("delta_bic"), 1)), _c(weight(r.get("bic_weight")))]
         rows.append(tuple(cells))
     notes = ["AIC = −2 log-likelihood + 2k (Akaike 1974); BIC = −2 log-likelihood + k ln N "
              "(Schwarz 1978), k counting the item means. The BIC weight is exp(−ΔBIC/2) "
              "normalised over the models, an approximate probability of each model among these "
              "rivals under equal prior odds (Raftery 1995; Wagenmakers & Farrell 2004); it says "
-             "nothing about models not in the list."]
+             "nothing about models not in the list. First: the model specified first, as marked "
+             "in the model file."]
     if any(r.get("bic_weight") is None and r.get("converged", True) for r in comparison["models"]):
         notes.append("Models without a weight use other items or rows than the first model, so "
                      "their likelihoods cannot be compared with it.")
     if robust:
         notes.append("χ² scaled: the mean-scaled statistic (Satorra & Bentler 1994).")
     return Table("comparison", "Rival models side by side", tuple(columns), tuple(rows),
-                 tuple(notes), left=2)
+                 tuple(notes), left=2, css="wide")
 
 
 def nested_table(report: dict) -> Table:
@@ -181,7 +203,7 @@ def nested_table(report: dict) -> Table:
         rows.append((_h(t["restricted"]), Cell(t["general"], css="text"),
                      _c(dec(t.get("chi_square"), 2)), _c(str(t.get("df"))),
                      _c(pval(t.get("p_value"))),
-                     Cell(t["how_detected"] + (f" Note: {t['note']}." if t.get("note") else ""),
+                     Cell(f"{t['how_detected']}." + (f" Note: {t['note']}." if t.get("note") else ""),
                           css="text prose")))
     notes = ("Δχ² is the restricted model's chi-square minus the general model's, on the "
              "difference in degrees of freedom (Steiger, Shapiro & Browne 1985); a small p says "
@@ -343,8 +365,9 @@ def bifactor_table(coefficients: dict, key: str, title: str) -> Table:
 
 
 def hints_table(m: dict, prefix: str) -> Table:
+    hints = m["modification_hints"]
     rows = []
-    for h in m["modification_hints"]:
+    for h in hints[:MAX_HINT_ROWS]:
         what = (f"{h.get('item')} on {h.get('construct')}" if h.get("kind") == "loading"
                 else f"{h.get('item_a')} with {h.get('item_b')}")
         kind = "loading" if h.get("kind") == "loading" else "residual covariance"
@@ -352,15 +375,19 @@ def hints_table(m: dict, prefix: str) -> Table:
                      _c(dec(h.get("epc"))), _c(coef(h.get("std_epc"), 2)),
                      Cell(h.get("reading", ""), css="text prose")))
     notes = m.get("modification_hint_notes") or {}
-    return Table(f"{prefix}-hints", f"Modification hints for ‘{m['name']}’",
+    more = (f"The {len(hints) - MAX_HINT_ROWS} weaker hints listed in the JSON file are left out "
+            "here." if len(hints) > MAX_HINT_ROWS else None)
+    return Table(f"{prefix}-hints", f"Modification hints for ‘{m['name']}’, strongest first",
                  ("Parameter", "Kind", "MI", "EPC", "Std. EPC", "Reading"), tuple(rows),
-                 tuple(n for n in (notes.get("caution"), notes.get("judging")) if n), left=2)
+                 tuple(n for n in (notes.get("caution"), notes.get("judging"), more) if n),
+                 left=2)
 
 
 def residual_correlations_table(m: dict, prefix: str) -> Table:
     res = m["residual_correlations"]
+    largest = res.get("largest", ())
     rows = []
-    for r in res.get("largest", ()):
+    for r in largest[:MAX_RESIDUAL_ROWS]:
         flagged = r.get("flagged")
         rows.append((_h(r["a"]), Cell(r["b"], css="text"),
                      Cell(coef(r["value"], 2), mark="◆" if flagged else "",
@@ -371,7 +398,10 @@ def residual_correlations_table(m: dict, prefix: str) -> Table:
                  ("Item", "With", "Residual correlation", "z"), tuple(rows),
                  (f"Observed minus model-implied correlation; ◆ at or beyond "
                   f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb). z: the "
-                  "standardized residual.",), left=2)
+                  "standardized residual."
+                  + (f" The {len(largest) - MAX_RESIDUAL_ROWS} smaller ones listed in the JSON "
+                     "file are left out here." if len(largest) > MAX_RESIDUAL_ROWS else ""),),
+                 left=2)
 
 
 def item_review_table(m: dict, prefix: str) -> Table:
@@ -506,7 +536,7 @@ def invariance_table(report: dict) -> Table:
                  ("Step", "χ²", "df", "CFI", "RMSEA", "SRMR", "ΔCFI", "ΔRMSEA", "ΔSRMR",
                   "Δχ²", "Δdf", "p", "Decision"), tuple(rows),
                  ("Decisions follow the change criteria of Cheung & Rensvold (2002) and Chen "
-                  "(2007), which are conventions.",))
+                  "(2007), which are conventions.",), css="wide")
 
 
 def checklist_table(rows: list[dict]) -> Table:
