@@ -481,8 +481,8 @@ def load_study(path: str | Path) -> Study:
         if required not in doc:
             raise StudyError(_message(Place(path, None), f"the model file has no '{required}:' "
                                                          f"section", f"Add one, e.g. {example}"))
-    title = (r.text(("study",), doc["study"], "study: Teacher workplace climate pilot")
-             if doc.get("study") is not None else path.stem)
+    title = path.stem if doc.get("study") is None else \
+        r.text(("study",), doc["study"], "study: Teacher workplace climate pilot", numbers_ok=True)
     about = _about(r, doc.get("about"))
     data = _data(r, doc["data"])
     estimation = _estimation(r, doc.get("estimation"))
