@@ -1,0 +1,367 @@
+"""One model fitted in several groups at once, with a mean structure.
+
+Each group ``g`` has its own matrices
+
+    Σ_g = Λ_g A_g Ψ_g A_gᵀ Λ_gᵀ + Θ_g,      μ_g = ν_g + Λ_g A_g α_g,
+
+and all groups share one parameter vector (:class:`~scalewright.layout.Layout`
+with one :class:`~scalewright.layout.Pattern` per group), so an equality
+constraint across groups is a parameter index used by every group.  Which
+parameters are shared follows the invariance *step*:
+
+============  ==========================================================
+step          equal across groups
+============  ==========================================================
+configural    nothing (same pattern of free and fixed cells)
+metric        loadings (and higher-order paths)
+scalar        loadings and item intercepts
+strict        loadings, intercepts and residual variances
+============  ==========================================================
+
+A *released* parameter (partial invariance; Byrne, Shavelson & Muthén 1989)
+is one that the step would share but that stays group-specific.
+
+Identification (the reference group is group 0):
+
+* ``unit-variance``: every latent variance fixed at 1 in the single-group
+  model stays fixed at 1 in the reference group; in the other groups it is
+  estimated once loadings are equal (metric and later steps).
+* ``marker``: each construct's first item has loading 1 in every group, so the
+  marker item's loading is taken as equal across groups.
+* latent means ``α`` are 0 in the reference group, and in the other groups
+  they are estimated once intercepts are equal (scalar and later), for every
+  latent variable that no other latent variable explains (the first-order
+  constructs under a higher-order factor differ in mean only through it).
+
+Counting moments: ``p(p+1)/2 + p`` per group (covariances and means), so
+``df = G(p(p+1)/2 + p) − q`` (:meth:`Layout.df`); the configural model's df is
+``G`` times the single-group model's, because its ``p`` intercepts per group
+reproduce the means exactly.
+
+Fit indices of a multi-group model (conventions):
+
+* chi-square ``2(ℓ_sat − ℓ)``, with the saturated model free in means and
+  covariances within every group;
+* baseline: independence *within each group*, with means and variances free
+  in every group, on ``G p(p−1)/2`` df: the same baseline for every step, so
+  differences in CFI and TLI between steps come from the models' chi-squares
+  alone (Widaman & Thompson 2003 discuss the choice);
+* RMSEA multiplied by √G (Steiger 1998);
+* SRMR over the covariance *and* mean residuals of each group (standardized
+  by the sample standard deviations), pooled over groups weighted by size:
+  ``SRMR = √(Σ_g n_g m_g / N)`` with ``m_g`` the mean squared standardized
+  residual of group ``g`` over its ``p(p+1)/2 + p`` moments, so that unequal
+  intercepts show in SRMR too.
+
+References
+----------
+Byrne, B. M., Shavelson, R. J. & Muthén, B. (1989). Testing for the
+equivalence of factor covariance and mean structures: the issue of partial
+measurement invariance. Psychological Bulletin 105, 456–466.
+Jöreskog, K. G. (1971). Simultaneous factor analysis in several populations.
+Psychometrika 36, 409–426.
+Sörbom, D. (1974). A general method for studying differences in factor means
+and factor structure between groups. British Journal of Mathematical and
+Statistical Psychology 27, 229–239.
+Steiger, J. H. (1998). A note on multiple sample extensions of the RMSEA fit
+index. Structural Equation Modeling 5, 411–419.
+Widaman, K. F. & Thompson, J. S. (2003). On specifying the null model for
+incremental fit indices in structural equation modeling. Psychological
+Methods 8, 16–37.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
+from scalewright.estimate.result import Estimate, invert_information
+from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
+                                 saturated_loglik)
+from scalewright.layout import (FACTOR_COV, INTERCEPT, LATENT_MEAN, LOADING, PATH,
+                                RESIDUAL_COV, Cells, Layout, Param, Pattern)
+from scalewright.specify import MARKER, build_layout
+
+CONFIGURAL, METRIC, SCALAR, STRICT = "configural", "metric", "scalar", "strict"
+STEPS = (CONFIGURAL, METRIC, SCALAR, STRICT)
+
+#: parameter classes made equal at each step
+LOADINGS, INTERCEPTS, RESIDUALS = "loadings", "intercepts", "residual variances"
+SHARED = {CONFIGURAL: (), METRIC: (LOADINGS,), SCALAR: (LOADINGS, INTERCEPTS),
+          STRICT: (LOADINGS, INTERCEPTS, RESIDUALS)}
+#: the class a step adds to the previous one
+ADDED = {METRIC: LOADINGS, SCALAR: INTERCEPTS, STRICT: RESIDUALS}
+
+
+def parameter_class(param: Param) -> str | None:
+    """The invariance class of a (shared-form) parameter, or None for
+    parameters that are always group-specific (latent variances and
+    covariances, residual covariances, latent means)."""
+    if param.kind in (LOADING, PATH):
+        return LOADINGS
+    if param.kind == INTERCEPT:
+        return INTERCEPTS
+    if param.kind == RESIDUAL_COV and param.is_variance:
+        return RESIDUALS
+    return None
+
+
+@dataclass(frozen=True)
+class GroupMoments:
+    """What a multi-group model is fitted to, reference group first.
+
+    ``means`` and ``covs`` are each group's saturated ML moments (the sample
+    moments with divisor ``n_g`` for complete data; the EM estimates when
+    answers are missing), used for start values and SRMR; ``blocks`` are the
+    data blocks of the likelihood (one per group, or one per group and
+    missing-data pattern); ``saturated_loglik`` is ℓ of the saturated model
+    (free means and covariances in every group) and ``baseline`` the
+    chi-square and df of the independence model within each group.
+    """
+
+    labels: tuple[str, ...]
+    ns: tuple[int, ...]
+    means: tuple[np.ndarray, ...]
+    covs: tuple[np.ndarray, ...]
+    blocks: tuple[Block, ...]
+    saturated_loglik: float
+    baseline: tuple[float, int]
+    full_information: bool = False
+
+    @property
+    def n(self) -> int:
+        return int(sum(self.ns))
+
+    def pooled_cov(self) -> np.ndarray:
+        """The pooled within-group covariance ``Σ_g n_g S_g / N``."""
+        return sum(n * s for n, s in zip(self.ns, self.covs)) / self.n
+
+
+def complete_moments(labels, values: np.ndarray, index: np.ndarray) -> GroupMoments:
+    """Moments of complete data (no NaN) split by ``index`` (positions in ``labels``)."""
+    blocks = complete_data_blocks(values, index, len(labels))
+    covs = [b.cov for b in blocks]
+    ns = [b.n for b in blocks]
+    return GroupMoments(tuple(labels), tuple(ns), tuple(b.mean for b in blocks), tuple(covs),
+                        blocks, saturated_loglik(covs, ns), independence_chi_square(covs, ns))
+
+
+def build_multigroup_layout(spec, moments: GroupMoments, step: str,
+                            released: frozenset = frozenset()) -> Layout:
+    """The layout of ``spec`` in all groups for one invariance step.
+
+    Parameters
+    ----------
+    spec : ModelSpec
+        The model as the user wrote it.
+    moments : GroupMoments
+        Group sizes and moments, reference group first (start values come
+        from each group's covariance and means).
+    step : str
+        One of :data:`STEPS`.
+    released : frozenset of Param
+        Parameters (in their shared form, ``group=None``) that the step
+        would make equal but that stay group-specific.
+
+    Returns
+    -------
+    Layout
+        One pattern per group; ``groups`` holds the labels.
+    """
+    labels = moments.labels
+    n_groups = len(labels)
+    base = build_layout(spec, moments.pooled_cov())
+    starts = np.array([build_layout(spec, cov).start for cov in moments.covs])   # G × q_base
+    shared_classes = SHARED[step]
+    p, m = base.p, len(base.factors)
+
+    params: list[Param] = []
+    start: list[float] = []
+    weights = np.asarray(moments.ns, dtype=float) / moments.n
+
+    def add(param: Param, value: float) -> int:
+        params.append(param)
+        start.append(float(value))
+        return len(params) - 1
+
+    def share(param: Param) -> bool:
+        return parameter_class(param) in shared_classes and param not in released
+
+    # base parameters: one index for all groups, or one per group
+    index = np.empty((n_groups, base.n_params), dtype=np.intp)
+    for k, param in enumerate(base.params):
+        if share(param):
+            index[:, k] = add(param, weights @ starts[:, k])
+        else:
+            index[:, k] = [add(replace(param, group=label), starts[g, k])
+                           for g, label in enumerate(labels)]
+    # intercepts ν
+    nu_index = np.empty((n_groups, p), dtype=np.intp)
+    pooled_mean = weights @ np.array(moments.means)
+    for i, item in enumerate(base.items):
+        param = Param(INTERCEPT, item, item)
+        if share(param):
+            nu_index[:, i] = add(param, pooled_mean[i])
+        else:
+            nu_index[:, i] = [add(replace(param, group=label), moments.means[g][i])
+                              for g, label in enumerate(labels)]
+    # latent variances fixed at 1 for scaling: free outside the reference group
+    # once loadings are equal
+    pattern0 = base.patterns[0]
+    free_var = np.zeros(m, dtype=bool)
+    free_var[pattern0.disturbances.rows[pattern0.disturbances.rows ==
+                                        pattern0.disturbances.cols]] = True
+    scaled_by_variance = np.flatnonzero((np.diag(pattern0.fixed.disturbances) == 1.0) & ~free_var)
+    freed_variances = LOADINGS in shared_classes
+    # latent means: free outside the reference group once intercepts are equal
+    explained = np.any(pattern0.fixed.paths != 0, axis=1)
+    explained[pattern0.paths.rows] = True
+    mean_factors = np.flatnonzero(~explained) if INTERCEPTS in shared_classes else np.array([], int)
+
+    patterns = []
+    for g, label in enumerate(labels):
+        psi_extra = []
+        if g > 0 and freed_variances:
+            psi_extra = [(j, j, add(Param(FACTOR_COV, base.factors[j], base.factors[j], label),
+                                    1.0)) for j in scaled_by_variance]
+        alpha = [] if g == 0 else [(j, 0, add(Param(LATENT_MEAN, base.factors[j],
+                                                    base.factors[j], label), 0.0))
+                                   for j in mean_factors]
+        patterns.append(_group_pattern(pattern0, index[g], nu_index[g], psi_extra, alpha))
+
+    notes = base.notes + _notes(spec, step, labels, released)
+    return Layout(name=spec.name, items=base.items, factors=base.factors, kinds=base.kinds,
+                  primary=base.primary, patterns=tuple(patterns), params=tuple(params),
+                  start=np.array(start), groups=tuple(labels), notes=notes)
+
+
+def _group_pattern(base: Pattern, index: np.ndarray, nu_index: np.ndarray,
+                   psi_extra: list, alpha: list) -> Pattern:
+    """One group's pattern: the single-group cells renumbered, plus intercepts,
+    freed latent variances and latent means."""
+    def renumber(cells: Cells) -> Cells:
+        return Cells(cells.rows, cells.cols, index[cells.params])
+
+    psi = renumber(base.disturbances)
+    if psi_extra:
+        extra = Cells.from_triples(psi_extra)
+        psi = Cells(np.concatenate([psi.rows, extra.rows]), np.concatenate([psi.cols, extra.cols]),
+                    np.concatenate([psi.params, extra.params]))
+    p = base.p
+    intercepts = Cells(np.arange(p), np.zeros(p, dtype=np.intp), nu_index.copy())
+    return Pattern(base.fixed, renumber(base.loadings), renumber(base.paths), psi,
+                   renumber(base.residuals), intercepts, Cells.from_triples(alpha))
+
+
+def _notes(spec, step: str, labels, released) -> tuple[str, ...]:
+    reference = labels[0]
+    notes = [f"Fitted in {len(labels)} groups at once ({', '.join(labels)}); "
+             f"'{reference}' is the reference group."]
+    shared = SHARED[step]
+    if shared:
+        notes.append(f"Equal across groups: {', '.join(shared)}"
+                     + (f", except {len(released)} released parameter(s)" if released else "")
+                     + ".")
+    else:
+        notes.append("No parameter is equal across groups (configural model): every group "
+                     "has its own loadings, intercepts and residual variances.")
+    if LOADINGS in shared and spec.identification != MARKER:
+        notes.append(f"Latent variances are 1 in '{reference}' and estimated in the other "
+                     "groups.")
+    if INTERCEPTS in shared:
+        notes.append(f"Latent means are 0 in '{reference}' and estimated in the other groups.")
+    else:
+        notes.append("Latent means are 0 in every group; the intercepts carry the item means.")
+    return tuple(notes)
+
+
+@dataclass(frozen=True)
+class GroupFit:
+    """A multi-group model fitted by normal-theory ML: estimates and fit."""
+
+    layout: Layout
+    estimate: Estimate
+    fit: FitIndices
+    objective: NormalFit
+    ns: tuple[int, ...]          # group sizes, reference first
+
+    def to_dict(self) -> dict:
+        return self.fit.to_dict()
+
+
+def fit_multigroup(layout: Layout, moments: GroupMoments,
+                   start: np.ndarray | None = None) -> GroupFit:
+    """Fit a multi-group layout by normal-theory ML (BLAS pinned to one thread)
+    and compute its fit indices under the conventions of this module."""
+    blocks = moments.blocks
+    with threadpool_limits(limits=1, user_api="blas"):
+        theta, record, objective = fit_normal(layout, blocks, start)
+        _, _, info = objective.value_grad_info(theta)
+        acov, unidentified = invert_information(info, objective.n)
+    loglik = objective.loglik(theta)
+    estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified,
+                        blocks)
+    mats = [estimate.matrices(g) for g in range(len(layout.patterns))]
+    covs, ns = list(moments.covs), list(moments.ns)
+    fit = fit_indices(loglik=loglik, saturated=moments.saturated_loglik, df=layout.df(),
+                      n=objective.n, n_params=layout.n_params,
+                      baseline=moments.baseline, sample_covs=covs,
+                      implied_covs=[x.implied_cov for x in mats], weights=ns,
+                      groups=len(layout.patterns))
+    fit = replace(fit, srmr=srmr_with_means(moments, [x.implied_cov for x in mats],
+                                            [x.implied_mean for x in mats]))
+    return GroupFit(layout, estimate, fit, objective, moments.ns)
+
+
+def srmr_with_means(moments: GroupMoments, implied_covs, implied_means) -> float:
+    """SRMR over covariance and mean residuals, pooled over groups by size.
+
+    In group ``g`` with sample SDs ``d``, the standardized residuals are
+    ``(s_ij − σ̂_ij)/(d_i d_j)`` for ``i ≤ j`` and ``(x̄_i − μ̂_i)/d_i``; ``m_g``
+    is the mean of their squares and ``SRMR = √(Σ_g n_g m_g / N)`` (Bentler
+    1995 for the covariance part; the mean residuals join it when the model
+    has a mean structure).
+
+    References
+    ----------
+    Bentler, P. M. (1995). EQS Structural Equations Program Manual.
+    Multivariate Software.
+    """
+    total = 0.0
+    for n, s, xbar, sigma, mu in zip(moments.ns, moments.covs, moments.means,
+                                     implied_covs, implied_means):
+        d = np.sqrt(np.diag(s))
+        resid = (s - sigma) / np.outer(d, d)
+        squares = np.concatenate([resid[np.tril_indices_from(resid)] ** 2,
+                                  ((xbar - mu) / d) ** 2])
+        total += n * squares.mean()
+    return float(np.sqrt(total / moments.n))
+
+
+def carry_start(source: GroupFit, target: Layout) -> np.ndarray:
+    """Start values for ``target`` from the estimates of a related layout.
+
+    A parameter found in ``source`` under the same name keeps its value; a
+    group-specific parameter whose shared form is in ``source`` takes the
+    shared value; a shared parameter whose group-specific forms are in
+    ``source`` takes their mean weighted by group size; anything else keeps
+    the target's own start value.
+    """
+    theta = source.estimate.theta
+    where = {param: k for k, param in enumerate(source.layout.params)}
+    labels = source.layout.groups
+    ns = np.array(source.ns, dtype=float)
+    out = target.start.copy()
+    for k, param in enumerate(target.params):
+        if param in where:
+            out[k] = theta[where[param]]
+        elif param.group is not None and replace(param, group=None) in where:
+            out[k] = theta[where[replace(param, group=None)]]
+        elif param.group is None:
+            forms = [where.get(replace(param, group=label)) for label in labels]
+            if all(f is not None for f in forms):
+                out[k] = ns @ theta[forms] / ns.sum()
+    return out
