@@ -1,0 +1,470 @@
+"""Item review and the refinement path: which items a researcher should look
+at, and what the model would look like without them; :func:`quality_keys`
+gathers these with the modification hints and residual correlations into the
+per-model JSON keys.
+
+An item is flagged when
+
+* ``weak_loading``: its standardized loading on its own construct (and, in a
+  bifactor model, on the general factor) is below the salience threshold
+  (``estimation: salience``, default .40; common practice, no source);
+* ``cross_loading``: it loads substantially on a second construct, i.e. an
+  estimated cross-loading, or a suggested one (modification index at or above
+  ``estimation: hint_threshold``) whose standardized size (EPC) reaches the
+  salience threshold;
+* ``residual_pair``: its residual covaries with another item's enough to
+  account for .10 or more of the two items' correlation, ``|θ_ij| / √(σ̂_ii σ̂_jj)
+  ≥ .10`` — the size at which a residual correlation is flagged (common
+  practice, no source) — either estimated in the model or suggested by a
+  modification index at or above the hint threshold whose EPC has that size.
+  On this scale, rather than as a correlation of the residuals themselves, the
+  smaller indices that one omitted residual covariance induces among the
+  other items of its construct mostly stay below the threshold.
+
+The refinement path refits the model without each flagged item in turn and
+keeps the removal that improves both fit (CFI) and the reliability (Cronbach's
+alpha) of the item's construct the most; when no removal improves both, the
+one that improves fit most, else reliability most.  It repeats until no item
+is flagged, no removal improves either, or every flagged item sits in a
+construct with three items: a construct measured by fewer than three items is
+not identified on its own (three-indicator rule, Bollen 1989, ch. 7).  The
+path is a suggestion; the model is never changed.
+
+References
+----------
+Bollen, K. A. (1989). Structural Equations with Latent Variables. Wiley.
+Cronbach, L. J. (1951). Coefficient alpha and the internal structure of
+tests. Psychometrika 16, 297–334.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from types import SimpleNamespace
+
+import numpy as np
+
+from scalewright.errors import StudyError
+from scalewright.evaluate import evaluate_normal
+from scalewright.hints import ScoreTests, modification_hint_keys, score_tests
+from scalewright.layout import CONSTRUCT, GENERAL, LOADING, RESIDUAL_COV
+from scalewright.modelresult import ModelResult
+from scalewright.reliability import cronbach_alpha
+from scalewright.residuals import FLAG_AT, residual_correlations
+
+WEAK, CROSS, PAIR = "weak_loading", "cross_loading", "residual_pair"
+
+#: fewest items a construct keeps on the refinement path (three-indicator rule, Bollen 1989)
+MIN_ITEMS = 3
+
+NOTE = (
+    "A suggestion for you to judge, not a change: no item was removed from your model. "
+    "Each step refits the model without one flagged item and keeps the removal that "
+    "improves both the fit (CFI) and the reliability (Cronbach's alpha) of that item's "
+    "construct the most. Dropping items narrows what a scale measures: keep an item whose "
+    "content the construct needs, revise rather than drop where you can, and confirm a "
+    "shortened scale on new data.")
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Thresholds of the review (the model file's ``estimation:`` section)."""
+
+    salience: float = 0.40
+    hint_threshold: float = 10.0
+    residual_threshold: float = FLAG_AT
+
+    @classmethod
+    def from_study(cls, study) -> "Settings":
+        return cls(salience=study.estimation.salience,
+                   hint_threshold=study.estimation.hint_threshold)
+
+
+@dataclass(frozen=True)
+class Flag:
+    """One reason to look at an item: ``other`` is a construct or an item."""
+
+    kind: str
+    other: str | None
+    value: float
+    text: str
+
+
+@dataclass(frozen=True)
+class ItemReview:
+    """The flags of one item."""
+
+    item: str
+    flags: tuple[Flag, ...]
+
+    @property
+    def kinds(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(f.kind for f in self.flags))
+
+    def to_dict(self) -> dict:
+        return {"item": self.item, "flags": list(self.kinds),
+                "details": [{"flag": f.kind, "with": f.other, "value": f.value, "text": f.text}
+                            for f in self.flags]}
+
+
+def review_items(result: ModelResult, tests: ScoreTests | None,
+                 settings: Settings = Settings()) -> list[ItemReview]:
+    """The flagged items of one fitted model, in the model's item order.
+
+    Parameters
+    ----------
+    result : ModelResult
+        The fitted model (its standardized solution, first group).
+    tests : ScoreTests or None
+        Its modification indices (:func:`scalewright.hints.score_tests`);
+        ``None`` when they could not be computed, and then only estimated
+        loadings and residual covariances are reviewed.
+    settings : Settings
+        The thresholds.
+    """
+    layout = result.estimate.layout
+    flags: dict[str, list[Flag]] = {item: [] for item in layout.items}
+    _weak(result, settings, flags)
+    _estimated_cross(result, settings, flags)
+    _estimated_pairs(result, settings, flags)
+    if tests is not None:
+        _suggested(result, tests, settings, flags)
+    return [ItemReview(item, tuple(f)) for item, f in flags.items() if f]
+
+
+def _weak(result: ModelResult, settings: Settings, flags: dict) -> None:
+    layout, std = result.estimate.layout, result.std.loadings
+    col = {f: j for j, f in enumerate(layout.factors)}
+    general = [j for j, kind in enumerate(layout.kinds) if kind == GENERAL]
+    for i, item in enumerate(layout.items):
+        own = layout.primary[item]
+        value = float(std[i, col[own]])
+        if max([abs(value)] + [abs(std[i, j]) for j in general]) >= settings.salience:
+            continue
+        text = (f"standardized loading {value:.2f} on {own}, below the salience threshold "
+                f"{settings.salience:.2f}")
+        text += "".join(f" (and {std[i, j]:.2f} on the general factor {layout.factors[j]})"
+                        for j in general)
+        flags[item].append(Flag(WEAK, own, value, text))
+
+
+def _estimated_cross(result: ModelResult, settings: Settings, flags: dict) -> None:
+    layout, std = result.estimate.layout, result.std.loadings
+    for prm in result.estimate.layout.params:
+        if prm.kind != LOADING or layout.primary[prm.b] == prm.a \
+                or layout.kinds[layout.factors.index(prm.a)] != CONSTRUCT:
+            continue
+        value = float(std[layout.items.index(prm.b), layout.factors.index(prm.a)])
+        if abs(value) >= settings.salience:
+            flags[prm.b].append(Flag(CROSS, prm.a, value,
+                                     f"estimated standardized cross-loading {value:.2f} on "
+                                     f"{prm.a}, at or beyond the salience threshold "
+                                     f"{settings.salience:.2f}"))
+
+
+def _estimated_pairs(result: ModelResult, settings: Settings, flags: dict) -> None:
+    layout = result.estimate.layout
+    mats = result.estimate.matrices()
+    sd = np.sqrt(np.diag(mats.implied_cov))
+    for prm in layout.params:
+        if prm.kind != RESIDUAL_COV or prm.a == prm.b:
+            continue
+        i, k = layout.items.index(prm.a), layout.items.index(prm.b)
+        share = float(mats.residuals[i, k] / (sd[i] * sd[k]))
+        if abs(share) >= settings.residual_threshold:
+            corr = float(result.std.residual_correlations[i, k])
+            for item, other in ((prm.a, prm.b), (prm.b, prm.a)):
+                flags[item].append(Flag(
+                    PAIR, other, share,
+                    f"its estimated residual covariance with '{other}' {_moves(share)} their "
+                    f"model-implied correlation by {abs(share):.2f} (residual correlation "
+                    f"{corr:.2f})"))
+
+
+def _suggested(result: ModelResult, tests: ScoreTests, settings: Settings, flags: dict) -> None:
+    layout = result.estimate.layout
+    for k in np.argsort(-tests.mi, kind="stable"):
+        if tests.mi[k] < settings.hint_threshold:
+            break
+        item, col = layout.items[tests.row[k]], tests.col[k]
+        if tests.kind[k] == LOADING:
+            construct, std = layout.factors[col], float(tests.std_epc[k])
+            if layout.kinds[col] == CONSTRUCT and abs(std) >= settings.salience:
+                flags[item].append(Flag(
+                    CROSS, construct, std,
+                    f"a loading on {construct} is suggested (modification index "
+                    f"{tests.mi[k]:.1f}, expected standardized loading {std:.2f})"))
+            continue
+        sigma = result.estimate.matrices(tests.group[k]).implied_cov
+        share = float(tests.epc[k] / np.sqrt(sigma[tests.row[k], tests.row[k]] * sigma[col, col]))
+        if abs(share) < settings.residual_threshold:
+            continue
+        for a, b in ((item, layout.items[col]), (layout.items[col], item)):
+            flags[a].append(Flag(
+                PAIR, b, share,
+                f"freeing its residual covariance with '{b}' would {_moves(share, False)} their "
+                f"model-implied correlation by about {abs(share):.2f} (modification index "
+                f"{tests.mi[k]:.1f}, residual correlation about {tests.std_epc[k]:.2f})"))
+
+
+def _moves(share: float, present: bool = True) -> str:
+    if share >= 0:
+        return "raises" if present else "raise"
+    return "lowers" if present else "lower"
+
+
+# --------------------------------------------------------------------------- refinement
+
+@dataclass(frozen=True)
+class Step:
+    """The model after one removal (``removed`` is None for the model as specified)."""
+
+    removed: str | None
+    reason: str
+    fit: dict
+    reliability: dict
+    flagged: tuple[str, ...]
+    tried: tuple[dict, ...]
+
+    def to_dict(self) -> dict:
+        return {"removed": self.removed, "reason": self.reason, "fit": self.fit,
+                "reliability": self.reliability, "flagged": list(self.flagged),
+                "tried": list(self.tried)}
+
+
+@dataclass(frozen=True)
+class Refinement:
+    steps: tuple[Step, ...]
+    stopped: str
+    note: str = NOTE
+
+    def to_dict(self) -> dict:
+        return {"steps": [s.to_dict() for s in self.steps], "stopped": self.stopped,
+                "note": self.note}
+
+
+@dataclass(frozen=True)
+class _State:
+    spec: object
+    result: ModelResult
+    reliability: dict
+    review: list
+
+
+def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
+                    result: ModelResult | None = None,
+                    max_steps: int | None = None) -> Refinement:
+    """Remove flagged items one at a time, refitting after each removal.
+
+    Parameters
+    ----------
+    spec : ModelSpec or namespace with the same fields
+        The model as specified; never modified.
+    x : ndarray, n × p
+        Complete answers, columns in ``spec.items`` order (after reverse keying).
+    settings : Settings
+        Thresholds of the item review.
+    result : ModelResult, optional
+        The fit of ``spec`` on ``x`` if already at hand.
+    max_steps : int, optional
+        Stop after this many removals (no limit by default).
+
+    Returns
+    -------
+    Refinement
+        Step 0 is the model as specified; each further step names the item
+        removed, why, the fit and the alpha of every construct after it, and
+        the removals that were tried.
+    """
+    column = {item: j for j, item in enumerate(spec.items)}
+    cov = np.cov(x, rowvar=False)
+    state = _state(spec, result or evaluate_normal(spec, x), cov, column, settings)
+    steps = [Step(None, "the model as specified", _fit(state.result), state.reliability,
+                  tuple(r.item for r in state.review), ())]
+    while True:
+        if max_steps is not None and len(steps) > max_steps:
+            stopped = f"Stopped after {max_steps} removal(s), the limit asked for."
+            break
+        if not state.review:
+            stopped = "No item is flagged."
+            break
+        removable = [r for r in state.review if _room(state.spec, r.item)]
+        if not removable:
+            stopped = (f"Every flagged item belongs to a construct with only {MIN_ITEMS} items; "
+                       "with fewer, a construct is identified only through its correlations "
+                       "with the others and its reliability is fragile (three-indicator rule, "
+                       "Bollen 1989).")
+            break
+        trials = [_trial(state, r, x, cov, column, settings) for r in removable]
+        fitted = [t for t in trials if t[1] is not None]
+        if not fitted:
+            stopped = ("No model without one of the flagged items could be estimated: "
+                       + "; ".join(f"without '{r.item}': {why}" for r, _, why in trials) + ".")
+            break
+        chosen, why = _choose(state, fitted)
+        if chosen is None:
+            stopped = "No removal of a flagged item improves the fit or the reliability."
+            break
+        review, new_state = chosen
+        steps.append(Step(review.item, _reason(review, state, new_state, why),
+                          _fit(new_state.result), new_state.reliability,
+                          tuple(r.item for r in new_state.review),
+                          tuple(_tried(t, state) for t in trials)))
+        state = new_state
+    return Refinement(tuple(steps), stopped)
+
+
+def _state(spec, result: ModelResult, cov: np.ndarray, column: dict, settings: Settings) -> _State:
+    try:
+        tests = score_tests(result.estimate)
+    except ValueError:
+        tests = None
+    return _State(spec, result, _alphas(spec, cov, column), review_items(result, tests, settings))
+
+
+def _alphas(spec, cov: np.ndarray, column: dict) -> dict:
+    """Cronbach's alpha of each construct's items (None for a one-item construct)."""
+    out = {}
+    for construct, items in spec.constructs.items():
+        idx = [column[i] for i in items]
+        out[construct] = float(cronbach_alpha(cov[np.ix_(idx, idx)])) if len(idx) > 1 else None
+    return out
+
+
+def _fit(result: ModelResult) -> dict:
+    f = result.fit
+    return {"cfi": float(f.cfi), "rmsea": float(f.rmsea), "srmr": float(f.srmr),
+            "chi_square": float(f.chi_square), "df": int(f.df)}
+
+
+def _room(spec, item: str) -> bool:
+    return all(len(items) > MIN_ITEMS for items in spec.constructs.values() if item in items)
+
+
+def without_item(spec, item: str):
+    """A copy of ``spec`` without ``item`` in its constructs, cross-loadings and
+    residual covariances (a ``ModelSpec`` through ``dataclasses.replace``)."""
+    changes = {
+        "constructs": {c: tuple(i for i in its if i != item) for c, its in spec.constructs.items()},
+        "cross_loadings": {c: tuple(i for i in its if i != item)
+                           for c, its in spec.cross_loadings.items()
+                           if any(i != item for i in its)},
+        "residual_covariances": tuple(pair for pair in spec.residual_covariances
+                                      if item not in pair),
+    }
+    if dataclasses.is_dataclass(spec):
+        return dataclasses.replace(spec, **changes)
+    copy = SimpleNamespace(**vars(spec))
+    vars(copy).update(changes, items=tuple(i for i in spec.items if i != item))
+    return copy
+
+
+def _trial(state: _State, review: ItemReview, x, cov, column, settings):
+    """Refit without one item: (review, new state or None, why not)."""
+    spec = without_item(state.spec, review.item)
+    keep = [column[i] for i in spec.items]
+    try:
+        result = evaluate_normal(spec, x[:, keep])
+    except StudyError as exc:
+        return review, None, str(exc)
+    if not result.converged:
+        return review, None, "the estimation did not converge"
+    return review, _state(spec, result, cov, column, settings), None
+
+
+def _gains(state: _State, review: ItemReview, new: _State) -> tuple[float, float]:
+    """Change in CFI and in the alpha of the item's construct."""
+    construct = state.result.estimate.layout.primary[review.item]
+    before, after = state.reliability.get(construct), new.reliability.get(construct)
+    alpha_gain = after - before if before is not None and after is not None else 0.0
+    return new.result.fit.cfi - state.result.fit.cfi, alpha_gain
+
+
+def _choose(state: _State, trials: list):
+    """The removal that improves fit and reliability most (see module docstring)."""
+    scored = [(_gains(state, review, new), review, new) for review, new, _ in trials]
+    both = [s for s in scored if s[0][0] > 0 and s[0][1] > 0]
+    if both:
+        (_, _), review, new = max(both, key=lambda s: s[0][0])
+        return (review, new), "both"
+    fit_only = [s for s in scored if s[0][0] > 0]
+    if fit_only:
+        _, review, new = max(fit_only, key=lambda s: s[0][0])
+        return (review, new), "fit"
+    reliability_only = [s for s in scored if s[0][1] > 0]
+    if reliability_only:
+        _, review, new = max(reliability_only, key=lambda s: s[0][1])
+        return (review, new), "reliability"
+    return None, None
+
+
+def _reason(review: ItemReview, state: _State, new: _State, why: str) -> str:
+    construct = state.result.estimate.layout.primary[review.item]
+    flags = "; ".join(f.text for f in review.flags)
+    before, after = state.reliability.get(construct), new.reliability.get(construct)
+    alpha = (f", alpha of {construct} {before:.2f} → {after:.2f}"
+             if before is not None and after is not None else "")
+    choice = {"both": "of the flagged items, its removal improves fit and reliability most",
+              "fit": "no removal improves both fit and reliability; this one improves fit most",
+              "reliability": "no removal improves fit; this one improves reliability most"}[why]
+    return (f"'{review.item}': {flags}. Without it CFI {state.result.fit.cfi:.3f} → "
+            f"{new.result.fit.cfi:.3f}{alpha}; {choice}.")
+
+
+def _tried(trial, state: _State) -> dict:
+    review, new, failure = trial
+    if new is None:
+        return {"item": review.item, "failed": failure}
+    fit_gain, alpha_gain = _gains(state, review, new)
+    return {"item": review.item, "cfi": float(new.result.fit.cfi),
+            "rmsea": float(new.result.fit.rmsea), "cfi_change": float(fit_gain),
+            "alpha_change": float(alpha_gain)}
+
+
+# --------------------------------------------------------------------------- all keys
+
+def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
+                 max_steps: int | None = None) -> dict:
+    """The per-model JSON keys of local fit and item quality.
+
+    Parameters
+    ----------
+    model_result : ModelResult
+        One rival model fitted by :func:`scalewright.evaluate.evaluate_normal`.
+    study : Study
+        The study (item wording, thresholds, the model's specification).
+    x : ndarray, n × p
+        The complete answers the model was fitted to, columns in the model's
+        item order.
+    max_steps : int, optional
+        Limit of the refinement path.
+
+    Returns
+    -------
+    dict
+        ``modification_hints``, ``modification_hint_notes``,
+        ``residual_correlations``, ``item_review``, ``refinement``.
+    """
+    settings = Settings.from_study(study)
+    spec = study.model(model_result.name)
+    estimate = model_result.estimate
+    wording = {name: item.wording for name, item in study.items.items()}
+    try:
+        tests = score_tests(estimate)
+    except ValueError:
+        tests = None
+    out = modification_hint_keys(estimate, wording, settings.hint_threshold, tests=tests)
+    try:
+        out["residual_correlations"] = residual_correlations(
+            estimate, threshold=settings.residual_threshold).to_dict()
+    except ValueError as exc:
+        out["residual_correlations"] = {"not_computed": str(exc)}
+    out["item_review"] = [r.to_dict() for r in review_items(model_result, tests, settings)]
+    if model_result.converged:
+        out["refinement"] = refinement_path(spec, x, settings, result=model_result,
+                                            max_steps=max_steps).to_dict()
+    else:
+        out["refinement"] = {"steps": [], "stopped": "The model as specified did not converge, "
+                             "so no refinement path was computed.", "note": NOTE}
+    return out
