@@ -233,6 +233,18 @@ def test_fit_marks_follow_the_hu_bentler_cutoffs():
     assert "Hu & Bentler (1999)" in summary.notes[0] and "conventions" in summary.notes[0]
 
 
+def test_robust_indices_replace_the_normal_theory_ones_when_present():
+    # issue 5: fit gains chi_square_scaled and cfi_robust …; the summary then
+    # marks the robust CFI (here .960 ≥ .95, Hu & Bentler 1999) instead of .930
+    report = demo_report()
+    report["models"][1]["fit"].update(chi_square_scaled=180.0, scaling_factor=1.09,
+                                      cfi_robust=0.960)
+    summary = build_document(report).tables[0]
+    assert summary.columns[2] == "χ² scaled"
+    row = next(r for r in summary.rows if r[0].text == "three-constructs")
+    assert (row[2].text, row[5].text, row[5].mark) == ("180.00", ".960", "✓")
+
+
 def test_summary_names_equivalent_models_and_says_when_criteria_disagree():
     # compare.py finds 'higher-order' and 'three-constructs' equivalent (0 df);
     # BIC favours them while AIC and the difference test favour 'bifactor'

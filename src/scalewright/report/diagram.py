@@ -26,7 +26,7 @@ MAX_ARC_CONSTRUCTS = 5
 _GAP = 170          # construct ellipse to item box
 _HIGHER_GAP = 170   # higher-order factor to construct
 _TOP = 34
-_LABEL_OFFSET = 26  # label column distance from the item boxes
+_LABEL_OFFSET = 30  # label column distance from the item boxes
 
 
 @dataclass(frozen=True)
@@ -138,7 +138,7 @@ def path_diagram(model: dict, figure_id: str) -> str:
     out = []
     mid = f"{figure_id}-arrow"
     out.append(f'<defs><marker id="{mid}" viewBox="0 0 10 10" refX="9" refY="5" '
-               'markerWidth="7" markerHeight="7" orient="auto-start-reverse">'
+               'markerWidth="7" markerHeight="7" markerUnits="userSpaceOnUse" orient="auto-start-reverse">'
                '<path d="M0,1 L10,5 L0,9 z" class="head"/></marker></defs>')
     out.append(f'<text x="8" y="16" font-size="{_n(font)}" class="caption">'
                f'Path diagram: {_e(model["name"])}</text>')

@@ -131,7 +131,19 @@ def slug(name: str) -> str:
 
 # --------------------------------------------------------------------------- fit and comparison
 
+#: robust versions of the indices, used in place of the normal-theory ones when present
+ROBUST = {"cfi": "cfi_robust", "tli": "tli_robust", "rmsea": "rmsea_robust",
+          "rmsea_ci90": "rmsea_robust_ci90"}
+
+
+def shown_fit(fit: dict) -> dict:
+    """The fit indices a table shows: robust versions where the fit has them
+    (Brosseau-Liard & Savalei 2014), else the normal-theory ones."""
+    return {**fit, **{k: fit[r] for k, r in ROBUST.items() if fit.get(r) is not None}}
+
+
 def _fit_cells(fit: dict) -> list[Cell]:
+    fit = shown_fit(fit)
     marks = fit_marks(fit)
     cells = []
     for c in FIT_CUTOFFS:
@@ -147,19 +159,29 @@ def summary_fit_table(report: dict) -> Table:
     cutoffs, and the BIC weight when the models were compared."""
     comparison = report.get("comparison")
     weights = (comparison or {}).get("bic_weights", {})
+    scaled = any("chi_square_scaled" in m["fit"] for m in report["models"])
     rows = []
     for m in report["models"]:
         f = m["fit"]
         name = m["name"] + ("" if m.get("converged", True) else " (did not converge)")
-        cells = [_h(name), _c(dec(f.get("chi_square"), 2)), _c(str(f.get("df"))),
-                 _c(pval(f.get("p_value"))), *_fit_cells(f)]
+        cells = [_h(name), _c(dec(f.get("chi_square"), 2))]
+        if scaled:
+            cells.append(_c(dec(f.get("chi_square_scaled"), 2)))
+        cells += [_c(str(f.get("df"))), _c(pval(f.get("p_value"))), *_fit_cells(f)]
         if comparison:
             cells.append(_c(weight(weights.get(m["name"]))))
         rows.append(tuple(cells))
-    columns = ("Model", "χ²", "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR") + (
+    columns = ("Model", "χ²") + (("χ² scaled",) if scaled else ()) + (
+        "df", "p", "CFI", "TLI", "RMSEA [90% CI]", "SRMR") + (
         ("BIC weight",) if comparison else ())
+    notes = [cutoff_note()]
+    if any(f.get(r) is not None for m in report["models"] for f in [m["fit"]]
+           for r in ROBUST.values()):
+        notes.append("Where a model has robust versions of CFI, TLI and RMSEA (Brosseau-Liard "
+                     "& Savalei 2014), those are shown and marked. χ² scaled: the mean-scaled "
+                     "statistic (Satorra & Bentler 1994).")
     return Table("summary-fit", "Fit of the rival models at a glance", columns, tuple(rows),
-                 (cutoff_note(),))
+                 tuple(notes))
 
 
 def comparison_table(report: dict) -> Table:
