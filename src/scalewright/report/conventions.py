@@ -63,6 +63,16 @@ RESIDUAL_FLAG = 0.10
 
 MEETS, MISSES = "✓", "✗"
 
+#: robust versions of the indices, used in place of the normal-theory ones when present
+ROBUST = {"cfi": "cfi_robust", "tli": "tli_robust", "rmsea": "rmsea_robust",
+          "rmsea_ci90": "rmsea_robust_ci90"}
+
+
+def shown_fit(fit: dict) -> dict:
+    """The fit indices a table shows: robust versions where the fit has them
+    (Brosseau-Liard & Savalei 2014), else the normal-theory ones."""
+    return {**fit, **{k: fit[r] for k, r in ROBUST.items() if fit.get(r) is not None}}
+
 
 def fit_marks(fit: dict) -> dict:
     """Per fit index: ``{"met": bool|None, "symbol": "✓"|"✗"|"", "rule": "CFI ≥ .95"}``."""

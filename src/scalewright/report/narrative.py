@@ -10,7 +10,7 @@ the text says so and leaves the choice to the researcher.
 from __future__ import annotations
 
 from scalewright.report.conventions import (FIT_CUTOFFS, HU_BENTLER, RELIABILITY_MINIMUM,
-                                            RELIABILITY_SOURCE, SALIENCE)
+                                            RELIABILITY_SOURCE, SALIENCE, shown_fit)
 from scalewright.report.formatting import coef, count, dec, interval, p_equals
 
 _NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")
@@ -154,7 +154,7 @@ def _focus_paragraph(report: dict, fav: dict) -> str | None:
     if not model.get("converged", True):
         return (f"‘{name}’{role} did not converge: its numbers should not be interpreted "
                 "(see its section).")
-    fit = model["fit"]
+    fit = shown_fit(model["fit"])
     p = fit.get("p_value")
     verdict = ("rejects exact fit" if p is not None and p < 0.05
                else "does not reject exact fit")
@@ -241,7 +241,7 @@ def abstract_sentence(report: dict) -> str:
     model = _models(report).get(fav["focus"])
     if model is None:
         return ""
-    fit = model["fit"]
+    fit = shown_fit(model["fit"])
     first = _first_name(report)
     origin = ("the model specified first" if fav["focus"] == first
               else "not the model specified first" if first else

@@ -19,7 +19,8 @@ from pathlib import Path
 from scalewright.errors import StudyError
 from scalewright.report.charts import frequency_chart, frequency_text
 from scalewright.report.conventions import (FIT_CUTOFFS, MEETS, MISSES, RELIABILITY_MINIMUM,
-                                            RELIABILITY_SOURCE, SALIENCE, cutoff_note, fit_marks)
+                                            RELIABILITY_SOURCE, ROBUST, SALIENCE, cutoff_note,
+                                            fit_marks, shown_fit)
 from scalewright.report.formatting import (DASH, coef, count, dec, interval, percent, plain,
                                            pval)
 
@@ -130,17 +131,6 @@ def slug(name: str) -> str:
 
 
 # --------------------------------------------------------------------------- fit and comparison
-
-#: robust versions of the indices, used in place of the normal-theory ones when present
-ROBUST = {"cfi": "cfi_robust", "tli": "tli_robust", "rmsea": "rmsea_robust",
-          "rmsea_ci90": "rmsea_robust_ci90"}
-
-
-def shown_fit(fit: dict) -> dict:
-    """The fit indices a table shows: robust versions where the fit has them
-    (Brosseau-Liard & Savalei 2014), else the normal-theory ones."""
-    return {**fit, **{k: fit[r] for k, r in ROBUST.items() if fit.get(r) is not None}}
-
 
 def _fit_cells(fit: dict) -> list[Cell]:
     fit = shown_fit(fit)
