@@ -59,6 +59,11 @@ class GroupedData:
         return self.labels[0]
 
     @property
+    def ns(self) -> tuple[int, ...]:
+        """Rows with a group, per group."""
+        return tuple(int(n) for n in np.bincount(self.index, minlength=len(self.labels)))
+
+    @property
     def complete(self) -> np.ndarray:
         """Rows that answer every item."""
         return ~np.isnan(self.values).any(axis=1)

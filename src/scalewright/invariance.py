@@ -153,24 +153,29 @@ class Comparison:
                              "text": self.text(step)}}
 
 
-def compare(step: str, fit: GroupFit, previous: GroupFit) -> Comparison:
-    """Difference test and the conventions of Cheung & Rensvold (2002) and
-    Chen (2007) for ``fit`` (step ``step``) against ``previous``."""
-    new, old = fit.fit, previous.fit
-    delta = {"cfi": new.cfi - old.cfi, "rmsea": new.rmsea - old.rmsea, "srmr": new.srmr - old.srmr}
-    chi2 = max(new.chi_square - old.chi_square, 0.0)
-    df = new.df - old.df
-    p = float(stats.chi2.sf(chi2, df)) if df > 0 else float("nan")
-    small = fit.estimate.n <= SMALL_N
-    cfi_drop, rmsea_rise, srmr_rise = _CHEN[(small, ADDED[step])]
-    conventions = (
+def conventions(added: str, delta: dict, n: int) -> tuple[Convention, ...]:
+    """The conventions of Cheung & Rensvold (2002) and Chen (2007) for the
+    changes ``delta`` (cfi, rmsea, srmr: constrained minus less constrained)
+    when the parameter class ``added`` is made equal, total sample size ``n``."""
+    small = n <= SMALL_N
+    cfi_drop, rmsea_rise, srmr_rise = _CHEN[(small, added)]
+    return (
         Convention("Cheung & Rensvold (2002)", "ΔCFI > −.010", bool(delta["cfi"] > -0.010)),
         Convention(f"Chen (2007), total N {'≤' if small else '>'} {SMALL_N}",
                    f"not (ΔCFI ≤ −{cfi_drop:.3f} with ΔRMSEA ≥ {rmsea_rise:.3f} or "
                    f"ΔSRMR ≥ {srmr_rise:.3f})",
                    not (delta["cfi"] <= -cfi_drop and (delta["rmsea"] >= rmsea_rise or
                                                       delta["srmr"] >= srmr_rise))))
-    return Comparison(delta, float(chi2), int(df), p, conventions)
+
+
+def compare(step: str, fit: GroupFit, previous: GroupFit) -> Comparison:
+    """Difference test and conventions for ``fit`` (step ``step``) against ``previous``."""
+    new, old = fit.fit, previous.fit
+    delta = {"cfi": new.cfi - old.cfi, "rmsea": new.rmsea - old.rmsea, "srmr": new.srmr - old.srmr}
+    chi2 = max(new.chi_square - old.chi_square, 0.0)
+    df = new.df - old.df
+    p = float(stats.chi2.sf(chi2, df)) if df > 0 else float("nan")
+    return Comparison(delta, float(chi2), int(df), p, conventions(ADDED[step], delta, fit.estimate.n))
 
 
 # --------------------------------------------------------------------------- score tests
