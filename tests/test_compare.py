@@ -16,8 +16,6 @@ Outside references used here:
 
 from __future__ import annotations
 
-from types import SimpleNamespace
-
 import numpy as np
 import pandas as pd
 import pytest
