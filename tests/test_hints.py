@@ -28,6 +28,7 @@ import numpy as np
 import pytest
 import semopy
 from numpy.testing import assert_allclose
+from threadpoolctl import threadpool_limits
 
 from conftest import HS_CONSTRUCTS, HS_ITEMS, HS_SEMOPY, make_spec, simulate_cfa
 from scalewright.estimate.fisher import OptimizerRecord
@@ -302,8 +303,9 @@ def test_marker_scaled_epc_near_recalled_value(hs_x):
 
 def _semopy_chi_square(description, data):
     model = semopy.Model(description)
-    model.fit(data, options={"ftol": 1e-12})
-    return float(semopy.calc_stats(model)["chi2"].iloc[0]), model
+    with threadpool_limits(limits=1, user_api="blas"):   # a threaded BLAS is slow on 2 cores
+        model.fit(data, options={"ftol": 1e-12})
+        return float(semopy.calc_stats(model)["chi2"].iloc[0]), model
 
 
 FREED = {   # candidate → the three-factor model with it freed, in semopy's syntax

@@ -59,6 +59,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
+from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.normal import NormalFit
 from scalewright.estimate.result import Estimate
@@ -172,6 +173,11 @@ def score_tests(estimate: Estimate) -> ScoreTests:
         raise ValueError("score tests need the data blocks the estimate was fitted to")
     if estimate.acov is None:
         raise ValueError("the information matrix is singular: the model is not identified")
+    with threadpool_limits(limits=1, user_api="blas"):   # as the engine; see evaluate.py
+        return _score_tests(estimate)
+
+
+def _score_tests(estimate: Estimate) -> ScoreTests:
     layout = estimate.layout
     objective = NormalFit(layout, estimate.blocks)
     _, _, info_free = objective.value_grad_info(estimate.theta)

@@ -36,6 +36,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.result import Estimate
 from scalewright.layout import cell_derivatives
@@ -119,7 +120,8 @@ def residual_correlations(estimate: Estimate, group: int = 0,
     matrix = _correlation(block.cov) - _correlation(sigma)
     standardized = None
     if estimate.acov is not None:
-        standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
+        with threadpool_limits(limits=1, user_api="blas"):   # as the engine; see evaluate.py
+            standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
     return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized,
                                 float(threshold))
 
