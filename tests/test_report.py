@@ -114,7 +114,9 @@ def with_quality_keys(report: dict) -> dict:
                                    "srmr": .065},
          "delta": {"cfi": -.002, "rmsea": 0.0, "srmr": .005},
          "difference_test": {"chi_square": 20.0, "df": 15, "p_value": .17},
-         "decision": "holds (ΔCFI above −.01, a convention)"}]
+         "decision": {"holds": True, "text": "Equal loadings hold by the conventions."}}]
+    out["released"] = [{"step": "scalar", "kind": "intercept", "item": "wl6", "construct": None,
+                        "text": "The intercept of item 'wl6' differs between groups."}]
     return out
 
 
@@ -231,6 +233,12 @@ def test_fit_marks_follow_the_hu_bentler_cutoffs():
     assert rows["bifactor"][4].mark == "✓" and rows["three-constructs"][4].mark == "✗"
     assert rows["three-constructs"][6].mark == "✓"   # RMSEA .048 ≤ .06
     assert "Hu & Bentler (1999)" in summary.notes[0] and "conventions" in summary.notes[0]
+
+
+def test_invariance_steps_show_their_decision_text_and_released_constraints():
+    html = render_html(with_quality_keys(demo_report()))
+    assert "✓ Equal loadings hold by the conventions." in html
+    assert "The intercept of item &#39;wl6&#39; differs between groups." in html
 
 
 def test_robust_indices_replace_the_normal_theory_ones_when_present():

@@ -209,8 +209,8 @@ def _invariance(doc: Document) -> None:
     released = r.get("released") or []
     if released:
         s.h3("Constraints released")
-        s.items(str(x) if not isinstance(x, dict) else
-                ", ".join(f"{k}: {v}" for k, v in x.items()) for x in released)
+        s.items(x.get("text") or f"{x.get('kind')} of {x.get('item')}" if isinstance(x, dict)
+                else str(x) for x in released)
     doc.sections.append(s)
 
 

@@ -531,6 +531,14 @@ def mardia_table(report: dict) -> Table:
                  ("Coefficient", "Value", "Test", "p"), tuple(rows), (note,))
 
 
+def _decision(decision) -> str:
+    """An invariance step's decision: its text (issue 6 shape) or the value as given."""
+    if isinstance(decision, dict):
+        mark = {True: f"{MEETS} ", False: f"{MISSES} "}.get(decision.get("holds"), "")
+        return mark + str(decision.get("text") or "")
+    return "" if decision is None else str(decision)
+
+
 def invariance_table(report: dict) -> Table:
     rows = []
     for s in report["invariance"]:
@@ -543,7 +551,7 @@ def invariance_table(report: dict) -> Table:
                      _c(coef(delta.get("cfi"))), _c(coef(delta.get("rmsea"))),
                      _c(coef(delta.get("srmr"))), _c(dec(test.get("chi_square"), 2)),
                      _c(str(test.get("df", DASH))), _c(pval(test.get("p_value"))),
-                     Cell(str(s.get("decision") or ""), css="text prose")))
+                     Cell(_decision(s.get("decision")), css="text prose")))
     return Table("invariance", "Measurement invariance, step by step",
                  ("Step", "χ²", "df", "CFI", "RMSEA", "SRMR", "ΔCFI", "ΔRMSEA", "ΔSRMR",
                   "Δχ²", "Δdf", "p", "Decision"), tuple(rows),
