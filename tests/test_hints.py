@@ -229,12 +229,11 @@ def _estimate(layout, blocks):
 
 
 def _polish(objective, theta, h=1e-6):
-    """Fisher scoring with a finite-difference gradient of the objective's value.
-
-    The engine's analytic gradient leaves out the ``−V r rᵀ V`` term of a mean
-    structure with missing-data blocks (reported to the lead), so its optimiser
-    stops short there; the value itself is right, and the expected information
-    does not involve ``r``."""
+    """Fisher scoring with a finite-difference gradient of the objective's value,
+    so that the point the reference is computed at is the optimum of the
+    discrepancy itself, whatever the engine's analytic gradient does with a
+    mean structure and missing-data blocks (the expected information used for
+    the step does not involve the mean residual ``r``)."""
     steps = np.eye(len(theta)) * h
     for iteration in range(1, 51):
         grad = np.array([(objective.value(theta + e) - objective.value(theta - e)) / (2 * h)

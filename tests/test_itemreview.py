@@ -141,6 +141,25 @@ def test_refinement_refit_matches_semopy_and_alpha_matches_pingouin():
                     pingouin.cronbach_alpha(frame[["q1", "q2", "q4", "q5"]])[0], rtol=1e-10)
 
 
+def test_refinement_uses_the_given_estimator_and_pairwise_alpha_with_missing_answers():
+    x, constructs, items = _population(4, weak=2)
+    x = x.copy()
+    x[np.random.default_rng(9).random(x.shape) < 0.05] = np.nan
+    calls = []
+
+    def listwise(spec, values):
+        calls.append(len(spec.items))
+        return evaluate_normal(spec, values[~np.isnan(values).any(axis=1)])
+
+    path = refinement_path(make_spec(constructs), x, fit=listwise)
+    assert calls[0] == 10 and 9 in calls
+    assert path.steps[1].removed == "q3"
+    frame = pd.DataFrame(x, columns=items)[["q1", "q2", "q4", "q5"]]
+    # pingouin's alpha with pairwise deletion: the same covariance, rounding only
+    assert_allclose(path.steps[1].reliability["first"],
+                    pingouin.cronbach_alpha(frame, nan_policy="pairwise")[0], rtol=1e-10)
+
+
 def test_refinement_stops_when_no_item_is_flagged():
     x, constructs, _ = _population(4, weak=2)
     path = refinement_path(make_spec(constructs), x)

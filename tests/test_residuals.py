@@ -8,12 +8,15 @@ holds) for the standardized residuals, which must then be standard normal.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 import semopy
 from numpy.testing import assert_allclose
 
 from conftest import HS_CONSTRUCTS, HS_ITEMS, HS_SEMOPY, make_spec, simulate_cfa
+from scalewright.estimate.normal import Block
 from scalewright.evaluate import evaluate_normal
 from scalewright.residuals import FLAG_AT, residual_correlations
 
@@ -98,11 +101,21 @@ def test_standardized_residuals_are_standard_normal_when_the_model_holds():
     assert np.all(np.abs(z.mean(axis=0)) < 0.28)
 
 
-def test_missing_data_blocks_are_refused_with_a_reason(hs_x):
-    import dataclasses
-
-    from scalewright.estimate.normal import Block
-    estimate = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).estimate
+def _split(estimate):
     split = tuple(Block(0, b.observed, b.n // 2, b.cov, b.mean) for b in estimate.blocks * 2)
-    with pytest.raises(ValueError, match="saturated covariance"):
-        residual_correlations(dataclasses.replace(estimate, blocks=split))
+    return dataclasses.replace(estimate, blocks=split)
+
+
+def test_missing_data_blocks_without_an_observed_covariance_are_refused(hs_x):
+    estimate = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).estimate
+    with pytest.raises(ValueError, match="saturated covariance as observed_cov"):
+        residual_correlations(_split(estimate))
+
+
+def test_observed_covariance_given_for_missing_data_gives_correlations_only(
+        hs_x, semopy_residuals):
+    estimate = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).estimate
+    result = residual_correlations(_split(estimate), observed_cov=np.cov(hs_x, rowvar=False))
+    # the same matrices as the complete-data case (semopy's implied matrix, 1e-5 as above)
+    assert_allclose(result.matrix, semopy_residuals, atol=1e-5)
+    assert result.standardized is None

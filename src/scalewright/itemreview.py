@@ -42,8 +42,10 @@ from __future__ import annotations
 import dataclasses
 from dataclasses import dataclass
 from types import SimpleNamespace
+from typing import Callable
 
 import numpy as np
+import pandas as pd
 
 from scalewright.errors import StudyError
 from scalewright.evaluate import evaluate_normal
@@ -253,8 +255,8 @@ class _State:
 
 
 def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
-                    result: ModelResult | None = None,
-                    max_steps: int | None = None) -> Refinement:
+                    result: ModelResult | None = None, max_steps: int | None = None,
+                    fit: Callable = evaluate_normal) -> Refinement:
     """Remove flagged items one at a time, refitting after each removal.
 
     Parameters
@@ -262,13 +264,17 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     spec : ModelSpec or namespace with the same fields
         The model as specified; never modified.
     x : ndarray, n × p
-        Complete answers, columns in ``spec.items`` order (after reverse keying).
+        Answers, columns in ``spec.items`` order (after reverse keying); alpha
+        uses their pairwise-complete covariance.
     settings : Settings
         Thresholds of the item review.
     result : ModelResult, optional
         The fit of ``spec`` on ``x`` if already at hand.
     max_steps : int, optional
         Stop after this many removals (no limit by default).
+    fit : callable
+        ``fit(spec, x) -> ModelResult``, the estimator the model was fitted
+        with (normal-theory ML on complete data by default).
 
     Returns
     -------
@@ -278,8 +284,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
         the removals that were tried.
     """
     column = {item: j for j, item in enumerate(spec.items)}
-    cov = np.cov(x, rowvar=False)
-    state = _state(spec, result or evaluate_normal(spec, x), cov, column, settings)
+    cov = pd.DataFrame(x).cov().to_numpy()     # pairwise complete; np.cov when nothing is missing
+    state = _state(spec, result or fit(spec, x), cov, column, settings)
     steps = [Step(None, "the model as specified", _fit(state.result), state.reliability,
                   tuple(r.item for r in state.review), ())]
     while True:
@@ -296,7 +302,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                        "with the others and its reliability is fragile (three-indicator rule, "
                        "Bollen 1989).")
             break
-        trials = [_trial(state, r, x, cov, column, settings) for r in removable]
+        trials = [_trial(state, r, x, cov, column, settings, fit) for r in removable]
         fitted = [t for t in trials if t[1] is not None]
         if not fitted:
             stopped = ("No model without one of the flagged items could be estimated: "
@@ -360,12 +366,12 @@ def without_item(spec, item: str):
     return copy
 
 
-def _trial(state: _State, review: ItemReview, x, cov, column, settings):
+def _trial(state: _State, review: ItemReview, x, cov, column, settings, fit):
     """Refit without one item: (review, new state or None, why not)."""
     spec = without_item(state.spec, review.item)
     keep = [column[i] for i in spec.items]
     try:
-        result = evaluate_normal(spec, x[:, keep])
+        result = fit(spec, x[:, keep])
     except StudyError as exc:
         return review, None, str(exc)
     if not result.converged:
@@ -425,7 +431,8 @@ def _tried(trial, state: _State) -> dict:
 # --------------------------------------------------------------------------- all keys
 
 def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
-                 max_steps: int | None = None) -> dict:
+                 max_steps: int | None = None, fit: Callable = evaluate_normal,
+                 observed_cov: np.ndarray | None = None) -> dict:
     """The per-model JSON keys of local fit and item quality.
 
     Parameters
@@ -435,10 +442,14 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     study : Study
         The study (item wording, thresholds, the model's specification).
     x : ndarray, n × p
-        The complete answers the model was fitted to, columns in the model's
-        item order.
+        The answers the model was fitted to, columns in the model's item order.
     max_steps : int, optional
         Limit of the refinement path.
+    fit : callable
+        ``fit(spec, x) -> ModelResult`` for the refits of the refinement path.
+    observed_cov : ndarray, optional
+        The saturated covariance when the data have missing-data blocks
+        (see :func:`scalewright.residuals.residual_correlations`).
 
     Returns
     -------
@@ -457,13 +468,13 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     out = modification_hint_keys(estimate, wording, settings.hint_threshold, tests=tests)
     try:
         out["residual_correlations"] = residual_correlations(
-            estimate, threshold=settings.residual_threshold).to_dict()
+            estimate, threshold=settings.residual_threshold, observed_cov=observed_cov).to_dict()
     except ValueError as exc:
         out["residual_correlations"] = {"not_computed": str(exc)}
     out["item_review"] = [r.to_dict() for r in review_items(model_result, tests, settings)]
     if model_result.converged:
         out["refinement"] = refinement_path(spec, x, settings, result=model_result,
-                                            max_steps=max_steps).to_dict()
+                                            max_steps=max_steps, fit=fit).to_dict()
     else:
         out["refinement"] = {"steps": [], "stopped": "The model as specified did not converge, "
                              "so no refinement path was computed.", "note": NOTE}

@@ -87,43 +87,49 @@ class ResidualCorrelations:
                 "matrix": np.round(self.matrix, 4).tolist()}
 
 
-def residual_correlations(estimate: Estimate, group: int = 0,
-                          threshold: float = FLAG_AT) -> ResidualCorrelations:
+def residual_correlations(estimate: Estimate, group: int = 0, threshold: float = FLAG_AT,
+                          observed_cov: np.ndarray | None = None) -> ResidualCorrelations:
     """Residual correlations and standardized residuals of one group of a
-    normal-theory ML estimate on complete data.
+    normal-theory ML estimate.
 
     Parameters
     ----------
     estimate : Estimate
-        Its ``blocks`` must hold the group's data as one complete block (the
-        sample covariance is then the saturated estimate).
+        Without ``observed_cov`` its ``blocks`` must hold the group's data
+        as one complete block, whose covariance is then the observed one.
     group : int
         Index of the group (``layout.patterns``).
     threshold : float
         Absolute residual correlation from which a pair is flagged.
+    observed_cov : ndarray, optional
+        The observed (saturated) covariance matrix when the data are split
+        into missing-data blocks, e.g. the EM estimate.  Standardized
+        residuals are then not given: their variance formula holds for a
+        complete-data sample covariance only.
 
     Raises
     ------
     ValueError
-        When the group's data are split into missing-data blocks: the
-        observed covariance is then the saturated model's estimate, which
-        the caller must supply.
+        When the group's data are split into missing-data blocks and no
+        ``observed_cov`` is given.
     """
-    blocks = [b for b in estimate.blocks if b.group == group]
-    p = estimate.layout.p
-    if len(blocks) != 1 or len(blocks[0].observed) != p:
-        raise ValueError("residual correlations need the group's complete-data covariance; "
-                         "with missing-data blocks pass the saturated covariance instead")
-    block = blocks[0]
     mats = estimate.matrices(group)
     sigma = mats.implied_cov
-    matrix = _correlation(block.cov) - _correlation(sigma)
+    items = tuple(estimate.layout.items)
+    if observed_cov is not None:
+        return ResidualCorrelations(items, _correlation(observed_cov) - _correlation(sigma),
+                                    None, float(threshold))
+    blocks = [b for b in estimate.blocks if b.group == group]
+    if len(blocks) != 1 or len(blocks[0].observed) != estimate.layout.p:
+        raise ValueError("residual correlations need the group's complete-data covariance; "
+                         "with missing-data blocks pass the saturated covariance as observed_cov")
+    block = blocks[0]
     standardized = None
     if estimate.acov is not None:
         with threadpool_limits(limits=1, user_api="blas"):   # as the engine; see evaluate.py
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
-    return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized,
-                                float(threshold))
+    return ResidualCorrelations(items, _correlation(block.cov) - _correlation(sigma),
+                                standardized, float(threshold))
 
 
 def _correlation(cov: np.ndarray) -> np.ndarray:
