@@ -11,10 +11,11 @@ with ``Σ_b, μ_b`` the rows and columns of ``Σ(θ), μ(θ)`` for ``o_b``; a mo
 without a mean structure has ``μ_b = x̄_b``.  The engine minimises
 ``f(θ) = −ℓ(θ)/N``.
 
-With ``V = Σ_b⁻¹``, ``E = V(Σ_b − S_b)V``, ``r = x̄_b − μ_b`` and the rank-two
-cell derivatives ``∂Σ/∂c = a bᵀ + b aᵀ`` of :func:`scalewright.layout.cell_derivatives`:
+With ``V = Σ_b⁻¹``, ``r = x̄_b − μ_b``, ``z = V r``, ``E = V(Σ_b − S_b)V`` and the
+rank-two cell derivatives ``∂Σ/∂c = a bᵀ + b aᵀ`` of
+:func:`scalewright.layout.cell_derivatives`:
 
-    ∂f_b/∂c   = a_cᵀ E b_c − (∂μ/∂c)ᵀ V r
+    ∂f_b/∂c   = a_cᵀ E b_c − (zᵀa_c)(zᵀb_c) − (∂μ/∂c)ᵀ z
     I_b[c, d] = ½ tr(V ∂Σ/∂c V ∂Σ/∂d) + (∂μ/∂c)ᵀ V (∂μ/∂d)
               = (AᵀVA)∘(BᵀVB) + (AᵀVB)∘(AᵀVB)ᵀ + D_μᵀ V D_μ   (elementwise products)
 
@@ -129,7 +130,8 @@ class NormalFit:
                     dmu = dmu_all[o]
                     resid = block.mean - mu[o]
                     vd = v @ dmu
-                    cell_grad -= vd.T @ resid
+                    z = v @ resid   # the mean residual also moves with Σ: −(zᵀa)(zᵀb)
+                    cell_grad -= vd.T @ resid + (z @ a) * (z @ b)
                     cell_info += dmu.T @ vd
                 np.add.at(grad, params, w * cell_grad)
                 _add_block(info, params, w * cell_info)
