@@ -38,9 +38,9 @@ the step holds and the difference test does not reject, no constraint
 stands out, or the limit is reached.  Releases never make a construct keep
 fewer than two equal loadings (or intercepts): partial invariance is
 defensible only with at least two invariant items per construct (Steenkamp &
-Baumgartner 1998).  The limit is a fifth of the step's constraints
-(Dimitrov 2010 regards partial invariance with up to 20% of the parameters
-released as acceptable, from memory).
+Baumgartner 1998).  The limit is a fifth of the step's constraints, rounded
+up (Dimitrov 2010 regards partial invariance with up to about 20% of the
+parameters released as acceptable, from memory).
 
 Latent comparisons use the final scalar model (or the metric model for
 variances and correlations when scalar invariance does not hold): the
@@ -139,8 +139,9 @@ class Comparison:
         verdict = "hold" if self.holds else "do not hold"
         rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
                           for c in self.conventions)
-        test = (f"The chi-square difference test {'rejects' if self.rejects else 'does not reject'} "
-                f"equality (Δχ² = {self.chi_square:.2f} on {self.df} df, p = {self.p_value:.3g}).")
+        verb = "rejects" if self.rejects else "does not reject"
+        test = (f"The chi-square difference test {verb} equality "
+                f"(Δχ² = {self.chi_square:.2f} on {self.df} df, p = {self.p_value:.3g}).")
         return (f"{what} {verdict} by the published conventions ({rules}); these are rules "
                 f"of thumb, not tests. {test}")
 
@@ -175,7 +176,8 @@ def compare(step: str, fit: GroupFit, previous: GroupFit) -> Comparison:
     chi2 = max(new.chi_square - old.chi_square, 0.0)
     df = new.df - old.df
     p = float(stats.chi2.sf(chi2, df)) if df > 0 else float("nan")
-    return Comparison(delta, float(chi2), int(df), p, conventions(ADDED[step], delta, fit.estimate.n))
+    return Comparison(delta, float(chi2), int(df), p,
+                      conventions(ADDED[step], delta, fit.estimate.n))
 
 
 # --------------------------------------------------------------------------- score tests
@@ -230,7 +232,8 @@ def score_tests(spec, moments: GroupMoments, constrained: GroupFit, step: str,
     scale = np.diagonal(info[np.ix_(flat, flat)]).reshape(k, g1)
     ok = np.all(np.diagonal(blocks, axis1=1, axis2=2) > 1e-8 * scale, axis=1)
     stat = np.full(k, np.nan)
-    stat[ok] = n * np.einsum("ki,ki->k", g[ok], np.linalg.solve(blocks[ok], g[ok][..., None])[..., 0])
+    solved = np.linalg.solve(blocks[ok], g[ok][..., None])[..., 0]
+    stat[ok] = n * np.einsum("ki,ki->k", g[ok], solved)
     p = stats.chi2.sf(stat, g1)
     tested = int(ok.sum())
     return [ScoreTest(c, float(s), g1, float(pv), float(min(1.0, pv * tested)))
@@ -292,15 +295,18 @@ def _needs_search(comparison: Comparison) -> bool:
 def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: frozenset):
     """Release constraints one at a time (see the module docstring)."""
     current, comparison = first, compare(step, first, previous)
-    limit = max(1, math.floor(RELEASE_SHARE * sum(
-        1 for q in first.layout.params if q.group is None and parameter_class(q) == ADDED[step])))
+    n_constraints = sum(1 for q in first.layout.params
+                        if q.group is None and parameter_class(q) == ADDED[step])
+    limit = max(1, math.ceil(RELEASE_SHARE * n_constraints))
     releases: list[Release] = []
     while True:
         if not _needs_search(comparison):
-            return current, releases, released, "the step holds and the difference test does not reject"
+            return current, releases, released, ("the step holds and the difference test "
+                                                 "does not reject")
         if len(releases) >= limit:
             return current, releases, released, (f"the limit of {limit} released constraints "
-                                                 "(a fifth of the step's constraints) was reached")
+                                                 "(a fifth of the step's constraints, rounded "
+                                                 "up) was reached")
         candidates = releasable(current.layout, step, released)
         tests = score_tests(spec, moments, current, step, released, candidates)
         if not tests:
@@ -457,7 +463,7 @@ class InvarianceResult:
                 "rmsea": "multiplied by the square root of the number of groups (Steiger 1998)",
                 "search": (f"score tests on each equality constraint, Bonferroni-adjusted, "
                            f"alpha {ALPHA}; at least {MIN_EQUAL} equal items per construct; "
-                           f"at most a fifth of a step's constraints released"),
+                           f"at most a fifth of a step's constraints (rounded up) released"),
                 "notes": list(self.steps[-1].final.layout.notes),
             },
             "invariance": [self._step_dict(s) for s in self.steps],
