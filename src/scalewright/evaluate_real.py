@@ -1,0 +1,179 @@
+"""Fit one rival model by the method :mod:`scalewright.methods` chose:
+normal-theory or robust ML, on complete rows or by full-information ML over
+the missing-data patterns; then fit indices (with the robust versions),
+standardized solution and warnings, as :func:`scalewright.evaluate.evaluate_normal`
+does for complete data.
+
+* complete data, robust: sandwich standard errors, Satorra–Bentler scaled
+  and adjusted statistics, robust CFI/TLI/RMSEA (:mod:`scalewright.estimate.robust`);
+* missing answers: FIML with standard errors from the observed information,
+  and with ``robust`` the Yuan–Bentler (2000) sandwich and scaled statistics
+  (:mod:`scalewright.estimate.fiml`).
+
+The BLAS is pinned to one thread around the engine, as in ``evaluate.py``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from scalewright.diagnostics import model_warnings
+from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, fit_fiml,
+                                       missing_patterns, pattern_moments, saturated_em,
+                                       yuan_bentler)
+from scalewright.estimate.mcar import little_mcar
+from scalewright.estimate.normal import complete_data_blocks, fit_normal
+from scalewright.estimate.result import Estimate, invert_information
+from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
+from scalewright.indices import FitIndices, fit_indices, independence_chi_square, saturated_loglik
+from scalewright.itemdata import ItemData
+from scalewright.layout import INTERCEPT
+from scalewright.methods import FULL_INFORMATION, ORDINAL, ROBUST, MethodChoice
+from scalewright.modelresult import ModelResult
+from scalewright.specify import build_layout
+from scalewright.standardize import standardize
+
+LABELS = {
+    ("normal", False): "maximum likelihood (normal theory)",
+    ("robust", False): "maximum likelihood with robust (sandwich) standard errors and the "
+                       "Satorra–Bentler scaled test",
+    ("normal", True): "full-information maximum likelihood (normal theory)",
+    ("robust", True): "full-information maximum likelihood with Yuan–Bentler robust standard "
+                      "errors and scaled test",
+}
+
+
+@dataclass(frozen=True)
+class RobustFitIndices(FitIndices):
+    """:class:`FitIndices` plus the robust statistics and indices
+    (JSON keys ``chi_square_scaled``, ``scaling_factor``, ``cfi_robust``,
+    ``tli_robust``, ``rmsea_robust``, ``rmsea_robust_ci90`` …)."""
+
+    chi_square_scaled: float | None
+    scaling_factor: float | None
+    p_value_scaled: float | None
+    chi_square_adjusted: float | None
+    df_adjusted: float | None
+    p_value_adjusted: float | None
+    cfi_robust: float | None
+    tli_robust: float | None
+    rmsea_robust: float | None
+    rmsea_robust_ci90: tuple
+
+    @classmethod
+    def extend(cls, fit: FitIndices, model: RobustTest, baseline: RobustTest, n: int):
+        extra = {**model.to_dict(), **robust_fit_indices(model, baseline, n)}
+        extra["rmsea_robust_ci90"] = tuple(extra["rmsea_robust_ci90"])
+        return cls(**asdict(fit), **extra)
+
+    def to_dict(self) -> dict:
+        d = super().to_dict()
+        d["rmsea_robust_ci90"] = list(self.rmsea_robust_ci90)
+        return d
+
+
+def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
+    """Fit model ``spec`` to the study's answers by the chosen method.
+
+    Parameters
+    ----------
+    spec : ModelSpec
+        The rival model; its items are columns of ``data``.
+    data : ItemData
+        The answers (NaN = missing).
+    choice : MethodChoice
+        From :func:`scalewright.methods.choose_method`; the ordinal route
+        is not handled here.
+
+    Returns
+    -------
+    ModelResult
+        With :class:`RobustFitIndices` as ``fit`` when the estimator is
+        robust, and the item intercepts under ``extra["intercepts"]`` for FIML.
+    """
+    if choice.estimator == ORDINAL:
+        raise ValueError("the ordinal route has its own evaluation; evaluate_with fits "
+                         "normal-theory and robust ML only")
+    x = np.asarray(data.values[:, [data.items.index(it) for it in spec.items]])
+    robust = choice.estimator == ROBUST
+    with threadpool_limits(limits=1, user_api="blas"):
+        if choice.missing_handling == FULL_INFORMATION and np.isnan(x).any():
+            return _full_information(spec, x, robust, data.file.name)
+        return _complete(spec, x[~np.isnan(x).any(axis=1)], robust)
+
+
+def _complete(spec, x: np.ndarray, robust: bool) -> ModelResult:
+    blocks = complete_data_blocks(x)
+    layout = build_layout(spec, blocks[0].cov)
+    theta, record, objective = fit_normal(layout, blocks)
+    _, _, info = objective.value_grad_info(theta)
+    acov, unidentified = invert_information(info, objective.n)
+    loglik = objective.loglik(theta)
+    covs, ns = [b.cov for b in blocks], [b.n for b in blocks]
+    mats = layout.patterns[0].matrices(theta)
+    fit = fit_indices(loglik=loglik, saturated=saturated_loglik(covs, ns), df=layout.df(),
+                      n=objective.n, n_params=layout.n_params + layout.p,
+                      baseline=independence_chi_square(covs, ns), sample_covs=covs,
+                      implied_covs=[mats.implied_cov], weights=ns)
+    if robust and acov is not None:
+        corrected = robust_ml(layout, theta, x, fit.chi_square)
+        acov = corrected.acov
+        fit = RobustFitIndices.extend(fit, corrected.test, baseline_test(x, layout.items),
+                                      objective.n)
+    estimate = Estimate(layout, theta, acov, record, objective.n, loglik,
+                        "robust-ml" if robust else "ml", unidentified, blocks)
+    std = standardize(mats)
+    return ModelResult(spec.name, estimate, fit, std, LABELS[("robust" if robust else "normal",
+                                                              False)],
+                       tuple(model_warnings(estimate, std)))
+
+
+def _full_information(spec, x: np.ndarray, robust: bool, where: str) -> ModelResult:
+    patterns = missing_patterns(x, tuple(spec.items), where)
+    moments = pattern_moments(x, patterns)
+    saturated = saturated_em(moments)
+    fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated)
+    layout, theta, n = fitted.layout, fitted.theta, fitted.n
+    info = fiml_information(layout, theta, x, patterns, moments)
+    acov, unidentified = invert_information(info.observed, n)
+    mats = layout.patterns[0].matrices(theta)
+    fit = fit_indices(loglik=fitted.loglik, saturated=saturated.loglik, df=fitted.df, n=n,
+                      n_params=layout.n_params, baseline=fitted.baseline,
+                      sample_covs=[saturated.cov], implied_covs=[mats.implied_cov], weights=[n])
+    if robust and acov is not None:
+        corrected = yuan_bentler(info, n, fit.chi_square, fitted.df)
+        acov = corrected.acov
+        baseline = baseline_yuan_bentler(x, patterns, moments, saturated)
+        fit = RobustFitIndices.extend(fit, corrected.test, baseline, n)
+    estimate = Estimate(layout, theta, acov, fitted.record, n, fitted.loglik,
+                        "robust-fiml" if robust else "fiml", unidentified,
+                        fitted.objective.blocks)
+    std = standardize(mats)
+    se = estimate.se
+    intercepts = [{"item": prm.a, "estimate": float(theta[k]),
+                   "se": float(se[k]) if np.isfinite(se[k]) else None}
+                  for k, prm in enumerate(layout.params) if prm.kind == INTERCEPT]
+    return ModelResult(spec.name, estimate, fit, std,
+                       LABELS[("robust" if robust else "normal", True)],
+                       tuple(model_warnings(estimate, std)), {"intercepts": intercepts})
+
+
+def missing_data_summary(data: ItemData, items: tuple[str, ...] | None = None) -> dict:
+    """The ``data`` key additions: missing-data patterns, per-item missing
+    rates, and Little's (1988) MCAR test (``None`` without missing answers).
+
+    ``items`` defaults to all of the study's items.
+    """
+    items = tuple(data.items) if items is None else tuple(items)
+    x = np.asarray(data.values[:, [data.items.index(it) for it in items]])
+    with threadpool_limits(limits=1, user_api="blas"):
+        patterns = missing_patterns(x, items, data.file.name)
+        out = patterns.to_dict()
+        test = None
+        if len(patterns.counts) > 1:
+            test = little_mcar(pattern_moments(x, patterns)).to_dict()
+    out["little_mcar"] = test
+    return out

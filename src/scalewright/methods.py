@@ -1,0 +1,188 @@
+"""Which estimation method and which handling of missing answers a study gets.
+
+The model file may fix both (``estimation: method:`` auto | normal | robust |
+ordinal and ``estimation: missing:`` auto | full-information | listwise); on
+``auto`` the data decide, by rules stated in the report:
+
+* **ordinal** when an item is declared ordinal, or (``treat_as: auto``) has
+  four or fewer answer categories: with so few categories, treating answers
+  as continuous biases loadings and fit, while with five or more robust ML
+  performs about as well as categorical methods (Rhemtulla, Brosseau-Liard &
+  Savalei 2012).
+* otherwise **robust** ML when the answers are clearly non-normal: an item
+  with |skewness| above 2 or excess kurtosis above 7 (Curran, West & Finch
+  1996), or Mardia's (1970) multivariate kurtosis test significant at .05;
+* otherwise **normal-theory** ML.
+
+Missing answers: full-information ML whenever any answer is missing, which
+assumes the answers are missing at random (Rubin 1976; Enders & Bandalos
+2001 show it beats listwise deletion then); the ordinal route uses all
+complete pairs (pairwise), because its polychoric correlations are estimated
+pair by pair.
+
+References
+----------
+Rhemtulla, M., Brosseau-Liard, P. E. & Savalei, V. (2012). When can
+categorical variables be treated as continuous? Psychological Methods 17,
+354–373.
+Curran, P. J., West, S. G. & Finch, J. F. (1996). The robustness of test
+statistics to nonnormality and specification error in confirmatory factor
+analysis. Psychological Methods 1, 16–29.
+Mardia, K. V. (1970). Measures of multivariate skewness and kurtosis with
+applications. Biometrika 57, 519–530.
+Rubin, D. B. (1976). Inference and missing data. Biometrika 63, 581–592.
+Enders, C. K. & Bandalos, D. L. (2001). The relative performance of full
+information maximum likelihood estimation for missing data in structural
+equation models. Structural Equation Modeling 8, 430–457.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from scalewright.errors import StudyError
+from scalewright.itemdata import ItemData
+from scalewright.screening import screen
+from scalewright.studyfile import Study
+
+NORMAL, ROBUST, ORDINAL = "normal", "robust", "ordinal"
+FULL_INFORMATION, LISTWISE, PAIRWISE, NONE = "full-information", "listwise", "pairwise", "none"
+
+#: at most this many answer categories makes an item ordinal under treat_as: auto
+ORDINAL_MAX_CATEGORIES = 4
+#: Curran, West & Finch (1996): beyond these, ML statistics break down
+SKEW_LIMIT, KURTOSIS_LIMIT = 2.0, 7.0
+#: level of Mardia's kurtosis test
+MARDIA_ALPHA = 0.05
+
+
+@dataclass(frozen=True)
+class MethodChoice:
+    """The method, the handling of missing answers, and why, in sentences for the report."""
+
+    estimator: str                  # normal | robust | ordinal
+    missing_handling: str           # full-information | listwise | pairwise | none
+    reasons: tuple[str, ...]
+    ordinal_items: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {"estimator": self.estimator, "missing_handling": self.missing_handling,
+                "reasons": list(self.reasons), "ordinal_items": list(self.ordinal_items)}
+
+
+def choose_method(study: Study, data: ItemData) -> MethodChoice:
+    """Decide the estimator and the missing-answer handling (rules in the module docstring).
+
+    Raises
+    ------
+    StudyError
+        When the model file asks for full-information ML together with the
+        ordinal method, which estimates its correlations pair by pair.
+    """
+    screening = screen(data)
+    stats = {s.item: s for s in screening.items}
+    used = [it for it in data.items if it in study.items]
+    ordinal = tuple(it for it in used if study.items[it].treat_as == ORDINAL or (
+        study.items[it].treat_as == "auto" and stats[it].n_distinct <= ORDINAL_MAX_CATEGORIES))
+    reasons: list[str] = []
+    estimator = _estimator(study, screening, stats, used, ordinal, reasons)
+    missing = _missing(study, data, estimator, reasons)
+    return MethodChoice(estimator, missing, tuple(reasons),
+                        ordinal if estimator == ORDINAL else ())
+
+
+def _estimator(study, screening, stats, used, ordinal, reasons) -> str:
+    asked = study.estimation.method
+    if asked != "auto":
+        reasons.append(f"The model file sets the estimation method to '{asked}' "
+                       f"({study.place_of('estimation', 'method')}).")
+        if asked != ORDINAL and ordinal:
+            reasons.append(f"{_list(ordinal)} {'has' if len(ordinal) == 1 else 'have'} four or "
+                           f"fewer answer categories or {'is' if len(ordinal) == 1 else 'are'} "
+                           f"declared ordinal, but {'it is' if len(ordinal) == 1 else 'they are'} "
+                           "treated as continuous as the model file asks.")
+        return asked
+    if ordinal:
+        reasons.append(
+            f"{_list(ordinal)} {'is' if len(ordinal) == 1 else 'are'} treated as ordinal (declared "
+            f"so, or with {ORDINAL_MAX_CATEGORIES} or fewer answer categories): with so few "
+            "categories, treating answers as continuous biases the results, while with five or "
+            "more robust maximum likelihood does about as well (Rhemtulla, Brosseau-Liard & "
+            "Savalei 2012). The items are analysed by their polychoric correlations.")
+        return ORDINAL
+    skewed = [it for it in used if abs(_finite(stats[it].skewness)) > SKEW_LIMIT
+              or _finite(stats[it].excess_kurtosis) > KURTOSIS_LIMIT]
+    mardia = screening.mardia
+    mardia_rejects = mardia is not None and mardia.kurtosis_p < MARDIA_ALPHA
+    if skewed or mardia_rejects:
+        evidence = []
+        if skewed:
+            evidence.append(f"{_list(skewed)} {'has' if len(skewed) == 1 else 'have'} "
+                            f"|skewness| above {SKEW_LIMIT:g} or excess kurtosis above "
+                            f"{KURTOSIS_LIMIT:g}, where normal-theory statistics break down "
+                            "(Curran, West & Finch 1996)")
+        if mardia_rejects:
+            evidence.append(f"Mardia's (1970) multivariate kurtosis test rejects normality "
+                            f"(z = {mardia.kurtosis_z:.2f}, p = {_p(mardia.kurtosis_p)})")
+        reasons.append("The answers are not normally distributed: " + "; ".join(evidence) +
+                       ". The estimates are maximum likelihood, with robust (sandwich) standard "
+                       "errors and a chi-square corrected for non-normality (Satorra & Bentler "
+                       "1994; Yuan & Bentler 2000 with missing answers).")
+        return ROBUST
+    reasons.append(f"No item has |skewness| above {SKEW_LIMIT:g} or excess kurtosis above "
+                   f"{KURTOSIS_LIMIT:g} (Curran, West & Finch 1996)"
+                   + (" and Mardia's (1970) multivariate kurtosis test does not reject "
+                      "normality" if mardia is not None else "")
+                   + ", so normal-theory maximum likelihood is used.")
+    return NORMAL
+
+
+def _missing(study, data, estimator, reasons) -> str:
+    asked = study.estimation.missing
+    n_missing = int(np.isnan(data.values).sum())
+    if n_missing == 0:
+        reasons.append("No answers are missing, so every respondent is used.")
+        return NONE
+    rate = n_missing / data.values.size
+    share = f"{rate:.1%} of the answers are missing"
+    if estimator == ORDINAL:
+        if asked == FULL_INFORMATION:
+            raise StudyError(
+                f"{study.place_of('estimation', 'missing')}: 'missing: full-information' cannot "
+                "be combined with the ordinal method, which estimates the polychoric "
+                "correlations pair by pair from everyone who answered both items. Write "
+                "missing: auto (pairwise) or missing: listwise, or choose method: robust.")
+        if asked == LISTWISE:
+            reasons.append(f"{share}; as the model file asks, only respondents who answered "
+                           "every item are used (listwise deletion).")
+            return LISTWISE
+        reasons.append(f"{share}; each polychoric correlation uses everyone who answered both "
+                       "items (pairwise), which assumes the answers are missing completely at "
+                       "random.")
+        return PAIRWISE
+    if asked == LISTWISE:
+        reasons.append(f"{share}; as the model file asks, only respondents who answered every "
+                       "item are used (listwise deletion), which assumes the answers are "
+                       "missing completely at random and discards information.")
+        return LISTWISE
+    reasons.append(f"{share}; every answer given is used by full-information maximum likelihood "
+                   "(Arbuckle 1996), which assumes the answers are missing at random: whether "
+                   "an answer is missing may depend on the answers a person gave, but not on the "
+                   "answer they withheld (Rubin 1976). Little's (1988) test below checks the "
+                   "stronger assumption that they are missing completely at random.")
+    return FULL_INFORMATION
+
+
+def _finite(x: float) -> float:
+    return x if np.isfinite(x) else 0.0
+
+
+def _p(p: float) -> str:
+    return "< .001" if p < 0.001 else f"{p:.3f}".lstrip("0")
+
+
+def _list(names) -> str:
+    quoted = [f"'{n}'" for n in names]
+    return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
