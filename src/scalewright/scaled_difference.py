@@ -73,20 +73,29 @@ def nested_difference(constrained_layout, constrained_theta, constrained_test: R
                       general_layout, general_test: RobustTest,
                       x: np.ndarray) -> ScaledDifference:
     """Scaled difference test of two nested models fitted by robust ML on
-    complete data ``x`` (columns in the layouts' item order).
-
-    The 2001 statistic is returned unless its ``c_d`` is not positive; then
-    model 1 is fitted by ML to model 0's implied covariance matrix (which it
-    reproduces exactly because the models are nested), its scaling factor
-    ``c₁₀`` is computed there, and the 2010 statistic is returned.
-    """
-    t0, d0, c0 = constrained_test.chi_square, constrained_test.df, constrained_test.scaling_factor
-    t1, d1, c1 = general_test.chi_square, general_test.df, general_test.scaling_factor
-    first = scaled_difference(t0, d0, c0, t1, d1, c1)
+    complete data ``x`` (columns in the layouts' item order): the 2001
+    statistic, or the 2010 one (:func:`strictly_positive_difference`) when
+    the 2001 ``c_d`` is not positive."""
+    first = scaled_difference(constrained_test.chi_square, constrained_test.df,
+                              constrained_test.scaling_factor, general_test.chi_square,
+                              general_test.df, general_test.scaling_factor)
     if first.scaling_factor > 0:
         return first
+    return strictly_positive_difference(constrained_layout, constrained_theta, constrained_test,
+                                        general_layout, general_test, x)
+
+
+def strictly_positive_difference(constrained_layout, constrained_theta,
+                                 constrained_test: RobustTest, general_layout,
+                                 general_test: RobustTest, x: np.ndarray) -> ScaledDifference:
+    """The Satorra & Bentler (2010) version: model 1 is fitted by ML to model
+    0's implied covariance matrix, which it reproduces exactly because the
+    models are nested; its scaling factor there, ``c₁₀``, replaces ``c₁``."""
     implied = constrained_layout.patterns[0].matrices(constrained_theta).implied_cov
     block = Block(0, np.arange(implied.shape[0]), len(x), implied, x.mean(axis=0))
     theta10, _, _ = fit_normal(general_layout, (block,))
-    c10 = robust_ml(general_layout, theta10, x, t1, adjusted=False).test.scaling_factor
-    return scaled_difference(t0, d0, c0, t1, d1, c10, SB2010)
+    c10 = robust_ml(general_layout, theta10, x, general_test.chi_square,
+                    adjusted=False).test.scaling_factor
+    return scaled_difference(constrained_test.chi_square, constrained_test.df,
+                             constrained_test.scaling_factor, general_test.chi_square,
+                             general_test.df, c10, SB2010)
