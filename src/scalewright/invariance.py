@@ -493,7 +493,8 @@ class InvarianceResult:
         param = r.test.param
         item = param.b if param.kind in (LOADING, PATH) else param.a
         kind = _KIND_WORDS.get(param.kind, "residual variance")
-        layout, theta = r.fit_after.layout, r.fit_after.estimate.theta
+        final = next(s.final for s in self.steps if s.step == r.step)
+        layout, theta = final.layout, final.estimate.theta
         where = {q: k for k, q in enumerate(layout.params)}
         estimates = {label: float(theta[where[replace(param, group=label)]])
                      for label in self.labels}
