@@ -136,14 +136,18 @@ class Comparison:
     def text(self, step: str) -> str:
         what = {METRIC: "Equal loadings", SCALAR: "Equal intercepts",
                 "strict": "Equal residual variances"}[step]
-        verdict = "hold" if self.holds else "do not hold"
+        met = [c.source for c in self.conventions if c.met]
+        unmet = [c.source for c in self.conventions if not c.met]
+        verdict = ("hold by every convention" if not unmet else
+                   "do not hold by any convention" if not met else
+                   f"hold by {' and '.join(met)} but not by {' and '.join(unmet)}")
         rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
                           for c in self.conventions)
         verb = "rejects" if self.rejects else "does not reject"
         test = (f"The chi-square difference test {verb} equality "
                 f"(Δχ² = {self.chi_square:.2f} on {self.df} df, p = {self.p_value:.3g}).")
-        return (f"{what} {verdict} by the published conventions ({rules}); these are rules "
-                f"of thumb, not tests. {test}")
+        return (f"{what} {verdict} ({rules}); these published conventions are rules of "
+                f"thumb, not tests. {test}")
 
     def to_dict(self, step: str) -> dict:
         return {"delta": dict(self.delta),
@@ -500,7 +504,8 @@ class InvarianceResult:
                      for label in self.labels}
         wording = self.wording.get(item)
         return {"step": r.step, "kind": kind, "item": item, "wording": wording,
-                "construct": param.a if param.kind in (LOADING, PATH) else None,
+                "construct": param.a if param.kind in (LOADING, PATH) else
+                final.layout.primary.get(item),
                 "text": f"The {kind} of item '{item}'"
                         + (f" (“{wording}”)" if wording else "")
                         + " differs between groups and is estimated separately in each.",
