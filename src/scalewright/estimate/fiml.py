@@ -124,7 +124,7 @@ class Patterns:
             "n_complete": int(self.counts[self.masks.all(axis=1)].sum()),
             "n_no_answer": self.n_empty,
             "items": [{"item": it, "n_answered": int(answered[j]),
-                       "rate_missing": float(1.0 - answered[j] / n_rows)}
+                       "rate_missing": float((n_rows - answered[j]) / n_rows)}
                       for j, it in enumerate(self.items)],
             "patterns": [{"missing": [it for it, m in zip(self.items, self.masks[k]) if not m],
                           "n": int(self.counts[k])} for k in order],
