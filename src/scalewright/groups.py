@@ -79,7 +79,7 @@ class GroupedData:
         that answer every item (listwise)."""
         if not full_information:
             keep = self.complete
-            return complete_moments(self.labels, self.values[keep], self.index[keep])
+            return complete_moments(self.labels, self.values[keep], self.index[keep], self.items)
         blocks, means, covs, ns = [], [], [], []
         saturated, independent = 0.0, 0.0
         for g in range(len(self.labels)):
@@ -96,7 +96,9 @@ class GroupedData:
         p = len(self.items)
         baseline = (2.0 * (saturated - independent), len(self.labels) * p * (p - 1) // 2)
         return GroupMoments(self.labels, tuple(ns), tuple(means), tuple(covs), tuple(blocks),
-                            saturated, baseline, full_information=True)
+                            saturated, baseline, full_information=True,
+                            values=tuple(self.values[self.index == g]
+                                         for g in range(len(self.labels))), items=self.items)
 
     def dropped(self, full_information: bool) -> dict:
         """Rows left out, by reason (for the report)."""

@@ -82,13 +82,15 @@ import numpy as np
 from scipy import stats
 from threadpoolctl import threadpool_limits
 
-from scalewright.estimate.normal import NormalFit
+from scalewright.estimate.normal import Block, NormalFit, fit_normal
 from scalewright.groups import split_groups
+from scalewright.methods import LISTWISE, ORDINAL, ROBUST, choose_method
 from scalewright.layout import CONSTRUCT, INTERCEPT, LATENT_MEAN, LOADING, PATH, Layout, Param
 from scalewright.multigroup import (ADDED, CONFIGURAL, INTERCEPTS, LOADINGS, METRIC, RESIDUALS,
                                     SCALAR, SHARED, STEPS, GroupFit, GroupMoments,
                                     build_multigroup_layout, carry_start, fit_multigroup,
-                                    parameter_class)
+                                    parameter_class, robust_test)
+from scalewright.scaled_difference import SB2010, ScaledDifference, scaled_difference
 from scalewright.standardize import delta_method_se
 
 ALPHA = 0.05
@@ -120,10 +122,12 @@ class Comparison:
     """A step's model against the previous step's final model."""
 
     delta: dict                 # cfi, rmsea, srmr (this step minus the previous)
-    chi_square: float
+    chi_square: float           # the difference statistic: scaled when the fits are robust
     df: int
     p_value: float
     conventions: tuple[Convention, ...]
+    scaled: ScaledDifference | None = None
+    chi_square_ml: float | None = None    # the unscaled ML difference, when scaled
 
     @property
     def holds(self) -> bool:
@@ -144,7 +148,9 @@ class Comparison:
         rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
                           for c in self.conventions)
         verb = "rejects" if self.rejects else "does not reject"
-        test = (f"The chi-square difference test {verb} equality "
+        kind = "scaled chi-square difference test" if self.scaled else \
+            "chi-square difference test"
+        test = (f"The {kind} {verb} equality "
                 f"(Δχ² = {self.chi_square:.2f} on {self.df} df, p = {self.p_value:.3g}).")
         return (f"{what} {verdict} ({rules}); these published conventions are rules of "
                 f"thumb, not tests. {test}")
@@ -152,7 +158,10 @@ class Comparison:
     def to_dict(self, step: str) -> dict:
         return {"delta": dict(self.delta),
                 "difference_test": {"chi_square": self.chi_square, "df": self.df,
-                                    "p_value": self.p_value, "scaled": False},
+                                    "p_value": self.p_value, "scaled": self.scaled is not None}
+                | ({} if self.scaled is None else
+                   {"scaling_factor": self.scaled.scaling_factor, "method": self.scaled.method,
+                    "chi_square_ml": self.chi_square_ml}),
                 "decision": {"holds": self.holds, "difference_test_rejects": self.rejects,
                              "conventions": [c.to_dict() for c in self.conventions],
                              "text": self.text(step)}}
@@ -173,15 +182,44 @@ def conventions(added: str, delta: dict, n: int) -> tuple[Convention, ...]:
                                                       delta["srmr"] >= srmr_rise))))
 
 
-def compare(step: str, fit: GroupFit, previous: GroupFit) -> Comparison:
-    """Difference test and conventions for ``fit`` (step ``step``) against ``previous``."""
-    new, old = fit.fit, previous.fit
-    delta = {"cfi": new.cfi - old.cfi, "rmsea": new.rmsea - old.rmsea, "srmr": new.srmr - old.srmr}
-    chi2 = max(new.chi_square - old.chi_square, 0.0)
-    df = new.df - old.df
-    p = float(stats.chi2.sf(chi2, df)) if df > 0 else float("nan")
-    return Comparison(delta, float(chi2), int(df), p,
-                      conventions(ADDED[step], delta, fit.estimate.n))
+def compare(step: str, fit: GroupFit, previous: GroupFit, moments: GroupMoments) -> Comparison:
+    """Difference test and conventions for ``fit`` (step ``step``) against
+    ``previous``.  When both are robust fits, the difference test is the
+    Satorra & Bentler (2001) scaled difference, or their 2010 version when
+    the 2001 scaling factor is not positive (:mod:`scalewright.scaled_difference`),
+    and the changes in CFI and RMSEA are those of the robust indices."""
+    delta = {"cfi": fit.cfi - previous.cfi, "rmsea": fit.rmsea - previous.rmsea,
+             "srmr": fit.fit.srmr - previous.fit.srmr}
+    chi2_ml = max(fit.fit.chi_square - previous.fit.chi_square, 0.0)
+    df = fit.fit.df - previous.fit.df
+    rules = conventions(ADDED[step], delta, fit.estimate.n)
+    if fit.robust is None or previous.robust is None:
+        p = float(stats.chi2.sf(chi2_ml, df)) if df > 0 else float("nan")
+        return Comparison(delta, float(chi2_ml), int(df), p, rules)
+    scaled = scaled_difference(fit.fit.chi_square, fit.fit.df, fit.robust.test.scaling_factor,
+                               previous.fit.chi_square, previous.fit.df,
+                               previous.robust.test.scaling_factor)
+    if not scaled.scaling_factor > 0:
+        scaled = scaled_difference(fit.fit.chi_square, fit.fit.df,
+                                   fit.robust.test.scaling_factor, previous.fit.chi_square,
+                                   previous.fit.df, _scaling_at(fit, previous, moments), SB2010)
+    return Comparison(delta, max(scaled.chi_square, 0.0), scaled.df, scaled.p_value, rules,
+                      scaled, float(chi2_ml))
+
+
+def _scaling_at(fit: GroupFit, previous: GroupFit, moments: GroupMoments) -> float:
+    """``c₁₀`` of Satorra & Bentler (2010): the less constrained model's
+    scaling factor at the constrained model's estimates, found by fitting it
+    to the constrained model's implied moments (which it reproduces, the
+    models being nested)."""
+    implied = tuple(Block(g, np.arange(fit.layout.p), n, m.implied_cov, m.implied_mean)
+                    for g, (n, m) in enumerate(zip(moments.ns, (fit.estimate.matrices(g) for g
+                                                               in range(len(moments.ns))))))
+    with threadpool_limits(limits=1, user_api="blas"):
+        theta10, _, _ = fit_normal(previous.layout, implied, carry_start(fit, previous.layout))
+        test = robust_test(previous.layout, theta10, moments, previous.fit.chi_square,
+                           previous.fit.df).test
+    return test.scaling_factor
 
 
 # --------------------------------------------------------------------------- score tests
@@ -296,9 +334,10 @@ def _needs_search(comparison: Comparison) -> bool:
     return not comparison.holds or comparison.rejects
 
 
-def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: frozenset):
+def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: frozenset,
+            robust: bool):
     """Release constraints one at a time (see the module docstring)."""
-    current, comparison = first, compare(step, first, previous)
+    current, comparison = first, compare(step, first, previous, moments)
     n_constraints = sum(1 for q in first.layout.params
                         if q.group is None and parameter_class(q) == ADDED[step])
     limit = max(1, math.ceil(RELEASE_SHARE * n_constraints))
@@ -324,32 +363,37 @@ def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: 
                 f"χ² = {best.chi_square:.2f}, Bonferroni-adjusted p = {best.p_adjusted:.3g})")
         released = released | {best.param}
         layout = build_multigroup_layout(spec, moments, step, released)
-        current = fit_multigroup(layout, moments, carry_start(current, layout))
-        comparison = compare(step, current, previous)
+        current = fit_multigroup(layout, moments, carry_start(current, layout), robust)
+        comparison = compare(step, current, previous, moments)
         releases.append(Release(step, best, current))
 
 
-def run_sequence(spec, moments: GroupMoments, steps=STEPS) -> tuple[StepResult, ...]:
+def run_sequence(spec, moments: GroupMoments, steps=STEPS,
+                 robust: bool = False) -> tuple[StepResult, ...]:
     """Fit the invariance steps in order, searching for partial invariance
-    where a step fails; released constraints stay released in later steps."""
+    where a step fails; released constraints stay released in later steps.
+    With ``robust``, every fit carries the scaled statistics and the
+    difference tests are scaled (the score tests of the search stay
+    normal-theory)."""
     results = []
     released: frozenset = frozenset()
     previous: GroupFit | None = None
     for step in steps:
         layout = build_multigroup_layout(spec, moments, step, released)
         first = fit_multigroup(layout, moments,
-                               None if previous is None else carry_start(previous, layout))
+                               None if previous is None else carry_start(previous, layout),
+                               robust)
         if previous is None:
             results.append(StepResult(step, first, first, None, None, (), None))
             previous = first
             continue
-        first_comparison = compare(step, first, previous)
+        first_comparison = compare(step, first, previous, moments)
         final, releases, released, stopped = first, [], released, None
         if _needs_search(first_comparison):
             final, releases, released, stopped = _search(spec, moments, step, previous, first,
-                                                         released)
+                                                         released, robust)
         results.append(StepResult(step, first, final, first_comparison,
-                                  compare(step, final, previous), tuple(releases), stopped))
+                                  compare(step, final, previous, moments), tuple(releases), stopped))
         previous = final
     return tuple(results)
 
@@ -442,6 +486,8 @@ class InvarianceResult:
     dropped: dict
     wording: dict            # item -> wording shown to the reader (None when not given)
     full_information: bool
+    robust: bool = False
+    method_note: str = ""
 
     @property
     def released(self) -> tuple[Release, ...]:
@@ -456,10 +502,16 @@ class InvarianceResult:
             "invariance_setup": {
                 "model": self.model, "groups": list(self.labels), "reference": self.labels[0],
                 "n": dict(zip(self.labels, self.ns)), "dropped": dict(self.dropped),
-                "estimator": "maximum likelihood (normal theory)",
+                "estimator": ("robust maximum likelihood (scaled statistics, sandwich "
+                              "standard errors)" if self.robust else
+                              "maximum likelihood (normal theory)"),
+                "method_note": self.method_note,
                 "missing_handling": ("full-information ML (every answer given counts)"
                                      if self.full_information else "listwise deletion"),
-                "standard_errors": "expected information",
+                "standard_errors": ("sandwich" if self.robust else "expected information"),
+                "difference_test": ("scaled, Satorra & Bentler (2001; 2010 when the 2001 "
+                                    "scaling factor is not positive)" if self.robust else
+                                    "likelihood ratio"),
                 "identification": self.identification,
                 "baseline_model": "independence within each group, item means and variances "
                                   "free in every group (the same for every step)",
@@ -481,13 +533,13 @@ class InvarianceResult:
     def _step_dict(self, s: StepResult) -> dict:
         out = {"step": s.step, "equal": list(SHARED[s.step]), "partial": bool(s.releases),
                "converged": bool(s.final.estimate.record.converged),
-               "fit": s.final.fit.to_dict(), "delta": None, "difference_test": None,
+               "fit": s.final.to_dict(), "delta": None, "difference_test": None,
                "decision": {"holds": None, "text": "The configural model is the reference "
                             "point of the sequence: judge its fit like a single-group model."}}
         if s.comparison is not None:
             out |= s.comparison.to_dict(s.step)
         if s.releases:
-            out["before_release"] = {"fit": s.first.fit.to_dict()} | \
+            out["before_release"] = {"fit": s.first.to_dict()} | \
                 s.first_comparison.to_dict(s.step)
         out["search"] = None if s.stopped is None else {
             "released": [self._release_dict(r) for r in s.releases], "stopped": s.stopped}
@@ -512,12 +564,14 @@ class InvarianceResult:
                 "estimates": estimates,
                 "score_test": {"chi_square": r.test.chi_square, "df": r.test.df,
                                "p_value": r.test.p_value, "p_adjusted": r.test.p_adjusted},
-                "fit_after": {k: r.fit_after.fit.to_dict()[k]
-                              for k in ("chi_square", "df", "cfi", "rmsea", "srmr")}}
+                "fit_after": {k: v for k, v in r.fit_after.to_dict().items()
+                              if k in ("chi_square", "df", "cfi", "rmsea", "srmr",
+                                       "chi_square_scaled", "cfi_robust", "rmsea_robust")}}
 
 
 def measurement_invariance(spec, moments: GroupMoments, *, dropped: dict | None = None,
-                           wording: dict | None = None, steps=STEPS) -> InvarianceResult:
+                           wording: dict | None = None, steps=STEPS, robust: bool = False,
+                           method_note: str = "") -> InvarianceResult:
     """Run the whole sequence for one model and compare the latent variables.
 
     Parameters
@@ -532,8 +586,14 @@ def measurement_invariance(spec, moments: GroupMoments, *, dropped: dict | None 
         Item name → wording, used when naming non-invariant items.
     steps : sequence of str
         The steps to fit, in order (default: all four).
+    robust : bool
+        Scaled statistics, robust fit indices, sandwich standard errors and
+        scaled difference tests (:func:`scalewright.multigroup.robust_test`).
+    method_note : str
+        A sentence on the method, for the report (e.g. why it differs from
+        the single-group models').
     """
-    results = run_sequence(spec, moments, steps)
+    results = run_sequence(spec, moments, steps, robust)
     by_step = {s.step: s for s in results}
     latent, note = None, ""
     if SCALAR in by_step and by_step[SCALAR].holds:
@@ -549,15 +609,27 @@ def measurement_invariance(spec, moments: GroupMoments, *, dropped: dict | None 
                 "are not compared across groups.")
     return InvarianceResult(spec.name, moments.labels, moments.ns, spec.identification,
                             results, latent, note, dropped or {}, wording or {},
-                            moments.full_information)
+                            moments.full_information, robust, method_note)
 
 
-def invariance_keys(study, data, spec) -> dict:
+def invariance_keys(study, data, spec, method=None) -> dict:
     """The JSON keys of the invariance check of model ``spec`` across the
-    study's groups (see :meth:`InvarianceResult.to_dict`)."""
+    study's groups (see :meth:`InvarianceResult.to_dict`).
+
+    ``method`` is the study's :class:`~scalewright.methods.MethodChoice`
+    (chosen here when not given).  Robust ML gives scaled statistics and
+    scaled difference tests; missing answers are handled by full-information
+    ML unless the method says listwise.  The ordinal method's thresholds are
+    not part of the invariance check yet: its items are then analysed as
+    continuous with robust ML, and the setup says so.
+    """
+    method = choose_method(study, data) if method is None else method
     grouped = split_groups(study, data, spec.items)
-    full_information = grouped.has_missing and study.estimation.missing != "listwise"
+    full_information = grouped.has_missing and method.missing_handling != LISTWISE
+    robust = method.estimator in (ROBUST, ORDINAL)
+    note = ("The items are treated as continuous here (robust ML): invariance of thresholds "
+            "for ordinal items is not available yet." if method.estimator == ORDINAL else "")
     wording = {name: item.wording for name, item in study.items.items()}
     return measurement_invariance(spec, grouped.moments(full_information),
                                   dropped=grouped.dropped(full_information),
-                                  wording=wording).to_dict()
+                                  wording=wording, robust=robust, method_note=note).to_dict()

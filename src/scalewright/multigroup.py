@@ -73,16 +73,23 @@ Methods 8, 16–37.
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
+from functools import cached_property
 
 import numpy as np
+from scipy import linalg
 from threadpoolctl import threadpool_limits
 
+from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline_yuan_bentler,
+                                       missing_patterns, pattern_moments, saturated_em,
+                                       saturated_information, saturated_scores_gram,
+                                       yuan_bentler)
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
+from scalewright.estimate.robust import RobustML, RobustTest, incidence, robust_fit_indices
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
                                  saturated_loglik)
 from scalewright.layout import (FACTOR_COV, INTERCEPT, LATENT_MEAN, LOADING, PATH,
-                                RESIDUAL_COV, Cells, Layout, Param, Pattern)
+                                RESIDUAL_COV, Cells, Layout, Param, Pattern, cell_derivatives)
 from scalewright.specify import MARKER, build_layout
 
 CONFIGURAL, METRIC, SCALAR, STRICT = "configural", "metric", "scalar", "strict"
@@ -130,6 +137,24 @@ class GroupMoments:
     saturated_loglik: float
     baseline: tuple[float, int]
     full_information: bool = False
+    values: tuple[np.ndarray, ...] = ()   # each group's rows (NaN = no answer), for robust tests
+    items: tuple[str, ...] = ()           # the columns of ``values``
+
+    @cached_property
+    def pattern_parts(self) -> tuple:
+        """Per group: missing-data patterns, their moments and the saturated
+        (EM) fit, which the robust corrections are built from."""
+        parts = []
+        for x in self.values:
+            patterns = missing_patterns(x, self.items, "the data file")
+            moments = pattern_moments(x, patterns)
+            parts.append((patterns, moments, saturated_em(moments)))
+        return tuple(parts)
+
+    @cached_property
+    def baseline_robust(self) -> RobustTest:
+        """The scaled test of the baseline model (:func:`baseline_robust_test`)."""
+        return baseline_robust_test(self)
 
     @property
     def n(self) -> int:
@@ -140,13 +165,18 @@ class GroupMoments:
         return sum(n * s for n, s in zip(self.ns, self.covs)) / self.n
 
 
-def complete_moments(labels, values: np.ndarray, index: np.ndarray) -> GroupMoments:
-    """Moments of complete data (no NaN) split by ``index`` (positions in ``labels``)."""
+def complete_moments(labels, values: np.ndarray, index: np.ndarray,
+                     items: tuple[str, ...] = ()) -> GroupMoments:
+    """Moments of complete data (no NaN, columns ``items``) split by ``index``
+    (positions in ``labels``)."""
     blocks = complete_data_blocks(values, index, len(labels))
     covs = [b.cov for b in blocks]
     ns = [b.n for b in blocks]
     return GroupMoments(tuple(labels), tuple(ns), tuple(b.mean for b in blocks), tuple(covs),
-                        blocks, saturated_loglik(covs, ns), independence_chi_square(covs, ns))
+                        blocks, saturated_loglik(covs, ns), independence_chi_square(covs, ns),
+                        values=tuple(values[index == g] for g in range(len(labels))),
+                        items=tuple(items) or tuple(f"column {j + 1}" for j in
+                                                    range(values.shape[1])))
 
 
 def build_multigroup_layout(spec, moments: GroupMoments, step: str,
@@ -287,15 +317,32 @@ class GroupFit:
     fit: FitIndices
     objective: NormalFit
     ns: tuple[int, ...]          # group sizes, reference first
+    robust: RobustML | None = None
+    robust_indices: dict | None = None
+
+    @property
+    def cfi(self) -> float:
+        """CFI used for decisions: the robust one when the fit is robust."""
+        return self.fit.cfi if self.robust is None else self.robust_indices["cfi_robust"]
+
+    @property
+    def rmsea(self) -> float:
+        """RMSEA used for decisions: the robust one when the fit is robust."""
+        return self.fit.rmsea if self.robust is None else self.robust_indices["rmsea_robust"]
 
     def to_dict(self) -> dict:
-        return self.fit.to_dict()
+        out = self.fit.to_dict()
+        if self.robust is not None:
+            out |= self.robust.test.to_dict() | self.robust_indices
+        return out
 
 
 def fit_multigroup(layout: Layout, moments: GroupMoments,
-                   start: np.ndarray | None = None) -> GroupFit:
+                   start: np.ndarray | None = None, robust: bool = False) -> GroupFit:
     """Fit a multi-group layout by normal-theory ML (BLAS pinned to one thread)
-    and compute its fit indices under the conventions of this module."""
+    and compute its fit indices under the conventions of this module; with
+    ``robust``, also the scaled statistics, robust fit indices and sandwich
+    standard errors (:func:`robust_test`)."""
     blocks = moments.blocks
     with threadpool_limits(limits=1, user_api="blas"):
         theta, record, objective = fit_normal(layout, blocks, start)
@@ -313,7 +360,94 @@ def fit_multigroup(layout: Layout, moments: GroupMoments,
                       groups=len(layout.patterns))
     fit = replace(fit, srmr=srmr_with_means(moments, [x.implied_cov for x in mats],
                                             [x.implied_mean for x in mats]))
-    return GroupFit(layout, estimate, fit, objective, moments.ns)
+    if not robust:
+        return GroupFit(layout, estimate, fit, objective, moments.ns)
+    with threadpool_limits(limits=1, user_api="blas"):
+        corrected = robust_test(layout, theta, moments, fit.chi_square, fit.df)
+    indices = robust_fit_indices(corrected.test, moments.baseline_robust, moments.n,
+                                 groups=len(layout.patterns))
+    estimate = replace(estimate, acov=corrected.acov, method="robust ml")
+    return GroupFit(layout, estimate, fit, objective, moments.ns, corrected, indices)
+
+
+def _group_jacobian(pattern: Pattern, theta: np.ndarray, n_params: int) -> np.ndarray:
+    """``Δ_g = ∂(vech Σ_g, μ_g)/∂θ`` of one group from the rank-two cell derivatives."""
+    a, b, d_mu = cell_derivatives(pattern, pattern.matrices(theta))
+    rows, cols = np.tril_indices(pattern.p)
+    d_sigma = a[rows] * b[cols] + b[rows] * a[cols]
+    return np.vstack([d_sigma, d_mu]) @ incidence(pattern, n_params)
+
+
+def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_square: float,
+                df: int) -> RobustML:
+    """Scaled statistics and sandwich covariance of a multi-group model.
+
+    Within group ``g`` (weight ``w_g = n_g/N``), ``A_g`` is the information
+    per case and ``B_g`` the mean outer product of the casewise scores of the
+    saturated parameters ``β_g = (vech Σ_g, μ_g)`` at the model-implied
+    moments (with missing answers, over each person's answered items;
+    :mod:`scalewright.estimate.fiml`).  ``A_g`` is the expected information
+    for complete data (positive definite even where the model misfits; the
+    observed one need not be) and the observed information with missing
+    answers, where the expected one is not consistent under MAR (Kenward &
+    Molenberghs 1998).  Groups are independent, so for
+    the whole sample ``A_β = ⊕ w_g A_g`` and ``B_β = ⊕ w_g B_g`` (block
+    diagonal), and with ``Δ`` the stacked ``∂β_g/∂θ`` the Yuan–Bentler
+    correction (:func:`scalewright.estimate.fiml.yuan_bentler`) gives
+    ``tr(UΓ) = tr(A_β⁻¹B_β) − tr((ΔᵀA_βΔ)⁻¹ΔᵀB_βΔ)``, the scaling factor
+    ``c = tr(UΓ)/df`` and the sandwich covariance
+    ``(ΔᵀA_βΔ)⁻¹ ΔᵀB_βΔ (ΔᵀA_βΔ)⁻¹ / N`` (the first-order information, which
+    equals the expected information at a model that fits).  With complete
+    data this is the Satorra–Bentler (1994) scaled statistic with the scores
+    taken at the implied moments; with missing answers the Yuan & Bentler
+    (2000) statistic.
+
+    References
+    ----------
+    Kenward, M. G. & Molenberghs, G. (1998). Likelihood based frequentist
+    inference when data are missing at random. Statistical Science 13, 236–247.
+    Satorra, A. & Bentler, P. M. (1994). Corrections to test statistics and
+    standard errors in covariance structure analysis. In von Eye & Clogg
+    (eds.), Latent Variables Analysis, 399–419. Sage.
+    Yuan, K.-H. & Bentler, P. M. (2000). Three likelihood-based methods for
+    mean and covariance structure analysis with nonnormal missing data.
+    Sociological Methodology 30, 165–200.
+    """
+    weights = np.asarray(moments.ns, dtype=float) / moments.n
+    a_blocks, b_blocks, deltas = [], [], []
+    for g, (pattern, (patterns, pm, _)) in enumerate(zip(layout.patterns, moments.pattern_parts)):
+        mats = pattern.matrices(theta)
+        at = pm if moments.full_information else _implied(pm, mats.implied_mean,
+                                                           mats.implied_cov)
+        a_g, _, _ = saturated_information(at, mats.implied_mean, mats.implied_cov)
+        b_g = saturated_scores_gram(moments.values[g], patterns, mats.implied_mean,
+                                    mats.implied_cov)
+        a_blocks.append(weights[g] * a_g)
+        b_blocks.append(weights[g] * b_g)
+        deltas.append(_group_jacobian(pattern, theta, layout.n_params))
+    a_beta, b_beta, delta = linalg.block_diag(*a_blocks), linalg.block_diag(*b_blocks), \
+        np.vstack(deltas)
+    first = delta.T @ a_beta @ delta
+    info = FimlInformation(first, first, delta.T @ b_beta @ delta, a_beta, b_beta, delta)
+    return yuan_bentler(info, moments.n, chi_square, df)
+
+
+def _implied(pm: PatternMoments, mu: np.ndarray, sigma: np.ndarray) -> PatternMoments:
+    """Pattern moments replaced by the implied ones, so that the observed
+    information computed from them is the expected information."""
+    both = pm.masks[:, :, None] & pm.masks[:, None, :]
+    return PatternMoments(pm.masks, pm.counts, mu * pm.masks, sigma[None] * both)
+
+
+def baseline_robust_test(moments: GroupMoments) -> RobustTest:
+    """Scaled test of the multi-group baseline (independence within each
+    group): the groups share no parameter, so ``T``, ``tr(UΓ)`` and
+    ``tr((UΓ)²)`` are sums of the groups' own
+    (:func:`scalewright.estimate.fiml.baseline_yuan_bentler`)."""
+    tests = [baseline_yuan_bentler(x, patterns, pm, saturated)
+             for x, (patterns, pm, saturated) in zip(moments.values, moments.pattern_parts)]
+    return RobustTest(sum(t.chi_square for t in tests), sum(t.df for t in tests),
+                      sum(t.trace for t in tests), sum(t.trace_squared for t in tests))
 
 
 def srmr_with_means(moments: GroupMoments, implied_covs, implied_means) -> float:
