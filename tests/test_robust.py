@@ -20,9 +20,9 @@ import holzinger
 from scalewright.estimate.normal import complete_data_blocks, fit_normal
 from scalewright.estimate.robust import (RobustTest, baseline_test, robust_fit_indices,
                                          robust_ml)
-from scalewright.indices import comparative_fit, fit_indices, independence_chi_square, rmsea, \
-    saturated_loglik
-from scalewright.layout import FACTOR_COV, LOADING
+from scalewright.indices import (comparative_fit, independence_chi_square, rmsea,
+                                 saturated_loglik)
+from scalewright.layout import LOADING
 from scalewright.specify import build_layout
 
 
