@@ -131,6 +131,20 @@ def test_result_converts_to_json_with_the_issue_keys(hs_moments):
                                           "std_difference"}
 
 
+def test_robust_result_reports_scaled_statistics_and_scaled_differences(hs_moments):
+    out = json.loads(json.dumps(measurement_invariance(make_spec(HS_CONSTRUCTS), hs_moments,
+                                                       robust=True).to_dict()))
+    assert out["invariance_setup"]["standard_errors"] == "sandwich"
+    for step in out["invariance"]:
+        assert step["fit"]["scaling_factor"] > 0 and "cfi_robust" in step["fit"]
+    for step in out["invariance"][1:]:
+        test = step["difference_test"]
+        assert test["scaled"] and test["chi_square_ml"] >= 0
+        # Satorra & Bentler (2001): T_d = (T₀ − T₁)/c_d, recomputed from the reported parts
+        np.testing.assert_allclose(test["chi_square"],
+                                   test["chi_square_ml"] / test["scaling_factor"], rtol=1e-12)
+
+
 # --------------------------------------------------------------------------- simulation
 
 ITEMS = tuple(f"y{i}" for i in range(1, 9))
@@ -233,7 +247,7 @@ def test_score_test_follows_chi_square_one_under_invariance():
     assert abs(stats_.mean() - 1.0) < 0.15
 
 
-# --------------------------------------------------------------------------- robust difference tests
+# ------------------------------------------------------------------------- robust difference tests
 
 def test_satorra_bentler_2010_difference_is_close_to_2001_where_both_exist(hs_moments):
     spec = make_spec(HS_CONSTRUCTS)

@@ -350,6 +350,10 @@ def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: 
             return current, releases, released, (f"the limit of {limit} released constraints "
                                                  "(a fifth of the step's constraints, rounded "
                                                  "up) was reached")
+        if current.estimate.acov is None:
+            return current, releases, released, ("the information matrix of the constrained "
+                                                 "model is singular, so no score test can be "
+                                                 "computed")
         candidates = releasable(current.layout, step, released)
         tests = score_tests(spec, moments, current, step, released, candidates)
         if not tests:
@@ -393,7 +397,8 @@ def run_sequence(spec, moments: GroupMoments, steps=STEPS,
             final, releases, released, stopped = _search(spec, moments, step, previous, first,
                                                          released, robust)
         results.append(StepResult(step, first, final, first_comparison,
-                                  compare(step, final, previous, moments), tuple(releases), stopped))
+                                  compare(step, final, previous, moments), tuple(releases),
+                                  stopped))
         previous = final
     return tuple(results)
 

@@ -322,13 +322,17 @@ class GroupFit:
 
     @property
     def cfi(self) -> float:
-        """CFI used for decisions: the robust one when the fit is robust."""
-        return self.fit.cfi if self.robust is None else self.robust_indices["cfi_robust"]
+        """CFI used for decisions: the robust one when the fit is robust (and
+        the robust one is defined)."""
+        robust = None if self.robust is None else self.robust_indices["cfi_robust"]
+        return self.fit.cfi if robust is None else robust
 
     @property
     def rmsea(self) -> float:
-        """RMSEA used for decisions: the robust one when the fit is robust."""
-        return self.fit.rmsea if self.robust is None else self.robust_indices["rmsea_robust"]
+        """RMSEA used for decisions: the robust one when the fit is robust (and
+        the robust one is defined)."""
+        robust = None if self.robust is None else self.robust_indices["rmsea_robust"]
+        return self.fit.rmsea if robust is None else robust
 
     def to_dict(self) -> dict:
         out = self.fit.to_dict()
