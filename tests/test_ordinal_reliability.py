@@ -1,42 +1,23 @@
 """Ordinal alpha and categorical omega (Green & Yang 2009), checked against
-scipy's bivariate normal CDF, Gauss–Hermite quadrature of the true-score
-variance (law of total variance) and seeded simulation from the model."""
+Gauss–Hermite quadrature of the true-score variance (law of total variance)
+and seeded simulation from the model.  The bivariate normal CDF they use is
+the shared one, tested against scipy in tests/test_polychoric.py."""
 
 import numpy as np
 import pandas as pd
 import pingouin
 import pytest
 from numpy.testing import assert_allclose
-from scipy import stats
 from scipy.special import ndtr
 
-from scalewright.ordinal_reliability import (bivariate_normal_cdf, categorical_omega,
-                                             ordinal_alpha, ordinal_score_covariance)
+from scalewright.ordinal_reliability import (categorical_omega, ordinal_alpha,
+                                             ordinal_score_covariance)
 
 #: one-factor ordinal model: five items, unequal numbers of categories, one
-#: threshold exactly at 0 (the h = 0 branch of the CDF)
+#: threshold exactly at 0
 LAMBDA = np.array([0.8, 0.7, 0.6, 0.5, 0.4])
 THRESHOLDS = [[-1.5, -0.5, 0.4, 1.2], [-1.0, 0.0, 1.0], [-0.3], [-2.0, -1.2, -0.2, 0.6],
               [0.2, 1.1]]
-
-
-@pytest.mark.parametrize("rho", [-0.999, -0.93, -0.5, 0.0, 0.3, 0.8, 0.93, 0.999])
-def test_bivariate_normal_cdf_matches_scipy(rho):
-    limits = np.array([-2.5, -1.0, 0.0, 0.3, 1.7])
-    h, k = np.meshgrid(limits, limits)
-    got = bivariate_normal_cdf(h, k, rho)
-    dist = stats.multivariate_normal(mean=[0, 0], cov=[[1, rho], [rho, 1]])
-    expected = np.array([dist.cdf([a, b]) for a, b in zip(h.ravel(), k.ravel())]).reshape(h.shape)
-    # scipy's bivariate CDF is accurate to ~1e-15 here; 1e-10 leaves room
-    assert_allclose(got, expected, atol=1e-10)
-
-
-def test_bivariate_normal_cdf_at_perfect_correlation():
-    h, k = np.array([-0.4, 0.7, 1.2]), np.array([0.5, -0.2, 1.2])
-    # ρ = 1: Y = X, so P = Φ(min(h, k)); ρ = −1: Y = −X, P = max(Φ(h) + Φ(k) − 1, 0)
-    assert_allclose(bivariate_normal_cdf(h, k, 1.0), ndtr(np.minimum(h, k)), rtol=1e-15)
-    assert_allclose(bivariate_normal_cdf(h, k, -1.0),
-                    np.maximum(ndtr(h) + ndtr(k) - 1, 0), atol=1e-15)
 
 
 def test_ordinal_alpha_is_alpha_of_standardized_latent_responses_in_simulation():

@@ -17,48 +17,9 @@ import numpy as np
 from scipy import special
 
 from scalewright.coefficient_types import Note, Record, as_index
+from scalewright.estimate.bivariate_normal import bvn_cdf
 from scalewright.omega import two_item_notes
 from scalewright.reliability import cronbach_alpha
-
-
-def bivariate_normal_cdf(h, k, rho) -> np.ndarray:
-    """``P(X ≤ h, Y ≤ k)`` for standard bivariate normal ``(X, Y)`` with
-    correlation ``rho``; vectorised over broadcast arguments.
-
-    Uses Owen's T function:
-
-    .. math::
-        \\Phi_2(h,k;\\rho) = \\tfrac12\\Phi(h) + \\tfrac12\\Phi(k) - T(h,a_h) - T(k,a_k) - \\beta,
-
-    with ``a_h = (k − ρh)/(h√(1−ρ²))``, ``a_k = (h − ρk)/(k√(1−ρ²))`` and
-    ``β = ½`` when ``hk < 0`` or (``hk = 0`` and ``h + k < 0``), else 0.
-    Special cases: ``h = k = 0`` gives ``¼ + asin(ρ)/(2π)``; ``ρ = 1`` gives
-    ``Φ(min(h, k))`` and ``ρ = −1`` gives ``max(Φ(h) + Φ(k) − 1, 0)``.
-
-    References
-    ----------
-    Owen, D. B. (1956). Tables for computing bivariate normal probabilities.
-    *Annals of Mathematical Statistics*, 27, 1075–1090.
-    """
-    h, k, rho = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (h, k, rho)))
-    out = np.empty(h.shape)
-    edge = np.abs(rho) >= 1.0
-    both_zero = (h == 0) & (k == 0) & ~edge
-    inner = ~edge & ~both_zero
-    hi, ki, ri = h[inner], k[inner], rho[inner]
-    s = np.sqrt(1.0 - ri * ri)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        a_h = np.where(hi == 0, np.copysign(np.inf, ki - ri * hi), (ki - ri * hi) / (hi * s))
-        a_k = np.where(ki == 0, np.copysign(np.inf, hi - ri * ki), (hi - ri * ki) / (ki * s))
-    beta = np.where((hi * ki < 0) | ((hi * ki == 0) & (hi + ki < 0)), 0.5, 0.0)
-    out[inner] = (0.5 * special.ndtr(hi) + 0.5 * special.ndtr(ki)
-                  - special.owens_t(hi, a_h) - special.owens_t(ki, a_k) - beta)
-    out[both_zero] = 0.25 + np.arcsin(rho[both_zero]) / (2.0 * np.pi)
-    plus = edge & (rho > 0)
-    minus = edge & (rho < 0)
-    out[plus] = special.ndtr(np.minimum(h[plus], k[plus]))
-    out[minus] = np.maximum(special.ndtr(h[minus]) + special.ndtr(k[minus]) - 1.0, 0.0)
-    return np.clip(out, 0.0, 1.0)
 
 
 def ordinal_alpha(polychoric: np.ndarray) -> float:
@@ -98,7 +59,9 @@ def ordinal_score_covariance(thresholds: np.ndarray, latent_corr: np.ndarray) ->
         \\operatorname{Cov}(x_i, x_j) = \\sum_{c}\\sum_{c'}\\bigl[\\Phi_2(\\tau_{ic}, \\tau_{jc'};\\rho_{ij})
         - \\Phi(\\tau_{ic})\\Phi(\\tau_{jc'})\\bigr]
 
-    because ``x_i = Σ_c 1(y*_i > τ_ic)``.
+    because ``x_i = Σ_c 1(y*_i > τ_ic)``.  ``Φ₂`` is the project's vectorised
+    bivariate normal CDF (:func:`scalewright.estimate.bivariate_normal.bvn_cdf`,
+    Genz 2004), evaluated on the threshold grid of every item pair at once.
 
     Parameters
     ----------
@@ -114,14 +77,16 @@ def ordinal_score_covariance(thresholds: np.ndarray, latent_corr: np.ndarray) ->
     Green, S. B., & Yang, Y. (2009). Reliability of summed item scores using
     structural equation modeling: An alternative to coefficient alpha.
     *Psychometrika*, 74, 155–167.
+    Genz, A. (2004). Numerical computation of rectangular bivariate and
+    trivariate normal and t probabilities. *Statistics and Computing*, 14,
+    251–260.
     """
     tau = np.asarray(thresholds, dtype=float)
     rho = np.asarray(latent_corr, dtype=float)
     a = tau[:, None, :, None]
     b = tau[None, :, None, :]
     present = ~(np.isnan(a) | np.isnan(b))
-    joint = bivariate_normal_cdf(np.where(present, a, 0.0), np.where(present, b, 0.0),
-                                 rho[:, :, None, None])
+    joint = bvn_cdf(np.where(present, a, 0.0), np.where(present, b, 0.0), rho[:, :, None, None])
     product = special.ndtr(np.where(present, a, 0.0)) * special.ndtr(np.where(present, b, 0.0))
     return np.sum(np.where(present, joint - product, 0.0), axis=(2, 3))
 
