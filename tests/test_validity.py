@@ -9,15 +9,16 @@ import pytest
 from numpy.testing import assert_allclose
 
 import holzinger as hz
-from scalewright.validity import (construct_quality, fornell_larcker, htmt,
-                                  standardized_solution)
+from scalewright.omega import contract_matrices
+from scalewright.standardize import standardize
+from scalewright.validity import construct_quality, fornell_larcker, htmt
 
 NAMES = list(hz.CONSTRUCTS)
 
 
 def hs_quality():
     fit = hz.fit(hz.THREE_FACTOR)
-    std = standardized_solution(fit.loadings, fit.latent_cov, fit.residual_cov)
+    std = standardize(contract_matrices(fit.loadings, fit.latent_cov, fit.residual_cov))
     primary = np.argmax(fit.loadings != 0, axis=1)
     cols = [fit.column(n) for n in NAMES]
     return fit, std, construct_quality(std, primary, cols, fit.factor_names, fit.item_names)
@@ -51,7 +52,7 @@ def test_ave_is_mean_squared_semopy_standardized_loading():
 def test_ave_of_congeneric_items_matches_reference():
     # design/references.md [computed]: loadings .8/.7/.6/.5 → AVE = .435
     lam = np.array([[0.8], [0.7], [0.6], [0.5]])
-    std = standardized_solution(lam, np.eye(1), np.diag(1 - lam[:, 0] ** 2))
+    std = standardize(contract_matrices(lam, np.eye(1), np.diag(1 - lam[:, 0] ** 2)))
     [q] = construct_quality(std, [0, 0, 0, 0], [0], ["c"], list("abcd"))
     assert_allclose(q.ave, 0.435, atol=1e-12)
 
@@ -84,7 +85,7 @@ def test_ave_conventions_are_worded_as_conventions():
 def test_fornell_larcker_rows_on_holzinger():
     fit, std, quality = hs_quality()
     cols = [fit.column(n) for n in NAMES]
-    rows = fornell_larcker([q.ave for q in quality], std.latent_corr[np.ix_(cols, cols)], NAMES)
+    rows = fornell_larcker([q.ave for q in quality], std.latent_correlations[np.ix_(cols, cols)], NAMES)
     assert [(r.construct_a, r.construct_b) for r in rows] == [
         ("visual", "textual"), ("visual", "speed"), ("textual", "speed")]
     # design/references.md [computed with semopy]: .459 .471 .283, 3 decimals

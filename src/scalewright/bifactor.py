@@ -19,8 +19,8 @@ from typing import Sequence
 import numpy as np
 
 from scalewright.coefficient_types import Note, Record, as_index
-from scalewright.omega import coefficient_h, explained_variance
-from scalewright.validity import standardized_solution
+from scalewright.omega import coefficient_h, contract_matrices, explained_variance
+from scalewright.standardize import standardize
 
 #: Factor correlations smaller than this are treated as zero (numerical noise).
 _ORTHOGONAL_TOLERANCE = 1e-8
@@ -144,7 +144,7 @@ def bifactor_coefficients(loadings: np.ndarray, latent_cov: np.ndarray, residual
                                              [general, s]) for j, s in enumerate(groups)])
     group_var = group_var - general_var[1:]
 
-    std = standardized_solution(loadings, latent_cov, residual_cov).loadings
+    std = standardize(contract_matrices(loadings, latent_cov, residual_cov)).loadings
     general_sq = np.sum(std[rows, general] ** 2)
     ecv = general_sq / (general_sq + np.sum((std[:, groups] * member) ** 2))
 
@@ -302,7 +302,7 @@ def higher_order_coefficients(loadings: np.ndarray, latent_cov: np.ndarray,
     coefficients = bifactor_coefficients(sl_loadings, sl_cov, residual_cov, higher, cols,
                                          factor_names=factor_names, item_names=item_names,
                                          items=rows)
-    std = standardized_solution(sl_loadings, sl_cov, residual_cov).loadings
+    std = standardize(contract_matrices(sl_loadings, sl_cov, residual_cov)).loadings
     return HigherOrderResult(
         higher=factor_names[higher],
         constructs=tuple(HigherOrderRow(construct=factor_names[c], variance_explained=float(v),

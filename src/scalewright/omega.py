@@ -10,6 +10,9 @@ Omega is computed from the fitted matrices (contract with the engine):
 * ``residual_cov`` Θ, shape (p, p), including any residual covariances.
 
 so that the model-implied item covariance is ``Σ̂ = ΛΦ*Λᵀ + Θ``.
+:func:`contract_matrices` turns the three into the engine's
+:class:`~scalewright.layout.Matrices`, e.g. for
+:func:`scalewright.standardize.standardize`.
 """
 
 from __future__ import annotations
@@ -20,6 +23,23 @@ from typing import Sequence
 import numpy as np
 
 from scalewright.coefficient_types import Note, Record, as_index
+from scalewright.layout import Matrices
+
+
+def contract_matrices(loadings: np.ndarray, latent_cov: np.ndarray,
+                      residual_cov: np.ndarray) -> Matrices:
+    """Λ, Φ* and Θ as the engine's matrices, with ``B = 0`` and ``Ψ = Φ*``
+    (so that ``Matrices.latent_cov`` is Φ*) and no mean structure.
+
+    A higher-order model keeps its Φ* = (I−B)⁻¹Ψ(I−B)⁻ᵀ; only the implied
+    moments and the standardized loadings, latent correlations and residual
+    variances of the result are meaningful (its ``paths`` are zero).
+    """
+    loadings, latent_cov, residual_cov = (np.asarray(a, dtype=float)
+                                          for a in (loadings, latent_cov, residual_cov))
+    p, m = loadings.shape
+    return Matrices(loadings=loadings, paths=np.zeros((m, m)), disturbances=latent_cov,
+                    residuals=residual_cov, intercepts=np.zeros(p), latent_means=np.zeros(m))
 
 
 def explained_variance(weights: np.ndarray, loadings: np.ndarray, latent_cov: np.ndarray,

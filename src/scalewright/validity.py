@@ -19,6 +19,7 @@ from typing import Sequence
 import numpy as np
 
 from scalewright.coefficient_types import Convention, Note, Record, as_index
+from scalewright.standardize import Standardized
 
 #: Fornell & Larcker (1981): AVE of at least .50 [published]
 AVE_MINIMUM = 0.50
@@ -35,46 +36,6 @@ _NUNNALLY = "Nunnally & Bernstein (1994), Psychometric theory, 3rd ed."
 
 
 @dataclass(frozen=True)
-class StandardizedSolution(Record):
-    """Λ, Φ* and Θ rescaled so that items and latent variables have unit
-    model-implied variance."""
-
-    loadings: np.ndarray
-    latent_corr: np.ndarray
-    residual_cov: np.ndarray
-
-
-def standardized_solution(loadings: np.ndarray, latent_cov: np.ndarray,
-                          residual_cov: np.ndarray) -> StandardizedSolution:
-    """Standardize a fitted solution by the model-implied variances.
-
-    .. math::
-        \\Lambda^s = D_\\Sigma^{-1/2}\\,\\Lambda\\,D_\\Phi^{1/2},\\quad
-        R_\\Phi = D_\\Phi^{-1/2}\\Phi^* D_\\Phi^{-1/2},\\quad
-        \\Theta^s = D_\\Sigma^{-1/2}\\,\\Theta\\,D_\\Sigma^{-1/2}
-
-    with ``D_Σ = diag(ΛΦ*Λᵀ + Θ)`` and ``D_Φ = diag(Φ*)``.  The item
-    variances are the model-implied ones (not the sample ones), so that a
-    standardized loading squared plus the standardized residual variance is
-    exactly 1 for an item on one construct.
-
-    References
-    ----------
-    Bollen, K. A. (1989). *Structural equations with latent variables*.
-    Wiley, p. 349 (completely standardized solution).
-    """
-    loadings, latent_cov, residual_cov = (np.asarray(a, dtype=float)
-                                          for a in (loadings, latent_cov, residual_cov))
-    item_sd = np.sqrt(np.einsum("ij,jk,ik->i", loadings, latent_cov, loadings)
-                      + np.diag(residual_cov))
-    latent_sd = np.sqrt(np.diag(latent_cov))
-    return StandardizedSolution(
-        loadings=loadings * latent_sd[None, :] / item_sd[:, None],
-        latent_corr=latent_cov / np.outer(latent_sd, latent_sd),
-        residual_cov=residual_cov / np.outer(item_sd, item_sd))
-
-
-@dataclass(frozen=True)
 class ConstructQuality(Record):
     """AVE and composite reliability of one construct, with conventions."""
 
@@ -86,7 +47,7 @@ class ConstructQuality(Record):
     conventions: tuple[Convention, ...]
 
 
-def construct_quality(standardized: StandardizedSolution, primary: Sequence[int],
+def construct_quality(standardized: Standardized, primary: Sequence[int],
                       constructs: Sequence[int], factor_names: Sequence[str],
                       item_names: Sequence[str]) -> tuple[ConstructQuality, ...]:
     """AVE and composite reliability of each construct in ``constructs``.
@@ -109,6 +70,21 @@ def construct_quality(standardized: StandardizedSolution, primary: Sequence[int]
     Conventions returned: AVE ≥ .50 (Fornell & Larcker 1981);
     CR ≥ .70 (Nunnally & Bernstein 1994, recalled).
 
+    Parameters
+    ----------
+    standardized : Standardized
+        The completely standardized solution,
+        :func:`scalewright.standardize.standardize` of the fitted matrices
+        (``ModelResult.std``), or of
+        :func:`scalewright.omega.contract_matrices` for a given Λ, Φ*, Θ;
+        its ``loadings`` and ``residual_variances`` are used.
+    primary : sequence of int, length p
+        Column of each item's primary construct, -1 for none.
+    constructs : sequence of int
+        Construct columns to evaluate.
+    factor_names, item_names : sequence of str
+        Names of all latent columns and of all items.
+
     References
     ----------
     Fornell, C., & Larcker, D. F. (1981). Evaluating structural equation
@@ -120,7 +96,7 @@ def construct_quality(standardized: StandardizedSolution, primary: Sequence[int]
     cols = as_index(constructs, lam_all.shape[1], "constructs")
     member = primary[:, None] == cols[None, :]                       # (p, K)
     lam = np.where(member, lam_all[:, cols], 0.0)
-    theta = np.diag(np.asarray(standardized.residual_cov))
+    theta = np.asarray(standardized.residual_variances)
     counts = member.sum(axis=0)
     sum_lam = lam.sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
