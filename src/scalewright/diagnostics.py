@@ -90,8 +90,13 @@ def unidentified_message(estimate: Estimate) -> str:
                   "with other constructs; if those are near zero, give it a third item or fix "
                   "its two loadings equal.")
     kinds = sorted({p.kind.replace("_", " ") for p in involved})
-    return ("The information matrix is singular: the model is not identified, so standard "
-            f"errors cannot be computed. The parameters involved are {', '.join(kinds)} "
+    if estimate.acov is None:
+        opening = ("The information matrix is singular: the model is not identified, so "
+                   "standard errors cannot be computed.")
+    else:
+        opening = ("The information matrix is nearly singular (the model is identified only "
+                   "empirically, barely): standard errors are unstable.")
+    return (f"{opening} The parameters involved are {', '.join(kinds)} "
             f"parameters of {names}.{detail} Check the construct's items and any "
             "cross-loadings or residual covariances declared for them.")
 

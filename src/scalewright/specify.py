@@ -23,6 +23,7 @@ Reise, S. P. (2012). The rediscovery of bifactor measurement models.
 Multivariate Behavioral Research 47, 667–696.
 Bollen, K. A. (1989). Structural Equations with Latent Variables. Wiley, ch. 7
 (identification and scaling of latent variables).
+Harman, H. H. (1976). Modern Factor Analysis (3rd ed.). University of Chicago Press.
 """
 
 from __future__ import annotations
@@ -73,7 +74,8 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
         if marker:
             ref = _marker_item(spec, f)
             if ref is not None:   # a higher-order factor is scaled below, through its first construct
-                variance[f] = (std.loading[(f, ref)] * sd[row[ref]]) ** 2
+                marker_loading = max(abs(std.loading[(f, ref)]), 0.2)   # keep a weak marker's scale finite
+                variance[f] = (marker_loading * sd[row[ref]]) ** 2
         else:
             variance[f] = 1.0
     for h, cs in spec.higher_order.items():
@@ -159,9 +161,10 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
     row = {item: i for i, item in enumerate(items)}
     out = _StandardizedStart()
     communality = np.zeros(len(items))
+    marker = spec.identification == MARKER
     for c, its in spec.constructs.items():
         idx = [row[i] for i in its]
-        lam = _one_factor_loadings(corr[np.ix_(idx, idx)])
+        lam = _one_factor_loadings(corr[np.ix_(idx, idx)], positive_first=marker)
         if spec.general:
             lam = lam * 0.5
         for item, value in zip(its, lam):
@@ -171,7 +174,7 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
         for item in its:
             out.loading[(c, item)] = 0.0
     if spec.general:
-        lam = _one_factor_loadings(corr) * 0.85
+        lam = _one_factor_loadings(corr, positive_first=marker) * 0.85
         for item, value in zip(items, lam):
             out.loading[(spec.general, item)] = value
         communality += lam ** 2
@@ -187,18 +190,28 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
             lb = np.array([out.loading[(b, i)] for i in spec.constructs[b]])
             r = np.mean(corr[np.ix_(ia, ib)] / np.outer(la, lb))
             out.correlation[(a, b)] = float(np.clip(r, -0.9, 0.9))
-    for h, cs in spec.higher_order.items():
-        for c in cs:
-            others = [out.correlation.get((c, d), out.correlation.get((d, c), 0.0))
-                      for d in cs if d != c]
-            out.higher[(h, c)] = float(np.sqrt(np.clip(np.mean(np.abs(others)), 0.1, 0.8)))
     _shrink_to_positive_definite(out, names)
+    for h, cs in spec.higher_order.items():
+        # paths: one-factor loadings of the constructs' correlation matrix
+        phi = np.eye(len(cs))
+        for x in range(len(cs)):
+            for y in range(x):
+                r = out.correlation.get((cs[x], cs[y]), out.correlation.get((cs[y], cs[x]), 0.0))
+                phi[x, y] = phi[y, x] = r
+        gamma = _one_factor_loadings(phi, positive_first=marker)
+        gamma = np.sign(gamma + 1e-12) * np.clip(np.abs(gamma), 0.3, 0.9)
+        for c, g in zip(cs, gamma):
+            out.higher[(h, c)] = float(g)
     return out
 
 
-def _one_factor_loadings(r: np.ndarray) -> np.ndarray:
+def _one_factor_loadings(r: np.ndarray, positive_first: bool = False) -> np.ndarray:
     """One-step principal-axis loadings: first eigenpair of ``R`` with squared
-    multiple correlations on the diagonal (Harman 1976, ch. 8)."""
+    multiple correlations on the diagonal (Harman 1976, ch. 8).
+
+    The sign is chosen so that most loadings are positive, or, with
+    ``positive_first`` (marker scaling, where the first loading is fixed at
+    +1), so that the first one is."""
     k = r.shape[0]
     if k == 1:
         return np.array([0.7])
@@ -213,7 +226,7 @@ def _one_factor_loadings(r: np.ndarray) -> np.ndarray:
     np.fill_diagonal(reduced, np.clip(smc, 0.05, 0.95))
     values, vectors = np.linalg.eigh(reduced)
     lam = vectors[:, -1] * np.sqrt(max(values[-1], 1e-3))
-    if lam.sum() < 0:
+    if (lam[0] if positive_first else lam.sum()) < 0:
         lam = -lam
     return np.clip(lam, -0.95, 0.95)
 

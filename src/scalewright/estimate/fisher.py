@@ -10,7 +10,9 @@ satisfies the secant equation ``B s = y``, and ``C = B − I(θ_new)``.  Plain
 Fisher scoring (Jennrich & Sampson 1976) converges only linearly when the
 model does not fit exactly, because the expected information then differs
 from the Hessian by a term proportional to the misfit; the correction learns
-that term and restores fast convergence.
+that term and restores fast convergence.  The correction is dropped
+whenever it makes the matrix indefinite or a full step fails the line
+search, so the method never does worse than plain Fisher scoring for long.
 
 References
 ----------
@@ -28,6 +30,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
+from scipy import linalg
 
 
 @dataclass(frozen=True)
@@ -68,6 +71,11 @@ def fisher_scoring(theta0: np.ndarray,
     correction = np.zeros_like(info)
     for iteration in range(1, max_iter + 1):
         step = _solve(info + correction, grad)
+        if step is None:          # the corrected matrix lost definiteness: drop the correction
+            correction = np.zeros_like(info)
+            step = _solve(info, grad)
+        if step is None:
+            step = np.linalg.lstsq(info, grad, rcond=None)[0]
         slope = float(grad @ step)
         if slope <= 0:   # information not positive definite here: fall back to the gradient
             step, slope = grad.copy(), float(grad @ grad)
@@ -89,7 +97,10 @@ def fisher_scoring(theta0: np.ndarray,
         theta = candidate
         grad_old = grad
         f, grad, info = value_grad_info(theta)
-        correction = _secant_correction(info, correction, s_vec, grad - grad_old)
+        if t < 1.0:               # a shortened step: the correction misled, start it afresh
+            correction = np.zeros_like(info)
+        else:
+            correction = _secant_correction(info, correction, s_vec, grad - grad_old)
         gnorm = float(np.max(np.abs(grad))) if grad.size else 0.0
         small_step = np.max(np.abs(t * step) / (1.0 + np.abs(theta)), initial=0.0) < step_tol
         if gnorm < grad_tol or (small_step and gnorm < 1e-6):
@@ -110,10 +121,10 @@ def _secant_correction(info, correction, s, y):
     return correction - np.outer(bs, bs) / sbs + np.outer(y, y) / ys
 
 
-def _solve(info: np.ndarray, grad: np.ndarray) -> np.ndarray:
+def _solve(matrix: np.ndarray, grad: np.ndarray) -> np.ndarray | None:
+    """``matrix⁻¹ grad`` by Cholesky, or None when the matrix is not positive definite."""
     try:
-        c = np.linalg.cholesky(info)
-    except np.linalg.LinAlgError:
-        return np.linalg.lstsq(info, grad, rcond=None)[0]
-    y = np.linalg.solve(c, grad)
-    return np.linalg.solve(c.T, y)
+        factor = linalg.cho_factor(matrix, lower=True, check_finite=False)
+    except linalg.LinAlgError:
+        return None
+    return linalg.cho_solve(factor, grad, check_finite=False)

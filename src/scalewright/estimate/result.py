@@ -41,26 +41,41 @@ class Estimate:
         return np.sqrt(np.clip(np.diag(self.acov), 0.0, None))
 
 
-def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tuple[int, ...]]:
-    """``(N I)⁻¹``, or ``None`` and the parameters spanning the null space
-    when ``I`` is singular.
+#: smallest eigenvalue of the unit-diagonal information, relative to the largest,
+#: below which the model counts as not identified (no standard errors) …
+SINGULAR = 1e-10
+#: … and below which it counts as nearly so (empirical under-identification)
+NEARLY_SINGULAR = 1e-7
 
-    Singularity is judged on the information rescaled to unit diagonal: an
-    eigenvalue below ``1e-10`` times the largest means that some direction
-    in the parameter space leaves the likelihood unchanged, i.e. the model
-    is not (locally) identified (Rothenberg 1971).
+
+def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tuple[int, ...]]:
+    """``(N I)⁻¹`` and the parameters spanning the (near) null space.
+
+    Judged by the condition ratio, the smallest over the largest eigenvalue
+    of ``I`` rescaled to unit diagonal.  A ratio below :data:`SINGULAR` means that some direction in the
+    parameter space leaves the likelihood unchanged: the model is not
+    (locally) identified (Rothenberg 1971) and no covariance is returned.
+    Below :data:`NEARLY_SINGULAR` the model is identified only through values
+    near a boundary of identification, e.g. a two-item construct whose
+    correlations with the others are close to zero (Rindskopf 1984); the
+    covariance is returned, and the involved parameters are named.
 
     References
     ----------
     Rothenberg, T. J. (1971). Identification in parametric models.
     Econometrica 39, 577–591.
+    Rindskopf, D. (1984). Structural equation models: empirical identification,
+    Heywood cases, and related problems. Sociological Methods & Research 13, 109–119.
     """
     d = np.sqrt(np.clip(np.diag(info), 1e-300, None))
     scaled = info / np.outer(d, d)
     values, vectors = np.linalg.eigh(scaled)
-    if values[0] <= 1e-10 * max(values[-1], 1e-300):
-        null = vectors[:, values <= 1e-10 * values[-1]]
-        involved = np.nonzero(np.max(np.abs(null), axis=1) > 0.1)[0]
-        return None, tuple(int(i) for i in involved)
+    ratio = float(values[0] / max(values[-1], 1e-300))
+    involved: tuple[int, ...] = ()
+    if ratio < NEARLY_SINGULAR:
+        null = vectors[:, values < NEARLY_SINGULAR * values[-1]]
+        involved = tuple(int(i) for i in np.nonzero(np.max(np.abs(null), axis=1) > 0.1)[0])
+    if ratio < SINGULAR:
+        return None, involved
     inv_scaled = (vectors / values) @ vectors.T
-    return inv_scaled / np.outer(d, d) / n, ()
+    return inv_scaled / np.outer(d, d) / n, involved
