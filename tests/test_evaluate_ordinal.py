@@ -235,3 +235,15 @@ def test_indefinite_polychoric_matrix_is_named_and_the_raw_estimates_fitted():
     assert "'a'" in smoothing[0] or "'b'" in smoothing[0] or "'c'" in smoothing[0]
     # three items, one construct: df 0, so every test statistic is undefined
     assert out["fit"]["df"] == 0 and out["fit"]["chi_square_scaled"] is None
+
+
+def test_sparse_category_is_reported_with_its_count_and_the_option_to_merge():
+    x = _answers(np.random.default_rng(3), 300, missing=0.0)
+    fives = np.flatnonzero(x[:, 2] == 5)
+    x[fives[3:], 2] = 4                  # three answers of 5 remain for q3
+    spec = make_spec({"A": ITEMS[:4], "B": ITEMS[4:]})
+    notes = evaluate_ordinal(spec, x, ITEMS).to_dict()["ordinal_notes"]
+    sparse = [n for n in notes if "sparse categories" in n]
+    assert len(sparse) == 1
+    assert sparse[0].startswith("Item 'q3' has sparse categories: 5 (3 answers).")
+    assert "`collapse_sparse: true` under `items:`" in sparse[0]

@@ -196,7 +196,8 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
     extra = {
         "thresholds": {it: t.tolist() for it, t in zip(moments.items, moments.thresholds)},
         "missing_handling": "pairwise",
-        "ordinal_notes": _notes(moments, x, int((~answered).sum())),
+        "ordinal_notes": _notes(moments, x, int((~answered).sum()))
+        + ([] if collapse_sparse else sparse_category_notes(moments, x, min_count)),
         "polychoric": {"items": list(moments.items),
                        "correlations": moments.raw_correlations.tolist(),
                        "correlation_se": moments.correlation_se.tolist(),
@@ -238,6 +239,23 @@ def _notes(moments: OrdinalMoments, x: np.ndarray, empty_rows: int) -> list[str]
                      f"{moments.n_rows} rows (pairwise handling was not needed).")
     notes.extend(moments.collapse_notes)
     return notes
+
+
+def sparse_category_notes(moments: OrdinalMoments, x: np.ndarray, min_count: int) -> list[str]:
+    """One sentence per item with a category used fewer than ``min_count``
+    times (five: common practice, no source), offering to merge it."""
+    out = []
+    for j, (item, cats) in enumerate(zip(moments.items, moments.categories)):
+        counts = np.sum(x[:, j][:, None] == cats[None, :], axis=0)
+        sparse = np.flatnonzero(counts < min_count)
+        if sparse.size:
+            listed = ", ".join(f"{cats[k]:g} ({counts[k]} answer{'' if counts[k] == 1 else 's'})"
+                               for k in sparse)
+            out.append(f"Item '{item}' has sparse categories: {listed}. Their thresholds rest "
+                       f"on fewer than {min_count} answers each and make the polychoric "
+                       "correlations of this item unstable; to merge them into a neighbouring "
+                       "category, set `collapse_sparse: true` under `items:` in the model file.")
+    return out
 
 
 def ordinal_reliability(layout: Layout, mats: Matrices, std: Standardized,

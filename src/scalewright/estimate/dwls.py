@@ -18,23 +18,24 @@ fit, with delta-method standard errors.  Residual *covariances* stay free.
 
 Fit function (Muthén, du Toit & Spisic 1997)
 
-    F(θ) = (r − ρ(θ))ᵀ W (r − ρ(θ)),   W = diag(Γ̂)⁻¹ / N,
+    F(θ) = (r − ρ(θ))ᵀ W (r − ρ(θ)),   W = diag(Γ̂)⁻¹,
 
-with ``Γ̂/N`` the sampling covariance of ``r`` (``OrdinalMoments.acov_corr``),
-so ``W`` holds the inverse sampling variances divided by N.  The Jacobian
+with ``Γ̂`` the asymptotic covariance of ``√N r``, so that
+``Γ = Γ̂/N = OrdinalMoments.acov_corr`` is the sampling covariance of ``r``
+itself and ``N W = diag(Γ)⁻¹`` (``OrdinalMoments.dwls_weights``).  The Jacobian
 ``Δ = ∂ρ/∂θ`` comes from the rank-two cell derivatives of
 :func:`scalewright.layout.cell_derivatives`: the row of pair ``i < j`` is
 ``a_i b_j + b_i a_j``.  Minimisation is by Gauss–Newton (the scoring
 matrix ``2ΔᵀWΔ``) with a backtracking line search, using
 :func:`scalewright.estimate.fisher.fisher_scoring`.
 
-Robust standard errors (sandwich; Muthén 1984, eq. 38; Muthén, du Toit &
-Spisic 1997): with ``Γ = acov_corr`` (covariance of ``r`` itself) and
-``W`` the diagonal weights,
+Robust standard errors (sandwich; Muthén 1984; Muthén, du Toit & Spisic
+1997), with any constant multiple of ``W`` (it cancels):
 
     acov(θ̂) = H⁻¹ ΔᵀWΓWΔ H⁻¹,     H = ΔᵀWΔ.
 
-Test statistics.  ``T = N F(θ̂) = eᵀ diag(Γ)⁻¹ e`` with ``e = r − ρ(θ̂)`` is
+Test statistics.  From here on ``W = diag(Γ)⁻¹`` (= N times the weight
+above).  ``T = N F(θ̂) = eᵀ W e`` with ``e = r − ρ(θ̂)`` is
 asymptotically ``Σ_k λ_k χ²₁`` with ``λ`` the non-zero eigenvalues of
 ``UΓ``, ``U = W − WΔH⁻¹ΔᵀW`` (Satorra & Bentler 1994; Muthén, du Toit &
 Spisic 1997).  With ``t₁ = tr(UΓ)`` and ``t₂ = tr((UΓ)²)``:
@@ -54,9 +55,10 @@ Neither trace forms ``U`` (``p* × p*``).  With ``G = ΓWΔ`` (``p* × q``) and
     t₁ = Σ_k w_k Γ_kk − tr(H⁻¹M),
     t₂ = ‖W^½ΓW^½‖²_F − 2 tr(H⁻¹GᵀWG) + tr((H⁻¹M)²),
 
-which cost ``O(p*² q)``; ``Γ`` itself was formed once from the casewise
-influence matrix by the polychoric module.  The baseline (independence)
-model sets every correlation to zero: ``T_B = rᵀWr·N`` on ``p*`` df,
+which cost ``O(p*² q)``.  ``Γ`` itself was formed once from the casewise
+influence matrix by the polychoric module; going through the ``N × p*``
+influence matrix instead would cost ``O(N p* q)``, more whenever ``N > p*``.  The baseline (independence)
+model sets every correlation to zero: ``T_B = rᵀWr`` on ``p*`` df,
 ``t₁ = Σ w_k Γ_kk`` (= p*), ``t₂ = ‖W^½ΓW^½‖²_F``.
 
 References
