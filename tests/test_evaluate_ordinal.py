@@ -247,3 +247,28 @@ def test_sparse_category_is_reported_with_its_count_and_the_option_to_merge():
     assert len(sparse) == 1
     assert sparse[0].startswith("Item 'q3' has sparse categories: 5 (3 answers).")
     assert "`collapse_sparse: true` under `items:`" in sparse[0]
+
+
+def test_a_model_file_study_runs_through_the_ordinal_route():
+    # The call the check makes for an ordinal study: ModelSpec, ItemData
+    # values and names, the study's scale and collapse option.  df is
+    # counted from the model: p(p−1)/2 correlations minus loadings and
+    # construct correlations (algebra).
+    from pathlib import Path
+
+    from scalewright.itemdata import read_items
+    from scalewright.studyfile import load_study
+
+    study = load_study(Path(__file__).resolve().parents[1] / "models" / "teacher-climate.yaml")
+    data = read_items(study)
+    spec = next(s for s in study.models if not s.higher_order and not s.general
+                and len(s.constructs) > 1)
+    res = evaluate_ordinal(spec, data.values, data.items, scales=study.scale,
+                           collapse_sparse=study.collapse_sparse)
+    p, k = len(spec.items), len(spec.constructs)
+    loadings = sum(len(v) for v in spec.constructs.values()) + \
+        sum(len(v) for v in spec.cross_loadings.values())
+    expected_df = p * (p - 1) // 2 - loadings - k * (k - 1) // 2 - len(spec.residual_covariances)
+    out = json.loads(to_json(res.to_dict()))
+    assert out["fit"]["df"] == expected_df
+    assert out["converged"]
