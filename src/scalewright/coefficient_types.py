@@ -18,12 +18,13 @@ from dataclasses import dataclass
 import numpy as np
 
 
-def _plain(value):
-    """Turn a value from ``dataclasses.asdict`` into JSON-able Python data."""
+def plain(value):
+    """Turn numbers, arrays and containers into JSON-able Python data
+    (numpy scalars become Python numbers, tuples and arrays lists, NaN ``None``)."""
     if isinstance(value, dict):
-        return {key: _plain(item) for key, item in value.items()}
+        return {key: plain(item) for key, item in value.items()}
     if isinstance(value, (list, tuple, np.ndarray)):
-        return [_plain(item) for item in value]
+        return [plain(item) for item in value]
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     if isinstance(value, (int, np.integer)):
@@ -38,7 +39,7 @@ class Record:
 
     def to_dict(self) -> dict:
         """The record as plain Python data (NaN becomes ``None``)."""
-        return _plain(dataclasses.asdict(self))
+        return plain(dataclasses.asdict(self))
 
 
 @dataclass(frozen=True)
