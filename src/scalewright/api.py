@@ -18,7 +18,15 @@ import numpy as np
 
 from scalewright import __version__
 from scalewright.errors import StudyError
+from scalewright.compare import compare_models
+from scalewright.estimate.fiml import saturated_covariance
 from scalewright.evaluate import evaluate_normal
+from scalewright.evaluate_ordinal import evaluate_ordinal
+from scalewright.evaluate_real import evaluate_answers, missing_data_summary
+from scalewright.invariance import invariance_keys
+from scalewright.itemreview import quality_keys
+from scalewright.methods import LISTWISE, ORDINAL, choose_method
+from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
 from scalewright.screening import Screening, screen
@@ -37,6 +45,8 @@ class CheckResult:
     dropped: dict                     # reason -> number of rows
     created: str                      # ISO timestamp (the one line that differs between runs)
     extra: dict = field(default_factory=dict)
+    missing: dict = field(default_factory=dict)   # patterns, per-item rates, Little's test
+    method: object = None                          # the MethodChoice
 
     def model(self, name: str) -> ModelResult:
         for m in self.models:
@@ -64,18 +74,29 @@ class CheckResult:
                 "n_rows": self.data.n_rows,
                 "n_used": self.n_used,
                 "dropped": dict(self.dropped),
-                "missing_handling": "listwise deletion",
+                "missing_handling": self.method.missing_handling if self.method else None,
+                "missing": self.missing,
                 "screening": self.screening.to_dict(),
             },
             "models": [m.to_dict() for m in self.models],
         }
         out.update(self.extra)
-        return out
+        return _plain(out)
 
 
 def _plain(value):
-    if isinstance(value, (np.integer, np.floating)):
+    """JSON-able copy: numpy scalars to Python numbers, tuples to lists, and
+    NaN or infinite numbers (an undefined statistic) to None."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _plain(value.tolist())
+    if isinstance(value, (np.integer, np.bool_)):
         return value.item()
+    if isinstance(value, (float, np.floating)):
+        return float(value) if np.isfinite(value) else None
     return value
 
 
@@ -83,35 +104,77 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     """Run the whole check of the study in the model file at ``path``.
 
     Reads and validates the model file and the data, screens the items,
-    fits every rival model and computes its fit indices.  When ``out`` is
-    given, writes ``<out>/<model-file stem>.json`` and ``.html`` (see
+    chooses the estimation method (:func:`scalewright.methods.choose_method`),
+    fits every rival model with its fit indices, local fit and scale
+    quality, compares the rivals, and checks measurement invariance across
+    groups when the study has a grouping column.  When ``out`` is given,
+    writes ``<out>/<model-file stem>.json`` and ``.html`` (see
     :func:`scalewright.output.write_outputs`).
     """
     study = load_study(path)
     data = read_items(study)
     screening = screen(data)
-    complete = data.complete_rows()
-    n_used = int(complete.sum())
-    dropped = {"incomplete answers": int(data.n_rows - n_used)}
-    p_max = max(len(m.items) for m in study.models)
-    if n_used < p_max + 1:
-        raise StudyError(
-            f"{study.data.place}: only {n_used} of {data.n_rows} rows answer every item, fewer "
-            f"than the {p_max + 1} needed for {p_max} items. Check the missing-value codes under "
-            "data: missing:, or drop items that many people left unanswered.")
-    column = {item: j for j, item in enumerate(data.items)}
-    x_all = data.values[complete]
-    models = []
-    for spec in study.models:
-        x = x_all[:, [column[i] for i in spec.items]]
-        _check_sample_covariance(study, spec, x)
-        models.append(evaluate_normal(spec, x))
-    result = CheckResult(study, data, screening, tuple(models), n_used, dropped,
-                         _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"))
+    choice = choose_method(study, data)
+    rows = _rows_used(study, data, choice)
+    n_used = int(rows.sum())
+    models = tuple(_fit_model(study, spec, data, rows, choice) for spec in study.models)
+    extra = {"method": choice.to_dict()}
+    extra.update(compare_models(study.models, [m.to_dict() for m in models]))
+    if study.groups is not None:
+        spec = next((m for m in study.models if m.first), study.models[0])
+        extra.update(invariance_keys(study, data, spec, choice))
+    dropped = {"no answer to any item" if choice.missing_handling != LISTWISE
+               else "incomplete answers": int(data.n_rows - n_used)}
+    result = CheckResult(study, data, screening, models, n_used, dropped,
+                         _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+                         extra, missing_data_summary(data), choice)
     if out is not None:
         from scalewright.output import write_outputs
         write_outputs(result, Path(out))
     return result
+
+
+def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
+    """Rows that enter estimation: complete rows for listwise deletion,
+    rows with at least one answer otherwise."""
+    values = np.asarray(data.values)
+    if choice.missing_handling == LISTWISE:
+        rows = ~np.isnan(values).any(axis=1)
+    else:
+        rows = ~np.isnan(values).all(axis=1)
+    p_max = max(len(m.items) for m in study.models)
+    n_used = int(rows.sum())
+    if n_used < p_max + 1:
+        raise StudyError(
+            f"{study.data.place}: only {n_used} of {data.n_rows} rows can be used "
+            f"({'complete rows, listwise deletion' if choice.missing_handling == LISTWISE else 'rows with any answer'}), "
+            f"fewer than the {p_max + 1} needed for {p_max} items. Check the missing-value codes "
+            "under data: missing:, or drop items that many people left unanswered.")
+    return rows
+
+
+def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:
+    """One rival model by the chosen method, with its local-fit and scale-quality keys."""
+    columns = [data.items.index(i) for i in spec.items]
+    x = np.asarray(data.values)[np.ix_(rows, columns)]
+    if choice.estimator == ORDINAL:
+        model = evaluate_ordinal(spec, x, spec.items, study.scale, study.collapse_sparse)
+        complete = x[~np.isnan(x).any(axis=1)]
+        model.extra.update(quality_keys(model, study, complete, fit=evaluate_normal))
+        return model
+    complete = x[~np.isnan(x).any(axis=1)]
+    _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
+    model = evaluate_answers(spec, x, choice, data.file.name)
+
+    def refit(reduced_spec, answers):
+        return evaluate_answers(reduced_spec, answers, choice, data.file.name)
+
+    observed = None
+    if model.estimate.method.endswith("fiml"):
+        observed = saturated_covariance(x, spec.items, data.file.name)
+    model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
+    model.extra.update(scale_quality_keys(model, study, complete))
+    return model
 
 
 def _check_sample_covariance(study: Study, spec, x: np.ndarray) -> None:

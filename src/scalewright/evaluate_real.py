@@ -15,7 +15,7 @@ The BLAS is pinned to one thread around the engine, as in ``evaluate.py``.
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 from threadpoolctl import threadpool_limits
@@ -25,10 +25,10 @@ from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, 
                                        missing_patterns, pattern_moments, saturated_em,
                                        yuan_bentler)
 from scalewright.estimate.mcar import little_mcar
-from scalewright.estimate.normal import complete_data_blocks, fit_normal
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.indices import FitIndices, fit_indices, independence_chi_square, saturated_loglik
+from scalewright.evaluate import evaluate_normal
+from scalewright.indices import FitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
 from scalewright.methods import FULL_INFORMATION, ORDINAL, ROBUST, MethodChoice
@@ -94,41 +94,35 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
         With :class:`RobustFitIndices` as ``fit`` when the estimator is
         robust, and the item intercepts under ``extra["intercepts"]`` for FIML.
     """
-    if choice.estimator == ORDINAL:
-        raise ValueError("the ordinal route has its own evaluation; evaluate_with fits "
-                         "normal-theory and robust ML only")
     x = np.asarray(data.values[:, [data.items.index(it) for it in spec.items]])
+    return evaluate_answers(spec, x, choice, data.file.name)
+
+
+def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> ModelResult:
+    """:func:`evaluate_with` on the answer matrix of the model's items
+    (columns in ``spec.items`` order, NaN = missing); ``where`` names the
+    data file in messages."""
+    if choice.estimator == ORDINAL:
+        raise ValueError("the ordinal route has its own evaluation; evaluate_answers fits "
+                         "normal-theory and robust ML only")
     robust = choice.estimator == ROBUST
     with threadpool_limits(limits=1, user_api="blas"):
         if choice.missing_handling == FULL_INFORMATION and np.isnan(x).any():
-            return _full_information(spec, x, robust, data.file.name)
+            return _full_information(spec, x, robust, where)
         return _complete(spec, x[~np.isnan(x).any(axis=1)], robust)
 
 
 def _complete(spec, x: np.ndarray, robust: bool) -> ModelResult:
-    blocks = complete_data_blocks(x)
-    layout = build_layout(spec, blocks[0].cov)
-    theta, record, objective = fit_normal(layout, blocks)
-    _, _, info = objective.value_grad_info(theta)
-    acov, unidentified = invert_information(info, objective.n)
-    loglik = objective.loglik(theta)
-    covs, ns = [b.cov for b in blocks], [b.n for b in blocks]
-    mats = layout.patterns[0].matrices(theta)
-    fit = fit_indices(loglik=loglik, saturated=saturated_loglik(covs, ns), df=layout.df(),
-                      n=objective.n, n_params=layout.n_params + layout.p,
-                      baseline=independence_chi_square(covs, ns), sample_covs=covs,
-                      implied_covs=[mats.implied_cov], weights=ns)
-    if robust and acov is not None:
-        corrected = robust_ml(layout, theta, x, fit.chi_square)
-        acov = corrected.acov
-        fit = RobustFitIndices.extend(fit, corrected.test, baseline_test(x, layout.items),
-                                      objective.n)
-    estimate = Estimate(layout, theta, acov, record, objective.n, loglik,
-                        "robust-ml" if robust else "ml", unidentified, blocks)
-    std = standardize(mats)
-    return ModelResult(spec.name, estimate, fit, std, LABELS[("robust" if robust else "normal",
-                                                              False)],
-                       tuple(model_warnings(estimate, std)))
+    """Complete rows: normal-theory ML, then the robust corrections if asked."""
+    result = evaluate_normal(spec, x)
+    est = result.estimate
+    if not robust or est.acov is None:
+        return result
+    corrected = robust_ml(est.layout, est.theta, x, result.fit.chi_square)
+    fit = RobustFitIndices.extend(result.fit, corrected.test, baseline_test(x, est.layout.items),
+                                  est.n)
+    estimate = replace(est, acov=corrected.acov, method="robust-ml")
+    return replace(result, estimate=estimate, fit=fit, estimator=LABELS[("robust", False)])
 
 
 def _full_information(spec, x: np.ndarray, robust: bool, where: str) -> ModelResult:

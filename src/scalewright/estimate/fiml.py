@@ -522,3 +522,11 @@ def baseline_yuan_bentler(values: np.ndarray, patterns: Patterns, moments: Patte
     info = fiml_information(layout, theta, values, patterns, moments)
     chi2 = 2.0 * (saturated.loglik - loglik)
     return yuan_bentler(info, patterns.n, chi2, layout.df()).test
+
+
+def saturated_covariance(values: np.ndarray, items: tuple[str, ...], where: str) -> np.ndarray:
+    """The ML covariance matrix of the items with missing answers (EM on the
+    saturated model): the 'observed' covariance that residuals under FIML
+    are judged against."""
+    moments = pattern_moments(values, missing_patterns(values, tuple(items), where))
+    return saturated_em(moments).cov

@@ -36,12 +36,12 @@ missing data as a sum over patterns.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
-from scipy import linalg
 
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
-from scalewright.layout import Layout, Matrices, cell_derivatives
+from scalewright.layout import Layout, cell_derivatives
 
 LOG_2PI = np.log(2.0 * np.pi)
 
@@ -71,8 +71,46 @@ def complete_data_blocks(values: np.ndarray, group_index: np.ndarray | None = No
 
 
 @dataclass(frozen=True)
+class _GroupStack:
+    """The blocks of one group as padded arrays, so that every pattern is
+    handled at once: block ``k`` observes the items where ``observed[k]``."""
+
+    observed: np.ndarray      # K × p bool
+    weights: np.ndarray       # K, n_k / N
+    covs: np.ndarray          # K × p × p, zero outside the observed items
+    means: np.ndarray         # K × p, zero outside the observed items
+    counts: np.ndarray        # K, n_k
+
+
+def _stack(blocks, p: int, n_total: int) -> _GroupStack:
+    k = len(blocks)
+    observed = np.zeros((k, p), dtype=bool)
+    covs = np.zeros((k, p, p))
+    means = np.zeros((k, p))
+    for i, block in enumerate(blocks):
+        o = block.observed
+        observed[i, o] = True
+        covs[i][np.ix_(o, o)] = block.cov
+        means[i, o] = block.mean
+    counts = np.array([b.n for b in blocks], dtype=float)
+    return _GroupStack(observed, counts / n_total, covs, means, counts)
+
+
+#: patterns handled together when building the information (bounds memory at K × c × c)
+_CHUNK = 64
+
+
+@dataclass(frozen=True)
 class NormalFit:
-    """The normal-theory ML objective of one layout on some blocks."""
+    """The normal-theory ML objective of one layout on some blocks.
+
+    All blocks of a group are evaluated together: block ``k``'s implied
+    covariance is embedded as ``M_k = D_k Σ D_k + (I − D_k)`` (``D_k`` the
+    diagonal indicator of its observed items), whose inverse is
+    ``Σ_oo⁻¹`` on the observed items and the identity elsewhere, and whose
+    determinant is ``|Σ_oo|``.  One batched Cholesky factorisation then
+    serves every missing-data pattern.
+    """
 
     layout: Layout
     blocks: tuple[Block, ...]
@@ -81,17 +119,22 @@ class NormalFit:
     def n(self) -> int:
         return sum(b.n for b in self.blocks)
 
+    @cached_property
+    def _stacks(self) -> tuple[_GroupStack, ...]:
+        n = self.n
+        return tuple(_stack([b for b in self.blocks if b.group == g], self.layout.p, n)
+                     for g in range(len(self.layout.patterns)))
+
     def value(self, theta: np.ndarray) -> float:
         """``f(θ) = −ℓ(θ)/N`` (``inf`` where an implied covariance is not positive definite)."""
         total = 0.0
-        for g, mats in enumerate(self._all_matrices(theta)):
-            sigma, mu = mats.implied_cov, mats.implied_mean
-            for block in self._blocks_of(g):
-                part = _block_value(block, sigma, mu, self.layout.has_means)
-                if part is None:
-                    return np.inf
-                total += block.n * part
-        return total / self.n
+        for stack, mats in zip(self._stacks, self._all_matrices(theta)):
+            parts = _embedded_inverse(stack, mats.implied_cov)
+            if parts is None:
+                return np.inf
+            v, logdet = parts
+            total += _stack_value(stack, v, logdet, mats.implied_mean, self.layout.has_means)
+        return total
 
     def loglik(self, theta: np.ndarray) -> float:
         """The log-likelihood ℓ(θ), including the constants."""
@@ -105,61 +148,68 @@ class NormalFit:
         info = np.zeros((q, q))
         total = 0.0
         means = self.layout.has_means
-        for g, (pattern, mats) in enumerate(zip(self.layout.patterns, self._all_matrices(theta))):
-            sigma, mu = mats.implied_cov, mats.implied_mean
-            a_all, b_all, dmu_all = cell_derivatives(pattern, mats)
+        for stack, pattern, mats in zip(self._stacks, self.layout.patterns,
+                                        self._all_matrices(theta)):
+            parts = _embedded_inverse(stack, mats.implied_cov)
+            if parts is None:
+                return np.inf, grad, info
+            v, logdet = parts
+            total += _stack_value(stack, v, logdet, mats.implied_mean, means)
+            a, b, dmu = cell_derivatives(pattern, mats)
+            w = stack.weights
+            vsv = v @ stack.covs @ v
+            e_total = np.tensordot(w, v - vsv, axes=1)
+            cell_info = np.zeros((a.shape[1], a.shape[1]))
+            for lo in range(0, len(w), _CHUNK):
+                vk, wk = v[lo:lo + _CHUNK], w[lo:lo + _CHUNK]
+                va, vb = vk @ a, vk @ b                      # chunk × p × c
+                pa, qb, r = a.T @ va, b.T @ vb, a.T @ vb     # chunk × c × c
+                pa *= qb
+                pa += r * r.transpose(0, 2, 1)
+                cell_info += np.tensordot(wk, pa, axes=1)
+            cell_grad = np.zeros(a.shape[1])
+            if means:
+                resid = (stack.means - mats.implied_mean) * stack.observed
+                z = np.einsum("kij,kj->ki", v, resid)
+                e_total -= np.einsum("k,ki,kj->ij", w, z, z)
+                cell_grad -= dmu.T @ (w @ z)
+                cell_info += dmu.T @ np.tensordot(w, v, axes=1) @ dmu
+            cell_grad += np.einsum("ic,ic->c", a, e_total @ b)
             params = pattern.cell_params
-            for block in self._blocks_of(g):
-                o = block.observed
-                s = sigma[np.ix_(o, o)]
-                try:
-                    chol = linalg.cho_factor(s, lower=True, check_finite=False)
-                except linalg.LinAlgError:
-                    return np.inf, grad, info
-                v = linalg.cho_solve(chol, np.eye(len(o)), check_finite=False)
-                w = block.n / self.n
-                part = _block_value(block, sigma, mu, means, chol=chol, v=v)
-                total += w * part
-                a, b = a_all[o], b_all[o]
-                e = v @ (s - block.cov) @ v
-                cell_grad = np.einsum("ic,ic->c", a, e @ b)
-                va, vb = v @ a, v @ b
-                pa, qb, r = a.T @ va, b.T @ vb, a.T @ vb
-                cell_info = pa * qb + r * r.T
-                if means:
-                    dmu = dmu_all[o]
-                    resid = block.mean - mu[o]
-                    vd = v @ dmu
-                    z = v @ resid   # the mean residual also moves with Σ: −(zᵀa)(zᵀb)
-                    cell_grad -= vd.T @ resid + (z @ a) * (z @ b)
-                    cell_info += dmu.T @ vd
-                np.add.at(grad, params, w * cell_grad)
-                _add_block(info, params, w * cell_info)
+            np.add.at(grad, params, cell_grad)
+            _add_block(info, params, cell_info)
         return total, grad, info
 
     def _all_matrices(self, theta):
         return [pattern.matrices(theta) for pattern in self.layout.patterns]
 
-    def _blocks_of(self, g):
-        return [b for b in self.blocks if b.group == g]
+
+def _embedded_inverse(stack: _GroupStack, sigma: np.ndarray):
+    """``V_k`` (``Σ_oo⁻¹`` embedded with zeros) and ``log|Σ_oo|`` for every
+    block of a group, or None when some ``Σ_oo`` is not positive definite."""
+    d = stack.observed
+    mask = d[:, :, None] & d[:, None, :]
+    embedded = np.where(mask, sigma, 0.0)
+    idx = np.arange(sigma.shape[0])
+    embedded[:, idx, idx] += ~d
+    try:
+        chol = np.linalg.cholesky(embedded)
+    except np.linalg.LinAlgError:
+        return None
+    logdet = 2.0 * np.sum(np.log(np.diagonal(chol, axis1=1, axis2=2)), axis=1)
+    eye = np.broadcast_to(np.eye(sigma.shape[0]), embedded.shape)
+    inv_chol = np.linalg.solve(chol, eye)
+    v = np.einsum("kji,kjl->kil", inv_chol, inv_chol)
+    return v * mask, logdet
 
 
-def _block_value(block: Block, sigma, mu, means: bool, chol=None, v=None):
-    """``½[log|Σ_b| + tr(Σ_b⁻¹ S_b) + r ᵀΣ_b⁻¹ r]`` for one block, or None if Σ_b is not PD."""
-    o = block.observed
-    s = sigma[np.ix_(o, o)]
-    if chol is None:
-        try:
-            chol = linalg.cho_factor(s, lower=True, check_finite=False)
-        except linalg.LinAlgError:
-            return None
-        v = linalg.cho_solve(chol, np.eye(len(o)), check_finite=False)
-    logdet = 2.0 * np.sum(np.log(np.diag(chol[0])))
-    value = logdet + np.sum(v * block.cov)
+def _stack_value(stack: _GroupStack, v, logdet, mu, means: bool) -> float:
+    """``Σ_k (n_k/N) · ½[log|Σ_k| + tr(Σ_k⁻¹ S_k) + r_kᵀ Σ_k⁻¹ r_k]``."""
+    value = logdet + np.einsum("kij,kij->k", v, stack.covs)
     if means:
-        r = block.mean - mu[o]
-        value += r @ v @ r
-    return 0.5 * value
+        resid = (stack.means - mu) * stack.observed
+        value = value + np.einsum("ki,kij,kj->k", resid, v, resid)
+    return 0.5 * float(stack.weights @ value)
 
 
 def _add_block(info: np.ndarray, params: np.ndarray, cell_info: np.ndarray) -> None:
