@@ -158,3 +158,19 @@ def test_htmt_result_converts_to_json_with_none_for_undefined():
     result = htmt(tau_equivalent_corr(0.5), [0, 0, 0, 1, 1, 1], [0, 1], ["a", "b"])
     data = json.loads(json.dumps(result.to_dict()))
     assert data["matrix"][0][0] is None and data["matrix"][0][1] == pytest.approx(0.5)
+
+
+def test_htmt_of_negatively_related_constructs_is_their_magnitude():
+    # theory: reversing the sign of one construct's latent variable flips every
+    # cross-construct correlation; distinctness must not depend on that direction
+    # (Henseler et al. 2015 assume positively related constructs)
+    from scalewright.validity import htmt
+    corr = np.array([[1.0, 0.5, 0.3, 0.3], [0.5, 1.0, 0.3, 0.3],
+                     [0.3, 0.3, 1.0, 0.5], [0.3, 0.3, 0.5, 1.0]])
+    flipped = corr.copy()
+    flipped[:2, 2:] *= -1
+    flipped[2:, :2] *= -1
+    a = htmt(corr, [0, 0, 1, 1], [0, 1], ("a", "b")).rows[0].htmt
+    b = htmt(flipped, [0, 0, 1, 1], [0, 1], ("a", "b")).rows[0].htmt
+    assert a == pytest.approx(0.6, abs=1e-12)     # .3 / √(.5 · .5)
+    assert b == pytest.approx(a, abs=1e-12)

@@ -173,7 +173,7 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     if model.estimate.method.endswith("fiml"):
         observed = saturated_covariance(x, spec.items, data.file.name)
     model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
-    model.extra.update(scale_quality_keys(model, study, complete))
+    model.extra.update(scale_quality_keys(model, study, x, fit=refit))
     return model
 
 

@@ -223,7 +223,10 @@ def htmt(item_corr: np.ndarray, primary: Sequence[int], constructs: Sequence[int
     of ``b`` (heterotrait–heteromethod) and ``r̄_aa`` the mean correlation
     among different items of ``a`` (monotrait–heteromethod).  It uses the
     item correlation matrix only, no model.  Correlations enter with their
-    sign, so reverse-keyed items must already be recoded.
+    sign, so reverse-keyed items must already be recoded; the heterotrait
+    mean then enters as its absolute value, because two constructs that
+    correlate strongly *negatively* (e.g. workload and support) are no more
+    distinct than two that correlate strongly positively.
 
     A construct with one item, or with a mean within-construct correlation
     that is not positive, has no HTMT (NaN) and gets a note.
@@ -258,7 +261,7 @@ def htmt(item_corr: np.ndarray, primary: Sequence[int], constructs: Sequence[int
         within = (np.diag(sums) - counts) / (counts * (counts - 1.0))
         between = sums / np.outer(counts, counts)
         usable = within > 0
-        ratio = between / np.sqrt(np.outer(np.where(usable, within, np.nan),
+        ratio = np.abs(between) / np.sqrt(np.outer(np.where(usable, within, np.nan),
                                            np.where(usable, within, np.nan)))
     np.fill_diagonal(ratio, np.nan)
     names = tuple(factor_names[c] for c in cols)
