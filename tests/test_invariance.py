@@ -24,7 +24,7 @@ from scalewright.invariance import (MIN_EQUAL, _scaling_at, compare, conventions
                                     invariance_keys, measurement_invariance, releasable,
                                     run_sequence, score_tests)
 from scalewright.itemdata import read_items
-from scalewright.layout import INTERCEPT, LATENT_MEAN, LOADING, Param
+from scalewright.layout import INTERCEPT, LOADING, Param
 from scalewright.multigroup import (CONFIGURAL, INTERCEPTS, LOADINGS, METRIC, RESIDUALS,
                                     SCALAR, build_multigroup_layout, carry_start,
                                     complete_moments, fit_multigroup)

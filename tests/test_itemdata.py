@@ -408,9 +408,9 @@ def test_a_200k_by_50_csv_is_read_into_one_float_matrix(tmp_path):
     pacsv.write_csv(table, tmp_path / "big.csv")
     constructs = "\n".join(f"      f{k}: [{', '.join(f'q{j + 1}' for j in range(10 * k, 10 * k + 10))}]"
                            for k in range(5))
-    (tmp_path / "big.yaml").write_text(textwrap.dedent(f"""\
-        data: {{file: big.csv}}
-        items: {{scale: [1, 5]}}
+    (tmp_path / "big.yaml").write_text(textwrap.dedent("""\
+        data: {file: big.csv}
+        items: {scale: [1, 5]}
         models:
           m:
             constructs:

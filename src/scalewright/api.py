@@ -11,6 +11,7 @@ the JSON file.
 from __future__ import annotations
 
 import datetime as _dt
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -19,6 +20,7 @@ import numpy as np
 from scalewright import __version__
 from scalewright.errors import StudyError
 from scalewright.compare import compare_models
+from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.evaluate import evaluate_normal
 from scalewright.evaluate_ordinal import evaluate_ordinal
@@ -118,6 +120,9 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
     models = tuple(_fit_model(study, spec, data, rows, choice) for spec in study.models)
+    for model in models:
+        for category, text in classified_warnings(model.estimate, model.std):
+            warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models]))
     if study.groups is not None:

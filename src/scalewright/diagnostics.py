@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from scalewright.errors import ConvergenceWarning, IdentificationWarning, ImproperSolutionWarning
 from scalewright.estimate.result import Estimate
 from scalewright.layout import CONSTRUCT, FACTOR_COV, LOADING, PATH
 from scalewright.standardize import Standardized
@@ -28,27 +29,33 @@ from scalewright.standardize import Standardized
 
 def model_warnings(estimate: Estimate, std: Standardized) -> list[str]:
     """Every warning about one fitted model, in words a researcher can act on."""
-    out = []
+    return [text for _, text in classified_warnings(estimate, std)]
+
+
+def classified_warnings(estimate: Estimate, std: Standardized) -> list[tuple[type, str]]:
+    """The warnings of :func:`model_warnings` with their class from
+    :mod:`scalewright.errors`, for emitting them as Python warnings."""
+    out = _Collector()
     layout = estimate.layout
     if not estimate.record.converged:
-        out.append(
+        out.add(ConvergenceWarning,
             f"The estimation did not converge ({estimate.record.message}; largest gradient "
             f"element {estimate.record.gradient_norm:.2g}). Do not interpret these numbers. "
             "Check that every construct has items that correlate with each other, remove "
             "cross-loadings or residual covariances that are not needed, or try the other "
             "identification (estimation: identification: marker).")
     if estimate.unidentified:
-        out.append(unidentified_message(estimate))
+        out.add(IdentificationWarning, unidentified_message(estimate))
     thetas = np.diag(estimate.matrices().residuals)
     for i in np.nonzero(thetas < 0)[0]:
-        out.append(
+        out.add(ImproperSolutionWarning,
             f"Improper solution: item '{layout.items[i]}' has a negative residual variance "
             f"({thetas[i]:.3f}), a Heywood case. The model is probably misspecified for this "
             "item or the sample is too small; look at its loadings and residual covariances "
             "before interpreting the model.")
     big = np.argwhere(np.abs(std.loadings) > 1.0)
     for i, j in big:
-        out.append(
+        out.add(ImproperSolutionWarning,
             f"Improper solution: the standardized loading of '{layout.items[i]}' on "
             f"'{layout.factors[j]}' is {std.loadings[i, j]:.3f}, beyond ±1.")
     phi = std.latent_correlations
@@ -57,7 +64,7 @@ def model_warnings(estimate: Estimate, std: Standardized) -> list[str]:
         if values[0] < -1e-8:
             off = np.abs(phi - np.eye(len(phi)))
             j, k = np.unravel_index(np.argmax(off), off.shape)
-            out.append(
+            out.add(ImproperSolutionWarning,
                 "Improper solution: the latent correlation matrix is not positive definite "
                 f"(smallest eigenvalue {values[0]:.3f}); the largest correlation is between "
                 f"'{layout.factors[j]}' and '{layout.factors[k]}' ({phi[j, k]:.3f}). These "
@@ -65,9 +72,18 @@ def model_warnings(estimate: Estimate, std: Standardized) -> list[str]:
         else:
             for j, k in zip(*np.triu_indices(len(phi), 1)):
                 if abs(phi[j, k]) > 1.0:
-                    out.append(f"Improper solution: the correlation of '{layout.factors[j]}' "
-                               f"and '{layout.factors[k]}' is {phi[j, k]:.3f}, beyond ±1.")
-    return out
+                    out.add(ImproperSolutionWarning,
+                            f"Improper solution: the correlation of '{layout.factors[j]}' "
+                            f"and '{layout.factors[k]}' is {phi[j, k]:.3f}, beyond ±1.")
+    return out.items
+
+
+class _Collector:
+    def __init__(self):
+        self.items: list[tuple[type, str]] = []
+
+    def add(self, category: type, text: str) -> None:
+        self.items.append((category, text))
 
 
 def unidentified_message(estimate: Estimate) -> str:

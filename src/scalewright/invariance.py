@@ -85,8 +85,8 @@ from threadpoolctl import threadpool_limits
 from scalewright.estimate.normal import Block, NormalFit, fit_normal
 from scalewright.groups import split_groups
 from scalewright.methods import LISTWISE, ORDINAL, ROBUST, choose_method
-from scalewright.layout import CONSTRUCT, INTERCEPT, LATENT_MEAN, LOADING, PATH, Layout, Param
-from scalewright.multigroup import (ADDED, CONFIGURAL, INTERCEPTS, LOADINGS, METRIC, RESIDUALS,
+from scalewright.layout import CONSTRUCT, INTERCEPT, LOADING, PATH, Layout, Param
+from scalewright.multigroup import (ADDED, INTERCEPTS, LOADINGS, METRIC, RESIDUALS,
                                     SCALAR, SHARED, STEPS, GroupFit, GroupMoments,
                                     build_multigroup_layout, carry_start, fit_multigroup,
                                     parameter_class, robust_test)

@@ -12,8 +12,8 @@ from scipy import stats
 
 from scalewright.estimate.result import Estimate
 from scalewright.indices import FitIndices
-from scalewright.layout import CONSTRUCT, GENERAL, HIGHER, LOADING, PATH, RESIDUAL_COV
-from scalewright.standardize import Standardized, delta_method_se, standardize
+from scalewright.layout import GENERAL, LOADING, PATH, RESIDUAL_COV
+from scalewright.standardize import Standardized, delta_method_se
 
 
 @dataclass(frozen=True)

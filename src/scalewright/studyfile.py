@@ -440,8 +440,8 @@ class _Reader:
         for name, entries in value.items():
             if not isinstance(name, str):
                 self.fail(keys + (name,), f"the name {_describe(name)} under {_full(keys)} is "
-                                          f"not text", f"Use a name that starts with a letter, "
-                                                       f"or put it in quotes")
+                                          f"not text", "Use a name that starts with a letter, "
+                                                       "or put it in quotes")
             out[name] = self.names(keys + (name,), entries, what, example)
         return out
 
