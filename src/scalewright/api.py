@@ -31,6 +31,7 @@ from scalewright.methods import LISTWISE, ORDINAL, choose_method
 from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
+from scalewright.output import check_targets, write_outputs
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study, load_study
 
@@ -114,6 +115,8 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     :func:`scalewright.output.write_outputs`).
     """
     study = load_study(path)
+    if out is not None:
+        check_targets(Path(out), study.path.stem)
     data = read_items(study)
     screening = screen(data)
     choice = choose_method(study, data)
@@ -134,7 +137,6 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
                          _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
                          extra, missing_data_summary(data), choice)
     if out is not None:
-        from scalewright.output import write_outputs
         write_outputs(result, Path(out))
     return result
 

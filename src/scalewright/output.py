@@ -28,18 +28,24 @@ def _not_serialisable(value):
     raise TypeError(f"scalewright bug: {type(value).__name__} in the result dict")
 
 
+def check_targets(folder: Path, stem: str) -> None:
+    """Refuse early, before any fitting, if an output would replace a user's file."""
+    for suffix, mark in (("json", JSON_MARK), ("html", HTML_MARK)):
+        refuse_foreign(folder / f"{stem}.{suffix}", mark)
+
+
 def write_outputs(result, folder: Path) -> dict[str, Path]:
     """Write ``<folder>/<stem>.json`` and ``<stem>.html``; return their paths."""
     from scalewright.report.render import render_html
 
     report = result.to_dict()
     stem = result.study.path.stem
+    check_targets(folder, stem)
     folder.mkdir(parents=True, exist_ok=True)
-    texts = {"json": (to_json(report), JSON_MARK), "html": (render_html(report), HTML_MARK)}
+    texts = {"json": to_json(report), "html": render_html(report)}
     paths = {}
-    for suffix, (text, mark) in texts.items():
+    for suffix, text in texts.items():
         target = folder / f"{stem}.{suffix}"
-        refuse_foreign(target, mark)
         target.write_text(text, encoding="utf-8")
         paths[suffix] = target
     return paths
