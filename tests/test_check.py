@@ -178,3 +178,14 @@ def test_demo_command_writes_the_study_and_checks_it(tmp_path):
     assert (folder / "report" / "teacher-climate.html").is_file()
     # a second run refuses to overwrite the study files it wrote into the folder
     assert main(["demo", str(folder)]) == 2
+
+
+def test_summary_says_when_bic_does_not_separate_the_favourite(demo_result):
+    # Raftery (1995): BIC differences below 2 are weak evidence; on the demo the
+    # bifactor and the correlated three-construct models are within 2 points
+    from scalewright.report.narrative import summary_paragraphs
+    d = demo_result.to_dict()
+    rows = {r["name"]: r for r in d["comparison"]["models"]}
+    close = [n for n, r in rows.items() if r["delta_bic"] is not None and 0 < r["delta_bic"] < 2]
+    text = " ".join(summary_paragraphs(d))
+    assert ("within 2 BIC points" in text) == bool(close)

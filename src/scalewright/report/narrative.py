@@ -128,6 +128,13 @@ def _comparison_paragraph(report: dict, fav: dict) -> str | None:
     else:
         text = (f"Of the {_number(n)} rival models, BIC favours {_names(fav['bic'])} (BIC weight "
                 f"{coef(fav['bic_weight'], 2)}).")
+    close = [row["name"] for row in comparison["models"]
+             if row["name"] not in fav["bic"] and row.get("delta_bic") is not None
+             and row["delta_bic"] < 2.0]
+    if close:
+        text += (f" But {_names(close)} {'is' if len(close) == 1 else 'are'} within 2 BIC points "
+                 "of it, which counts as weak evidence at most (Raftery 1995): BIC does not "
+                 "really separate these models.")
     disagree = []
     if fav["aic"] not in fav["bic"]:
         disagree.append(f"AIC, which penalises extra parameters less, favours {_names([fav['aic']])}")
