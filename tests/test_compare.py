@@ -274,3 +274,18 @@ def test_rows_mark_the_first_specified_model(hs_x):
     assert [r["first"] for r in rows] == [False, True]
     # semopy chi-square for the three-factor model, shared/design/references.md
     assert rows[1]["chi_square"] == pytest.approx(85.3057, abs=1e-3)
+
+
+def test_ordinal_difference_uses_the_unadjusted_statistics():
+    # Satorra & Bentler (2001) on the raw statistics: the reported (adjusted)
+    # chi-square of a DWLS fit must not be scaled a second time; the worked rows
+    # of references.md (weak vs configural: c_d 1.154, T_d 8.319 on 7 df) with the
+    # raw T = T_scaled · c
+    from scalewright.compare import chi_square_difference
+    weak = {"df": 76, "chi_square": 1.0, "chi_square_unadjusted": 90.371 * 1.115,
+            "scaling_factor": 1.115}
+    configural = {"df": 69, "chi_square": 2.0, "chi_square_unadjusted": 82.052 * 1.111,
+                  "scaling_factor": 1.111}
+    row = chi_square_difference(weak, configural)
+    assert row["scaling_factor"] == pytest.approx(1.154, abs=5e-4)
+    assert row["chi_square"] == pytest.approx(8.319, abs=5e-3)

@@ -272,7 +272,9 @@ def chi_square_difference(restricted_fit: dict, general_fit: dict) -> dict:
     .. math:: c_d = (d_R c_R − d_G c_G) / (d_R − d_G), \\qquad
               T_d = (T_R − T_G) / c_d
 
-    with ``T`` the unscaled statistics and ``c`` the scaling factors.  When
+    with ``T`` the unscaled statistics and ``c`` the scaling factors (for
+    DWLS fits the unadjusted statistic and its mean scaling, an approximation:
+    the difference test of Asparouhov & Muthén (2006) is not made).  When
     ``c_d ≤ 0`` the 2001 statistic is undefined; the 2010 correction needs
     a refit and is not made here (the row says so).
 
@@ -284,7 +286,10 @@ def chi_square_difference(restricted_fit: dict, general_fit: dict) -> dict:
         ``note`` (``None`` or one sentence).
     """
     df = int(restricted_fit["df"]) - int(general_fit["df"])
-    t_r, t_g = float(restricted_fit["chi_square"]), float(general_fit["chi_square"])
+    # the difference is taken on the unscaled statistics; an ordinal (DWLS) fit
+    # reports its adjusted statistic as chi_square and keeps the raw one apart
+    t_r, t_g = (float(f.get("chi_square_unadjusted", f["chi_square"]))
+                for f in (restricted_fit, general_fit))
     out = {"chi_square": None, "df": df, "p_value": None, "scaled": False,
            "scaling_factor": None, "note": None}
     if df < 0:
