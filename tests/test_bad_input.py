@@ -1,0 +1,71 @@
+"""Problems found once the data meet the model (the model-file and data-file
+checks live in test_studyfile.py and test_itemdata.py): each a StudyError
+that names the model, construct or items and says what to do."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import scalewright
+from scalewright.errors import StudyError
+
+
+def write_study(folder, models_yaml, data: pd.DataFrame, extra=""):
+    data.to_csv(folder / "answers.csv", index=False)
+    path = folder / "study.yaml"
+    path.write_text(f"study: Bad input\ndata:\n  file: answers.csv\n{extra}models:\n{models_yaml}")
+    return path
+
+
+def likert(rng, n, p, loading=0.7):
+    factor = rng.standard_normal((n, 1))
+    latent = loading * factor + np.sqrt(1 - loading ** 2) * rng.standard_normal((n, p))
+    return np.digitize(latent, [-1.2, -0.4, 0.4, 1.2]) + 1
+
+
+@pytest.fixture()
+def rng():
+    return np.random.default_rng(2026)
+
+
+def test_more_free_parameters_than_moments_names_both_counts(tmp_path, rng):
+    # three items: 6 moments; 3 loadings + 3 residual variances + 3 residual
+    # covariances = 9 free parameters
+    data = pd.DataFrame(likert(rng, 200, 3), columns=["a1", "a2", "a3"])
+    models = ("  m:\n    constructs:\n      a: [a1, a2, a3]\n"
+              "    residual_covariances:\n      - [a1, a2]\n      - [a1, a3]\n      - [a2, a3]\n")
+    with pytest.raises(StudyError, match=r"model 'm' has 9 free parameters .* only 6 variances"):
+        scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_singular_sample_covariance_names_the_dependent_items(tmp_path, rng):
+    answers = likert(rng, 300, 3)
+    data = pd.DataFrame({"a1": answers[:, 0], "a2": answers[:, 1], "a3": answers[:, 2],
+                         "total": answers.sum(axis=1)})
+    models = "  m:\n    constructs:\n      a: [a1, a2, a3, total]\n"
+    with pytest.raises(StudyError, match=r"linearly dependent .*'a1', 'a2', 'a3', 'total'"):
+        scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_fewer_usable_rows_than_items_plus_one(tmp_path, rng):
+    data = pd.DataFrame(likert(rng, 4, 4).astype(float), columns=["a1", "a2", "a3", "a4"])
+    models = "  m:\n    constructs:\n      a: [a1, a2, a3, a4]\n"
+    with pytest.raises(StudyError, match=r"only 4 of 4 rows can be used .* fewer than the 5 needed"):
+        scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_higher_order_factor_over_two_constructs_says_what_to_add(tmp_path, rng):
+    data = pd.DataFrame(likert(rng, 300, 6), columns=[f"i{k}" for k in range(1, 7)])
+    models = ("  m:\n    constructs:\n      a: [i1, i2, i3]\n      b: [i4, i5, i6]\n"
+              "    higher_order:\n      g: [a, b]\n")
+    with pytest.raises(StudyError, match=r"higher-order factor 'g' .* explains 2 construct.*at least three"):
+        scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_bifactor_with_one_specific_factor_is_refused(tmp_path, rng):
+    data = pd.DataFrame(likert(rng, 300, 4), columns=[f"i{k}" for k in range(1, 5)])
+    models = "  m:\n    general: g\n    constructs:\n      a: [i1, i2, i3, i4]\n"
+    with pytest.raises(StudyError, match=r"bifactor model 'm' has one specific factor"):
+        scalewright.check(write_study(tmp_path, models, data))
