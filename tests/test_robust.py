@@ -224,3 +224,28 @@ def test_robust_se_match_empirical_sd_with_skewed_items():
     assert np.any(np.abs(np.mean(se_normal, axis=0) / sd - 1) > 0.15)
     # the scaled statistic's mean is near df = 9 (Monte Carlo error ≈ 0.25 here; allow 1)
     assert abs(np.mean(scaled) - 9) < 1.0
+
+
+def test_variance_trace_from_a_subsample_is_close_to_the_full_sample_one(monkeypatch):
+    # the adjusted df from a seeded subsample of the cases estimates the same
+    # tr((UΓ)²); theory: a sample moment of the subsample, relative error ~1/√m
+    from types import SimpleNamespace
+    import scalewright.estimate.robust as robust
+    from scalewright.evaluate import evaluate_normal
+    rng = np.random.default_rng(8)
+    n = 40_000
+    common = rng.standard_normal((n, 2))
+    load = np.zeros((6, 2))
+    load[:3, 0], load[3:, 1] = 0.7, 0.6
+    x = common @ load.T + rng.standard_t(6, size=(n, 6)) * 0.6
+    spec = SimpleNamespace(name="m", constructs={"a": ("i1", "i2", "i3"), "b": ("i4", "i5", "i6")},
+                           cross_loadings={}, residual_covariances=(), higher_order={},
+                           general=None, identification="unit-variance", place="t.yaml",
+                           items=tuple(f"i{k}" for k in range(1, 7)))
+    fit = evaluate_normal(spec, x)
+    est = fit.estimate
+    full = robust.robust_ml(est.layout, est.theta, x, fit.fit.chi_square).test
+    monkeypatch.setattr(robust, "GRAM_MAX_ROWS", 20_000)
+    sub = robust.robust_ml(est.layout, est.theta, x, fit.fit.chi_square).test
+    assert sub.trace == pytest.approx(full.trace, rel=1e-10)     # always the full sample
+    assert sub.trace_squared == pytest.approx(full.trace_squared, rel=0.1)

@@ -119,7 +119,7 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
         check_targets(Path(out), study.path.stem)
     data = read_items(study)
     screening = screen(data)
-    choice = choose_method(study, data)
+    choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
     models = tuple(_fit_model(study, spec, data, rows, choice) for spec in study.models)

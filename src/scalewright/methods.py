@@ -44,7 +44,7 @@ import numpy as np
 
 from scalewright.errors import StudyError
 from scalewright.itemdata import ItemData
-from scalewright.screening import screen
+from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study
 
 NORMAL, ROBUST, ORDINAL = "normal", "robust", "ordinal"
@@ -72,8 +72,12 @@ class MethodChoice:
                 "reasons": list(self.reasons), "ordinal_items": list(self.ordinal_items)}
 
 
-def choose_method(study: Study, data: ItemData) -> MethodChoice:
+def choose_method(study: Study, data: ItemData, screening: Screening | None = None
+                  ) -> MethodChoice:
     """Decide the estimator and the missing-answer handling (rules in the module docstring).
+
+    ``screening`` is the study's item screening when already computed (it is
+    computed here otherwise).
 
     Raises
     ------
@@ -81,7 +85,7 @@ def choose_method(study: Study, data: ItemData) -> MethodChoice:
         When the model file asks for full-information ML together with the
         ordinal method, which estimates its correlations pair by pair.
     """
-    screening = screen(data)
+    screening = screen(data) if screening is None else screening
     stats = {s.item: s for s in screening.items}
     used = [it for it in data.items if it in study.items]
     ordinal = tuple(it for it in used if study.items[it].treat_as == ORDINAL or (
