@@ -22,7 +22,8 @@ from scalewright.errors import StudyError
 from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
-from scalewright.evaluate import evaluate_normal
+from scalewright.estimate.normal import complete_data_blocks
+from scalewright.evaluate import evaluate_moments, evaluate_normal, moments_subset
 from scalewright.evaluate_ordinal import evaluate_ordinal
 from scalewright.evaluate_real import evaluate_answers, missing_data_summary
 from scalewright.invariance import invariance_keys
@@ -172,9 +173,18 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     complete = x[~np.isnan(x).any(axis=1)]
     _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
     model = evaluate_answers(spec, x, choice, data.file.name)
+    if np.isnan(x).any():
+        def refit(reduced_spec, answers):
+            return evaluate_answers(reduced_spec, answers, choice, data.file.name)
+    else:
+        # complete data: the refits of the refinement path and of omega-if-dropped
+        # need only the ML point estimates and normal-theory fit, whose sufficient
+        # statistics are the moments, so large files are not copied per refit
+        moments = complete_data_blocks(x)[0]
 
-    def refit(reduced_spec, answers):
-        return evaluate_answers(reduced_spec, answers, choice, data.file.name)
+        def refit(reduced_spec, answers):
+            return evaluate_moments(reduced_spec,
+                                    moments_subset(moments, spec.items, reduced_spec.items))
 
     observed = None
     if model.estimate.method.endswith("fiml"):

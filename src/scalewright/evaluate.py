@@ -13,7 +13,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from scalewright.diagnostics import model_warnings
-from scalewright.estimate.normal import complete_data_blocks, fit_normal
+from scalewright.estimate.normal import Block, complete_data_blocks, fit_normal
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.indices import fit_indices, independence_chi_square, saturated_loglik
 from scalewright.modelresult import ModelResult
@@ -27,16 +27,23 @@ def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
     """Normal-theory ML for one model on complete data ``x`` (n × p, columns
     in ``spec.items`` order)."""
     with threadpool_limits(limits=1, user_api="blas"):
-        blocks = complete_data_blocks(x)
-        layout = build_layout(spec, blocks[0].cov)
+        return evaluate_moments(spec, complete_data_blocks(x)[0])
+
+
+def evaluate_moments(spec, block: Block) -> ModelResult:
+    """Normal-theory ML for one model from the sample moments of complete
+    data (the sufficient statistics): ``block.cov`` (÷n), ``block.mean``,
+    ``block.n``, items in ``spec.items`` order."""
+    with threadpool_limits(limits=1, user_api="blas"):
+        blocks = (block,)
+        layout = build_layout(spec, block.cov)
         theta, record, objective = fit_normal(layout, blocks)
         _, _, info = objective.value_grad_info(theta)
         acov, unidentified = invert_information(info, objective.n)
         loglik = objective.loglik(theta)
         estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified,
                             blocks)
-        covs = [b.cov for b in blocks]
-        ns = [b.n for b in blocks]
+        covs, ns = [block.cov], [block.n]
         mats = estimate.matrices()
         fit = fit_indices(
             loglik=loglik, saturated=saturated_loglik(covs, ns), df=layout.df(),
@@ -46,3 +53,10 @@ def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
         std = standardize(mats)
         warnings = model_warnings(estimate, std)
     return ModelResult(spec.name, estimate, fit, std, NORMAL_ML, tuple(warnings))
+
+
+def moments_subset(block: Block, items: tuple[str, ...], subset: tuple[str, ...]) -> Block:
+    """The moments of ``subset`` of the ``items`` a block was computed for."""
+    index = np.array([items.index(i) for i in subset])
+    return Block(block.group, np.arange(len(index)), block.n,
+                 block.cov[np.ix_(index, index)], block.mean[index])
