@@ -23,7 +23,7 @@ from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
-from scalewright.evaluate import evaluate_moments, evaluate_normal, moments_subset
+from scalewright.evaluate import evaluate_moments, moments_subset
 from scalewright.evaluate_ordinal import evaluate_ordinal
 from scalewright.evaluate_real import evaluate_answers, missing_data_summary
 from scalewright.invariance import invariance_keys
@@ -164,25 +164,30 @@ def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
 def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:
     """One rival model by the chosen method, with its local-fit and scale-quality keys."""
     columns = [data.items.index(i) for i in spec.items]
-    x = np.asarray(data.values)[np.ix_(rows, columns)]
+    values = np.asarray(data.values)
+    if rows.all() and columns == list(range(values.shape[1])):
+        x = values                        # no copy of a large file
+    else:
+        x = values[np.ix_(rows, columns)]
     if choice.estimator == ORDINAL:
         model = evaluate_ordinal(spec, x, spec.items, study.scale, study.collapse_sparse)
         complete = x[~np.isnan(x).any(axis=1)]
-        model.extra.update(quality_keys(model, study, complete, fit=evaluate_normal))
+        model.extra.update(quality_keys(model, study, complete))
         return model
-    complete = x[~np.isnan(x).any(axis=1)]
+    incomplete = np.isnan(x).any(axis=1)
+    complete = x[~incomplete] if incomplete.any() else x
     _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
     model = evaluate_answers(spec, x, choice, data.file.name)
     if np.isnan(x).any():
-        def refit(reduced_spec, answers):
-            return evaluate_answers(reduced_spec, answers, choice, data.file.name)
+        def refit(reduced_spec, answers, columns):
+            return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name)
     else:
         # complete data: the refits of the refinement path and of omega-if-dropped
         # need only the ML point estimates and normal-theory fit, whose sufficient
         # statistics are the moments, so large files are not copied per refit
         moments = complete_data_blocks(x)[0]
 
-        def refit(reduced_spec, answers):
+        def refit(reduced_spec, answers, columns):
             return evaluate_moments(reduced_spec,
                                     moments_subset(moments, spec.items, reduced_spec.items))
 

@@ -55,6 +55,15 @@ def evaluate_moments(spec, block: Block) -> ModelResult:
     return ModelResult(spec.name, estimate, fit, std, NORMAL_ML, tuple(warnings))
 
 
+def refit_columns(spec, x: np.ndarray, columns) -> ModelResult:
+    """The refit contract of the scale-quality stages: fit ``spec`` to the
+    ``columns`` of ``x`` (its items, in ``spec.items`` order) by complete-data
+    ML.  Stages receive the refit as a function of the whole answer matrix and
+    the column indices, so that a refit that starts from moments need not copy
+    a large data matrix column by column."""
+    return evaluate_normal(spec, x[:, columns])
+
+
 def moments_subset(block: Block, items: tuple[str, ...], subset: tuple[str, ...]) -> Block:
     """The moments of ``subset`` of the ``items`` a block was computed for."""
     index = np.array([items.index(i) for i in subset])

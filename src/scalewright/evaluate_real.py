@@ -107,9 +107,10 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> M
                          "normal-theory and robust ML only")
     robust = choice.estimator == ROBUST
     with threadpool_limits(limits=1, user_api="blas"):
-        if choice.missing_handling == FULL_INFORMATION and np.isnan(x).any():
+        incomplete = np.isnan(x).any(axis=1)
+        if choice.missing_handling == FULL_INFORMATION and incomplete.any():
             return _full_information(spec, x, robust, where)
-        return _complete(spec, x[~np.isnan(x).any(axis=1)], robust)
+        return _complete(spec, x[~incomplete] if incomplete.any() else x, robust)
 
 
 def _complete(spec, x: np.ndarray, robust: bool) -> ModelResult:
@@ -162,7 +163,9 @@ def missing_data_summary(data: ItemData, items: tuple[str, ...] | None = None) -
     ``items`` defaults to all of the study's items.
     """
     items = tuple(data.items) if items is None else tuple(items)
-    x = np.asarray(data.values[:, [data.items.index(it) for it in items]])
+    x = np.asarray(data.values)
+    if items != tuple(data.items):
+        x = x[:, [data.items.index(it) for it in items]]
     with threadpool_limits(limits=1, user_api="blas"):
         patterns = missing_patterns(x, items, data.file.name)
         out = patterns.to_dict()

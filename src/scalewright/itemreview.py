@@ -48,7 +48,7 @@ import numpy as np
 import pandas as pd
 
 from scalewright.errors import StudyError
-from scalewright.evaluate import evaluate_normal
+from scalewright.evaluate import refit_columns
 from scalewright.hints import ScoreTests, modification_hint_keys, score_tests
 from scalewright.layout import CONSTRUCT, GENERAL, LOADING, RESIDUAL_COV
 from scalewright.modelresult import ModelResult
@@ -256,7 +256,7 @@ class _State:
 
 def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                     result: ModelResult | None = None, max_steps: int | None = None,
-                    fit: Callable = evaluate_normal) -> Refinement:
+                    fit: Callable = refit_columns) -> Refinement:
     """Remove flagged items one at a time, refitting after each removal.
 
     Parameters
@@ -273,7 +273,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     max_steps : int, optional
         Stop after this many removals (no limit by default).
     fit : callable
-        ``fit(spec, x) -> ModelResult``, the estimator the model was fitted
+        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`), the estimator the model was fitted
         with (normal-theory ML on complete data by default).
 
     Returns
@@ -285,7 +285,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     """
     column = {item: j for j, item in enumerate(spec.items)}
     cov = pd.DataFrame(x).cov().to_numpy()     # pairwise complete; np.cov when nothing is missing
-    state = _state(spec, result or fit(spec, x), cov, column, settings)
+    state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items]), cov, column,
+                   settings)
     steps = [Step(None, "the model as specified", _fit(state.result), state.reliability,
                   tuple(r.item for r in state.review), ())]
     while True:
@@ -371,7 +372,7 @@ def _trial(state: _State, review: ItemReview, x, cov, column, settings, fit):
     spec = without_item(state.spec, review.item)
     keep = [column[i] for i in spec.items]
     try:
-        result = fit(spec, x[:, keep])
+        result = fit(spec, x, keep)
     except StudyError as exc:
         return review, None, str(exc)
     if not result.converged:
@@ -431,7 +432,7 @@ def _tried(trial, state: _State) -> dict:
 # --------------------------------------------------------------------------- all keys
 
 def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
-                 max_steps: int | None = None, fit: Callable = evaluate_normal,
+                 max_steps: int | None = None, fit: Callable = refit_columns,
                  observed_cov: np.ndarray | None = None) -> dict:
     """The per-model JSON keys of local fit and item quality.
 
@@ -446,7 +447,7 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     max_steps : int, optional
         Limit of the refinement path.
     fit : callable
-        ``fit(spec, x) -> ModelResult`` for the refits of the refinement path.
+        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits of the refinement path.
     observed_cov : ndarray, optional
         The saturated covariance when the data have missing-data blocks
         (see :func:`scalewright.residuals.residual_correlations`).

@@ -28,7 +28,7 @@ from scalewright.bifactor import bifactor_coefficients, higher_order_coefficient
 from scalewright.coefficient_types import Note, plain
 from scalewright.errors import StudyError
 from scalewright.estimate.result import Estimate
-from scalewright.evaluate import evaluate_normal
+from scalewright.evaluate import refit_columns
 from scalewright.itemreview import without_item
 from scalewright.layout import CONSTRUCT, GENERAL, HIGHER, cell_derivatives
 from scalewright.modelresult import ModelResult
@@ -42,7 +42,7 @@ LEVEL = 0.95
 
 
 def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
-                       fit: Callable = evaluate_normal) -> dict:
+                       fit: Callable = refit_columns) -> dict:
     """The per-model JSON keys of reliability and distinctness.
 
     Parameters
@@ -57,7 +57,7 @@ def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         ``model_result.estimate.layout.items`` order; missing answers are NaN
         (allowed when ``fit`` handles them, e.g. full-information ML).
     fit : callable
-        ``fit(spec, x) -> ModelResult`` for the refits behind
+        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits behind
         ``omega_if_dropped``, given ``x`` without the dropped item's column;
         pass the function that fitted ``model_result`` so that omega and
         omega if dropped come from the same method.
@@ -292,7 +292,7 @@ def _omega_if_dropped(spec, construct: str, items: Sequence[str], x: np.ndarray,
     for item in items:
         reduced = without_item(spec, item)
         try:
-            refit = fit(reduced, x[:, [column[i] for i in reduced.items]])
+            refit = fit(reduced, x, [column[i] for i in reduced.items])
         except StudyError as exc:
             values.append(None)
             failed.append((item, f"was refused: {exc}"))

@@ -143,6 +143,9 @@ def missing_patterns(values: np.ndarray, items: tuple[str, ...], where: str) -> 
     """
     n, p = values.shape
     answered = ~np.isnan(values)
+    if answered.all():          # complete data: one pattern, nothing to sort
+        return Patterns(tuple(items), np.ones((1, p), dtype=bool), np.zeros(n, dtype=np.intp),
+                        np.array([n]))
     per_item = answered.sum(axis=0)
     thin = np.nonzero(per_item < 2)[0]
     if len(thin):

@@ -158,13 +158,16 @@ def _single_pattern(layout: Layout) -> Pattern:
     return layout.patterns[0]
 
 
-def casewise_scores(layout: Layout, theta: np.ndarray, x: np.ndarray,
-                    mean: np.ndarray | None = None, cov: np.ndarray | None = None) -> np.ndarray:
-    """Centred casewise scores ``g_i`` (``N × q``) of a covariance-structure
-    model on complete data ``x`` (columns in ``layout.items`` order).
+def score_cross_products(layout: Layout, theta: np.ndarray, x: np.ndarray,
+                         mean: np.ndarray | None = None, cov: np.ndarray | None = None
+                         ) -> np.ndarray:
+    """``Σ_i g_i g_iᵀ`` (``q × q``) of the centred casewise scores of a
+    covariance-structure model on complete data ``x`` (columns in
+    ``layout.items`` order), accumulated in chunks of cases so that the
+    ``N × q`` score matrix is never held whole.
 
     ``g_ic = (z_iᵀa_c)(z_iᵀb_c) − a_cᵀVSVb_c`` with ``z_i = V(x_i − x̄)``;
-    they sum to ``−N ∇f(θ)``, i.e. to zero at the ML estimate.
+    the scores sum to ``−N ∇f(θ)``, i.e. to zero at the ML estimate.
     """
     pattern = _single_pattern(layout)
     mats = pattern.matrices(theta)
@@ -174,10 +177,11 @@ def casewise_scores(layout: Layout, theta: np.ndarray, x: np.ndarray,
     a, b, _ = cell_derivatives(pattern, mats)
     inc = incidence(pattern, layout.n_params)
     shift = np.einsum("ic,ic->c", a, v @ s @ v @ b)
-    out = np.empty((len(x), layout.n_params))
+    out = np.zeros((layout.n_params, layout.n_params))
     for start in range(0, len(x), CHUNK):
         z = (x[start:start + CHUNK] - mean) @ v
-        out[start:start + CHUNK] = ((z @ a) * (z @ b) - shift) @ inc
+        g = ((z @ a) * (z @ b) - shift) @ inc
+        out += g.T @ g
     return out
 
 
@@ -217,8 +221,7 @@ def robust_ml(layout: Layout, theta: np.ndarray, x: np.ndarray, chi_square: floa
     inc = incidence(pattern, layout.n_params)
     info = inc.T @ expected_information(a, b, v) @ inc
     info_inv = linalg.inv(info)
-    scores = casewise_scores(layout, theta, x, mean, s)
-    meat = scores.T @ scores / n
+    meat = score_cross_products(layout, theta, x, mean, s) / n
     acov = info_inv @ meat @ info_inv / n
     trace = _mean_case_norm(x, mean, v, s) - float(np.sum(info_inv * meat))
     trace_squared = float("nan")
