@@ -12,8 +12,8 @@ import math
 
 import pytest
 
-from scalewright.report.formatting import (MINUS, coef, count, dec, interval, p_equals, percent,
-                                           plain, pval)
+from scalewright.report.formatting import (MINUS, coef, count, dec, dof, interval, p_equals,
+                                           percent, plain, pval)
 
 
 @pytest.mark.parametrize("value, expected", [
@@ -64,6 +64,14 @@ def test_intervals_are_bracketed_pairs():
 def test_counts_group_thousands_with_a_thin_space():
     assert count(1060) == "1\u202f060"
     assert count(208) == "208"
+
+
+def test_degrees_of_freedom_have_no_thousands_separator():
+    # APA 7th ed.: degrees of freedom are among the exceptions to commas in numbers
+    # of 1,000 or more (from memory)
+    assert dof(1212) == "1212"
+    assert dof(1140.0) == "1140"
+    assert dof(None) == "\u2013"
 
 
 def test_percent_has_one_decimal():

@@ -71,6 +71,15 @@ def count(x) -> str:
     return f"{int(round(x)):,}".replace(",", THIN_SPACE).replace("-", MINUS)
 
 
+def dof(x) -> str:
+    """Degrees of freedom: a whole number without a thousands separator,
+    ``1212`` (APA Publication Manual, 7th ed., the exceptions to commas in
+    numbers; from memory)."""
+    if _missing(x):
+        return DASH
+    return f"{int(round(x))}".replace("-", MINUS)
+
+
 def interval(pair, places: int = 3, bounded: bool = True) -> str:
     """A confidence interval ``[.033, .062]``."""
     if pair is None or len(pair) != 2 or any(_missing(v) for v in pair):
@@ -90,5 +99,5 @@ def plain(text: str) -> str:
     return "" if text == DASH else text
 
 
-FILTERS = {"dec": dec, "coef": coef, "pval": pval, "count": count, "interval": interval,
+FILTERS = {"dec": dec, "coef": coef, "pval": pval, "count": count, "dof": dof, "interval": interval,
            "percent": percent, "p_equals": p_equals}
