@@ -1,20 +1,26 @@
-"""The HTML report (report/): sections present only when their keys are,
+"""The HTML report (report/): sections present exactly when their keys are,
 escaping, no external resources, headings and header cells, marks against
-published cutoffs, generated wording, tables export, determinism and size.
+published conventions, generated wording, tables export, determinism and size.
 
-The report is rendered from the real demo output (``api.check`` on the demo
-model file, plus the comparison of compare.py) and from that output with
-the per-model keys of issues 3, 5 and 6 added in the shapes those issues
-define; the added numbers only test layout, they are not references.
+Every expected value is derived here from the result dict the report is
+rendered from: the demo study's ``api.check(...).to_dict()`` (run once for
+the whole session), or a small dict built in a test with values chosen to
+exercise one rule.  The numbers in such a dict test wording and layout only;
+they are not references.  Conventions are written out with their sources
+(Hu & Bentler 1999; Fornell & Larcker 1981; Henseler, Ringle & Sarstedt 2015;
+Raftery 1995; Nunnally & Bernstein 1994), and numbers are formatted by the
+APA rules in :func:`apa` so that the report's formatter is not its own
+reference.
 """
 
 from __future__ import annotations
 
 import copy
 import csv
+import html as htmllib
 import io
+import math
 import re
-import shutil
 from functools import lru_cache
 from html.parser import HTMLParser
 from pathlib import Path
@@ -23,7 +29,6 @@ import numpy as np
 import pytest
 
 from scalewright import api
-from scalewright.compare import compare_models
 from scalewright.errors import StudyError
 from scalewright.report.checklist import checklist_rows
 from scalewright.report.document import build_document, export_tables
@@ -34,90 +39,71 @@ from scalewright.report.render import css_string, render_html
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "models" / "teacher-climate.yaml"
 HOSTILE = "<script>alert(1)</script>"
+MINUS = "\u2212"
+
+#: Hu & Bentler (1999), Structural Equation Modeling 6:1–55: CFI, TLI ≥ .95; RMSEA ≤ .06; SRMR ≤ .08
+HU_BENTLER = {"cfi": (0.95, True), "tli": (0.95, True), "rmsea": (0.06, False),
+              "srmr": (0.08, False)}
+#: Nunnally & Bernstein (1994): a reliability of .70 is a common minimum for research use
+RELIABILITY_MINIMUM = 0.70
 
 
 @lru_cache(maxsize=None)
-def _demo_result(path: str):
-    result = api.check(path)
-    report = result.to_dict()
-    report.update(compare_models(result.study.models, report["models"]))
-    return report
+def _demo_result(path: str) -> dict:
+    return api.check(path).to_dict()
 
 
 def demo_report(path: Path = DEMO) -> dict:
-    """The demo study's result dict with the rival-model comparison."""
+    """A fresh copy of the demo study's result dict (the check runs once per session)."""
     return copy.deepcopy(_demo_result(str(path)))
 
 
-def hostile_model_file(folder: Path) -> Path:
-    """The demo model file and data copied to ``folder`` with a script as the
-    study title and as the wording of item wl1."""
-    shutil.copy(DEMO.with_suffix(".csv"), folder / "teacher-climate.csv")
-    text = DEMO.read_text(encoding="utf-8")
-    text = text.replace("study: Teacher workplace climate pilot", f'study: "{HOSTILE} pilot"')
-    text = text.replace("wl1: I have more work than I can do well.", f'wl1: "{HOSTILE}"')
-    target = folder / "teacher-climate.yaml"
-    target.write_text(text, encoding="utf-8")
-    return target
+def hostile_report() -> dict:
+    """The demo's result dict with a script in the study title and in place of
+    item wl1's wording wherever that wording appears (items, hints, released
+    constraints), as a model file with that wording would give."""
+    report = demo_report()
+    wording = next(i["wording"] for i in report["study"]["items"] if i["name"] == "wl1")
+
+    def swap(x):
+        if isinstance(x, dict):
+            return {k: swap(v) for k, v in x.items()}
+        if isinstance(x, list):
+            return [swap(v) for v in x]
+        return x.replace(wording, HOSTILE) if isinstance(x, str) else x
+
+    report = swap(report)
+    report["study"]["title"] = f"{HOSTILE} pilot"
+    return report
 
 
-def with_quality_keys(report: dict) -> dict:
-    """Add the keys of issues 3, 5 and 6, in their documented shapes, to the
-    second model ('three-constructs') and the study."""
-    out = copy.deepcopy(report)
-    m = out["models"][1]
-    m["reliability"] = [
-        {"construct": c, "n_items": 6, "alpha": a, "alpha_ci95": [a - .05, a + .04],
-         "omega": o, "coefficient_h": o + .03}
-        for c, a, o in (("workload", .758, .77), ("support", .810, .82), ("autonomy", .674, .66))]
-    m["validity"] = {"ave": {"workload": .41, "support": .45, "autonomy": .36},
-                     "composite_reliability": {"workload": .80, "support": .83, "autonomy": .75},
-                     "htmt": [{"a": "workload", "b": "support", "value": .31},
-                              {"a": "support", "b": "autonomy", "value": .88}]}
-    m["modification_hints"] = [
-        {"kind": "residual_covariance", "item_a": "cs2", "item_b": "cs5", "group": None,
-         "mi": 29.6, "epc": .253, "std_epc": .632, "reading": "cs2 and cs5 share wording."},
-        {"kind": "loading", "construct": "autonomy", "item": "wl6", "group": None, "mi": 11.0,
-         "epc": .297, "std_epc": .271, "reading": "wl6 may also reflect autonomy."}]
-    m["modification_hint_notes"] = {"threshold": 10.0, "caution": "Capitalises on chance.",
-                                    "judging": "Judge by the EPC."}
-    items = m["items"]
-    m["residual_correlations"] = {
-        "threshold": .10, "n_flagged": 1,
-        "largest": [{"a": "wl6", "b": "cs1", "value": .2196, "standardized": 3.34,
-                     "flagged": True}],
-        "items": items,
-        "matrix": [[0.0 if i == j else (.2196 if {i, j} == {5, 6} else -.02)
-                    for j in range(len(items))] for i in range(len(items))]}
-    m["item_review"] = [{"item": "ca6", "flags": ["weak_loading"],
-                         "details": [{"flag": "weak_loading", "with": "autonomy", "value": .106,
-                                      "text": "standardized loading 0.11 on autonomy"}]}]
-    m["refinement"] = {"steps": [
-        {"removed": None, "reason": "as specified", "fit": {"cfi": .930, "rmsea": .048,
-                                                            "srmr": .066},
-         "reliability": {"workload": .758}, "flagged": ["ca6"], "tried": []},
-        {"removed": "ca6", "reason": "weak", "fit": {"cfi": .95, "rmsea": .04, "srmr": .05},
-         "reliability": {"workload": .758}, "flagged": [], "tried": []}],
-        "stopped": "No item is flagged.", "note": "A suggestion, not a change."}
-    m["thresholds"] = [{"item": "wl1", "values": [-2.1, -1.4, -0.5, 0.7]}]
-    out["models"][3]["bifactor"] = {
-        "general": "climate", "items": items, "omega_total": .88, "omega_hierarchical": .61,
-        "relative_omega": .69, "ecv": .48, "puc": .71, "h": .84,
-        "subscales": [{"factor": "workload", "items": items[:6], "omega_subscale": .78,
-                       "omega_hierarchical_subscale": .41, "general_share": .37, "h": .72}],
-        "notes": []}
-    out["invariance"] = [
-        {"step": "configural", "fit": {"chi_square": 300.0, "df": 264, "cfi": .95,
-                                       "rmsea": .04, "srmr": .06},
-         "delta": {}, "difference_test": {}, "decision": "baseline"},
-        {"step": "metric", "fit": {"chi_square": 320.0, "df": 279, "cfi": .948, "rmsea": .04,
-                                   "srmr": .065},
-         "delta": {"cfi": -.002, "rmsea": 0.0, "srmr": .005},
-         "difference_test": {"chi_square": 20.0, "df": 15, "p_value": .17},
-         "decision": {"holds": True, "text": "Equal loadings hold by the conventions."}}]
-    out["released"] = [{"step": "scalar", "kind": "intercept", "item": "wl6", "construct": None,
-                        "text": "The intercept of item 'wl6' differs between groups."}]
-    return out
+def apa(x, places: int = 3, bounded: bool = True) -> str:
+    """APA Publication Manual, 7th ed., sec. 6.36: ``places`` decimals, no
+    leading zero for statistics bounded by 1; the report's minus sign."""
+    text = f"{abs(x):.{places}f}"
+    if bounded and text.startswith("0."):
+        text = text[1:]
+    return (MINUS if x < 0 and float(text) != 0 else "") + text
+
+
+def p_text(p) -> str:
+    """APA 7th ed., sec. 6.42: exact p to three decimals, '< .001' below that."""
+    return "< .001" if p < 0.001 else apa(p)
+
+
+def meets_hu_bentler(index: str, value: float) -> bool:
+    cut, above = HU_BENTLER[index]
+    return value >= cut if above else value <= cut
+
+
+def _section(html: str, section_id: str) -> str:
+    start = html.index(f'<section id="{section_id}"')
+    return html[start:html.index("</section>", start)]
+
+
+def _table(doc, caption_start: str):
+    (table,) = [t for t in doc.tables if t.title.startswith(caption_start)]
+    return table
 
 
 class _Outline(HTMLParser):
@@ -156,61 +142,120 @@ def _outline(html: str) -> _Outline:
 
 # --------------------------------------------------------------------------- structure
 
-def test_every_section_and_every_rival_model_is_present():
+def _expected_sections(report: dict) -> list[str]:
+    return (["summary", "design"] + (["comparison"] if report.get("comparison") else [])
+            + [f"model-{k}" for k in range(1, len(report["models"]) + 1)]
+            + (["invariance"] if report.get("invariance") else [])
+            + ["data", "methods", "cautions", "checklist"])
+
+
+def test_every_section_and_every_rival_model_is_present_in_reading_order():
     report = demo_report()
-    outline = _outline(render_html(report))
-    models = [f"model-{k}" for k in range(1, len(report["models"]) + 1)]
-    assert outline.section_ids == ["summary", "design", "comparison", *models, "data", "methods",
-                                   "cautions", "checklist"]
+    assert report.get("comparison") and report.get("invariance")   # the demo exercises both
+    assert _outline(render_html(report)).section_ids == _expected_sections(report)
+
+
+def test_sections_of_absent_top_level_keys_are_left_out():
+    report = demo_report()
+    for key in ("comparison", "invariance"):
+        del report[key]
+    ids = _outline(render_html(report)).section_ids
+    assert ids == _expected_sections(report)
+    assert "comparison" not in ids and "invariance" not in ids
+
+
+#: key path in a model's dict -> caption of the table that shows it (written here, not imported)
+MODEL_TABLES = {
+    "construct_correlations": "Construct correlations in ‘{}’",
+    "higher_order_paths": "Higher-order paths of ‘{}’",
+    "intercepts": "Intercepts, residual variances and R² of ‘{}’",
+    "reliability": "Reliability of the constructs of ‘{}’",
+    "reliability.items": "Item analysis of ‘{}’",
+    "validity": "Average variance extracted of ‘{}’",
+    "validity.fornell_larcker": "Correlations against √AVE in ‘{}’",
+    "validity.htmt": "Heterotrait–monotrait ratios in ‘{}’",
+    "bifactor": "General and specific factors in ‘{}’",
+    "higher_order": "The higher-order factor of ‘{}’",
+    "modification_hints": "Modification hints for ‘{}’",
+    "residual_correlations.largest": "Largest residual correlations of ‘{}’",
+    "item_review": "Items to look at in ‘{}’",
+    "refinement.steps": "A refinement path for ‘{}’",
+}
+
+
+def _present(model: dict, path: str) -> bool:
+    head, _, leaf = path.partition(".")
+    value = model.get(head)
+    if leaf and isinstance(value, list):          # reliability rows: any row with the leaf
+        return any(row.get(leaf) for row in value)
+    if leaf:
+        return bool((value or {}).get(leaf))
+    return bool(value)
+
+
+def _strip(model: dict, path: str) -> None:
+    head, _, leaf = path.partition(".")
+    if not leaf:
+        model.pop(head, None)
+    elif isinstance(model.get(head), list):
+        for row in model[head]:
+            row.pop(leaf, None)
+    elif isinstance(model.get(head), dict):
+        model[head].pop(leaf, None)
+
+
+@pytest.mark.parametrize("path, caption", MODEL_TABLES.items())
+def test_a_model_table_is_shown_exactly_when_its_key_is_present(path, caption):
+    report = demo_report()
+    html = render_html(report)
+    assert any(_present(m, path) for m in report["models"]), f"the demo has no '{path}'"
+    for m in report["models"]:
+        assert (caption.format(m["name"]) in html) == _present(m, path), (m["name"], path)
+    for m in report["models"]:
+        _strip(m, path)
+    html = render_html(report)
+    assert not any(caption.format(m["name"]) in html for m in report["models"])
+
+
+def test_thresholds_of_an_ordinal_model_are_tabled_item_by_item():
+    # the ordinal route's shape: item -> thresholds in category order (values chosen to test layout)
+    report = demo_report()
+    thresholds = {"wl1": [-2.1, -1.4, -0.5, 0.7], "wl2": [-1.9, -1.0, 0.3]}
+    report["models"][1]["thresholds"] = thresholds
+    table = _table(build_document(report), f"Item thresholds in ‘{report['models'][1]['name']}’")
+    assert table.columns == ("Item", "τ1", "τ2", "τ3", "τ4")
+    for row in table.rows:
+        values = thresholds[row[0].text]
+        assert [c.text for c in row[1:len(values) + 1]] == [apa(v, 2, bounded=False)
+                                                            for v in values]
+        assert all(c.text == "" for c in row[len(values) + 1:])
 
 
 def test_headings_start_at_one_level_and_never_skip_a_level():
-    outline = _outline(render_html(with_quality_keys(demo_report())))
+    outline = _outline(render_html(demo_report()))
     assert outline.headings[0] == 1 and outline.headings.count(1) == 1
     assert all(b - a <= 1 for a, b in zip(outline.headings, outline.headings[1:]))
 
 
 def test_every_header_cell_has_a_scope():
-    outline = _outline(render_html(with_quality_keys(demo_report())))
-    assert outline.th > 100 and outline.th_without_scope == 0
+    report = demo_report()
+    outline = _outline(render_html(report))
+    # every table has at least a header row, so there are at least as many th as tables
+    assert outline.th >= len(build_document(report).tables) and outline.th_without_scope == 0
 
 
 def test_nothing_is_loaded_or_run_from_outside_the_file():
-    html = render_html(with_quality_keys(demo_report()))
+    html = render_html(demo_report())
     assert _outline(html).forbidden == []
     # the only URL is the SVG namespace name, which is never fetched
     assert set(re.findall(r"https?://[^\s\"')]+", html)) == {"http://www.w3.org/2000/svg"}
     assert "@import" not in html and "url(http" not in html
 
 
-def test_sections_of_absent_keys_are_left_out():
-    html = render_html(demo_report())
-    for absent in ("Reliability of the constructs", "Modification hints",
-                   'id="invariance"', "Item thresholds"):
-        assert absent not in html
-
-
-@pytest.mark.parametrize("text", [
-    "Reliability of the constructs of ‘three-constructs’",
-    "Average variance extracted of ‘three-constructs’",
-    "Heterotrait–monotrait ratios in ‘three-constructs’",
-    "Modification hints for ‘three-constructs’",
-    "Largest residual correlations of ‘three-constructs’",
-    "Items to look at in ‘three-constructs’",
-    "A refinement path for ‘three-constructs’",
-    "Item thresholds in ‘three-constructs’",
-    "General and specific factors in ‘bifactor’",
-    "Measurement invariance, step by step",
-])
-def test_sections_of_present_keys_are_shown(text):
-    assert text in render_html(with_quality_keys(demo_report()))
-
-
 # --------------------------------------------------------------------------- safety
 
-def test_hostile_title_and_wording_are_escaped(tmp_path):
-    result = api.check(hostile_model_file(tmp_path))
-    html = render_html(result.to_dict())
+def test_hostile_title_and_wording_are_escaped():
+    html = render_html(hostile_report())
     assert "<script" not in html.lower()
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
     assert _outline(html).forbidden == []
@@ -222,78 +267,218 @@ def test_the_running_page_header_cannot_end_its_css_string():
     assert escaped.startswith("a\\000022")
 
 
-# --------------------------------------------------------------------------- numbers and words
+# --------------------------------------------------------------------------- fit marks
 
-def test_fit_marks_follow_the_hu_bentler_cutoffs():
-    # Hu & Bentler (1999): CFI ≥ .95, RMSEA ≤ .06, SRMR ≤ .08; the demo's
-    # bifactor model has CFI .974 (meets) and the three-construct model .930 (misses)
-    doc = build_document(demo_report())
-    summary = doc.tables[0]
+#: fit values just inside and just outside each cutoff, chosen to exercise the marks
+NEAR_CUTOFFS = {"cfi": (0.951, 0.949), "tli": (0.951, 0.949), "rmsea": (0.059, 0.061),
+                "srmr": (0.079, 0.081)}
+
+
+@pytest.mark.parametrize("side", [0, 1])
+def test_fit_marks_follow_the_hu_bentler_cutoffs(side):
+    report = demo_report()
+    report["models"][0]["fit"].update({k: v[side] for k, v in NEAR_CUTOFFS.items()})
+    summary = build_document(report).tables[0]
+    assert summary.columns[4:8] == ("CFI", "TLI", "RMSEA [90% CI]", "SRMR")
     rows = {row[0].text: row for row in summary.rows}
-    assert rows["bifactor"][4].mark == "✓" and rows["three-constructs"][4].mark == "✗"
-    assert rows["three-constructs"][6].mark == "✓"   # RMSEA .048 ≤ .06
+    marks = []
+    for m in report["models"]:
+        row = rows[m["name"]]
+        for k, index in enumerate(("cfi", "tli", "rmsea", "srmr"), start=4):
+            expected = "✓" if meets_hu_bentler(index, m["fit"][index]) else "✗"
+            assert row[k].mark == expected, (m["name"], index)
+            marks.append(expected)
+    assert {"✓", "✗"} <= set(marks)   # the demo exercises both sides of the cutoffs
     assert "Hu & Bentler (1999)" in summary.notes[0] and "conventions" in summary.notes[0]
 
 
-def test_invariance_steps_show_their_decision_text_and_released_constraints():
-    html = render_html(with_quality_keys(demo_report()))
-    assert "✓ Equal loadings hold by the conventions." in html
-    assert "The intercept of item &#39;wl6&#39; differs between groups." in html
-
-
 def test_robust_indices_replace_the_normal_theory_ones_when_present():
-    # issue 5: fit gains chi_square_scaled and cfi_robust …; the summary then
-    # marks the robust CFI (here .960 ≥ .95, Hu & Bentler 1999) instead of .930
+    # robust fit keys (chi_square_scaled, cfi_robust); the robust CFI is put on the
+    # other side of the .95 cutoff (Hu & Bentler 1999) from the normal-theory one
     report = demo_report()
-    report["models"][1]["fit"].update(chi_square_scaled=180.0, scaling_factor=1.09,
-                                      cfi_robust=0.960)
+    model = report["models"][1]
+    robust = 0.94 if meets_hu_bentler("cfi", model["fit"]["cfi"]) else 0.96
+    model["fit"].update(chi_square_scaled=180.0, scaling_factor=1.09, cfi_robust=robust)
     summary = build_document(report).tables[0]
     assert summary.columns[2] == "χ² scaled"
-    row = next(r for r in summary.rows if r[0].text == "three-constructs")
-    assert (row[2].text, row[5].text, row[5].mark) == ("180.00", ".960", "✓")
+    row = next(r for r in summary.rows if r[0].text == model["name"])
+    assert (row[2].text, row[5].text) == ("180.00", apa(robust))
+    assert row[5].mark == ("✓" if meets_hu_bentler("cfi", robust) else "✗")
+
+
+# --------------------------------------------------------------------------- the summary
+
+def _rivals(first: str | None) -> dict:
+    """Three rival models chosen to exercise the comparison sentences: 'A' and
+    'B' are equivalent (a nested test on 0 df) and share the lowest BIC; 'C'
+    has the lowest AIC and the difference test prefers it to 'A'."""
+    bic = {"A": 1000.0, "B": 1000.0, "C": 1004.4}
+    aic = {"A": 950.0, "B": 950.0, "C": 940.0}
+    # BIC weights exp(−ΔBIC/2), normalised (Raftery 1995; Wagenmakers & Farrell 2004)
+    raw = {n: math.exp(-(b - min(bic.values())) / 2) for n, b in bic.items()}
+    weights = {n: w / sum(raw.values()) for n, w in raw.items()}
+    fit = {"chi_square": 120.0, "df": 50, "p_value": 0.01, "cfi": 0.96, "tli": 0.95,
+           "rmsea": 0.05, "rmsea_ci90": [0.04, 0.06], "srmr": 0.05}
+    return {
+        "data": {"n_rows": 300, "n_used": 300, "missing_handling": "none"},
+        "models": [{"name": n, "converged": True, "fit": dict(fit), "loadings": [],
+                    "constructs": []} for n in bic],
+        "comparison": {
+            "models": [{"name": n, "first": n == first, "bic": bic[n], "aic": aic[n],
+                        "delta_bic": bic[n] - min(bic.values()), "bic_weight": weights[n]}
+                       for n in bic],
+            "nested_tests": [
+                {"restricted": "A", "general": "B", "df": 0, "chi_square": 0.0, "p_value": None},
+                {"restricted": "A", "general": "C", "df": 5, "chi_square": 20.0,
+                 "p_value": 0.0012}]},
+    }
 
 
 def test_summary_names_equivalent_models_and_says_when_criteria_disagree():
-    # compare.py finds 'higher-order' and 'three-constructs' equivalent (0 df);
-    # BIC favours them while AIC and the difference test favour 'bifactor'
-    text = " ".join(summary_paragraphs(demo_report()))
-    assert "equivalent here" in text
+    report = _rivals(first="A")
+    text = " ".join(summary_paragraphs(report))
+    weights = {r["name"]: r["bic_weight"] for r in report["comparison"]["models"]}
+    assert "BIC favours ‘A’ and ‘B’, which are equivalent here" in text
+    assert f"BIC weight of {apa(weights['A'] + weights['B'], 2)}" in text
+    assert "AIC, which penalises extra parameters less, favours ‘C’" in text
+    assert "the chi-square difference test prefers ‘C’ to ‘A’ (Δχ² = 20.00, df = 5, p = .001)" in text
     assert "The criteria disagree" in text
-    assert "AIC, which penalises extra parameters less, favours ‘bifactor’" in text
+    # the same models without the disagreement: C loses on AIC as well, and the test is not significant
+    agreeing = _rivals(first="A")
+    agreeing["comparison"]["models"][2]["aic"] = 960.0
+    agreeing["comparison"]["nested_tests"][1]["p_value"] = 0.2
+    assert "The criteria disagree" not in " ".join(summary_paragraphs(agreeing))
+
+
+@pytest.mark.parametrize("first, focus", [
+    ("B", "B"),      # among equivalent favourites, the one specified first
+    (None, "A"),     # nobody marked first: the first favourite in the file
+    ("C", "A"),      # the model specified first is not among the favourites
+])
+def test_summary_describes_the_first_specified_model_among_equivalent_favourites(first, focus):
+    assert favoured(_rivals(first))["focus"] == focus
+
+
+def test_summary_says_which_rivals_are_within_two_bic_points():
+    # Raftery (1995), table 6: a BIC difference of 0–2 is weak evidence at most
+    report = demo_report()
+    rows = report["comparison"]["models"]
+    best = min(rows, key=lambda r: r["bic"])["name"]
+    close = [r["name"] for r in rows if r["name"] != best and r["delta_bic"] < 2]
+    text = " ".join(summary_paragraphs(report))
+    assert close, "the demo has rivals within 2 BIC points"
+    sentence = next(s for s in text.split(". ") if "within 2 BIC points" in s)
+    assert all(f"‘{name}’" in sentence for name in close)
+    assert f"‘{best}’" not in sentence and "Raftery 1995" in text
+    far = _rivals(first="A")   # C is 4.4 BIC points from the favourites
+    assert "within 2 BIC points" not in " ".join(summary_paragraphs(far))
 
 
 def test_summary_never_claims_more_than_the_numbers():
-    text = " ".join(summary_paragraphs(with_quality_keys(demo_report()))).lower()
+    text = " ".join(summary_paragraphs(demo_report())).lower()
     for claim in ("proves", "proven", "confirms", "the true", "is valid", "validated"):
         assert claim not in text
 
 
-def test_summary_describes_the_first_specified_model_among_equivalent_favourites():
-    assert favoured(demo_report())["focus"] == "three-constructs"
+def test_summary_says_how_many_answered_every_item_and_how_missing_answers_were_handled():
+    report = demo_report()
+    data = report["data"]
+    first = summary_paragraphs(report)[0]
+    assert (f"all {data['n_rows']} respondents" if data["n_used"] == data["n_rows"]
+            else f"{data['n_used']} of the {data['n_rows']}") in first
+    assert f"{data['missing']['n_complete']} answered every item" in first
+    assert "full-information maximum likelihood" in first   # data.missing_handling
+
+
+def _reliability_phrases(model: dict) -> tuple[list[str], list[str]]:
+    """(at or above .70, below .70) as 'construct (omega, 95% CI [lo, hi])'."""
+    def phrase(r):
+        lo, hi = r["omega_ci95"]
+        return f"{r['construct']} ({apa(r['omega'], 2)}, 95% CI [{apa(lo, 2)}, {apa(hi, 2)}])"
+    rows = model["reliability"]
+    return ([phrase(r) for r in rows if r["omega"] >= RELIABILITY_MINIMUM],
+            [phrase(r) for r in rows if r["omega"] < RELIABILITY_MINIMUM])
 
 
 def test_reliability_sentence_separates_scales_at_the_conventional_minimum():
-    text = " ".join(summary_paragraphs(with_quality_keys(demo_report())))
-    assert "at least .70 for workload (.77) and support (.82)" in text
-    assert "below it for autonomy (.66)" in text
+    report = demo_report()
+    focus = next(m for m in report["models"] if m["name"] == favoured(report)["focus"])
+    # one construct's omega is put below .70 so that both halves of the sentence are exercised
+    low = focus["reliability"][-1]
+    low["omega"], low["omega_ci95"] = 0.66, [0.61, 0.71]
+    high, below = _reliability_phrases(focus)
+    assert high and below
+    sentence = next(p for p in summary_paragraphs(report) if p.startswith("Omega in"))
+    assert "at least .70 for " + ", ".join(high[:-1]) + (" and " if len(high) > 1 else "") + high[-1] in sentence
+    assert "below it for " + " and ".join(below) in sentence
+    assert "(Nunnally & Bernstein 1994)" in sentence
 
 
-def test_every_author_cited_in_the_methods_paragraph_is_in_the_reference_list():
-    report = with_quality_keys(demo_report())
-    cited = re.findall(r"([A-ZÖ][a-zö]+)(?: and [A-Z][a-z]+)?(?:,? et al\.)?,? \(?(\d{4})\)?",
-                       " ".join(methods_paragraphs(report)))
-    references = " ".join(references_used(report))
-    for author, year in cited:
-        assert author in references and f"({year}" in references, (author, year)
-
+# --------------------------------------------------------------------------- methods and references
 
 def test_methods_paragraph_states_what_was_run():
     report = demo_report()
+    data = report["data"]
     text = " ".join(methods_paragraphs(report))
     assert f"scalewright {report['tool']['version']}" in text
-    assert "maximum likelihood (normal theory)" in text
-    assert "208 of 420 respondents" in text
-    assert "listwise deletion" in text
+    for estimator in {m["estimator"] for m in report["models"]}:
+        assert f"Estimation was by {estimator}" in text
+    assert (f"all {data['n_rows']} respondents" if data["n_used"] == data["n_rows"]
+            else f"{data['n_used']} of {data['n_rows']} respondents") in text
+    test = data["missing"]["little_mcar"]
+    assert (f"χ²({test['df']}) = {test['chi_square']:.2f}, p = {p_text(test['p_value'])}"
+            .replace("p = <", "p <")) in text
+    assert "Arbuckle, 1996" in text and "missing at random (Rubin, 1976)" in text
+
+
+def test_methods_paragraph_names_the_invariance_steps_and_the_released_constraints():
+    report = demo_report()
+    text = methods_paragraphs(report)[-1]
+    setup = report["invariance_setup"]
+    assert text.startswith(f"Measurement invariance of ‘{setup['model']}’")
+    assert all(f"‘{g}’ (n = {n})" in text for g, n in setup["n"].items())
+    assert all(str(s["step"]) in text for s in report["invariance"])
+    assert ("partial invariance" in text) == bool(report["released"])
+
+
+_CITED = re.compile(r"([A-ZÖ][a-zö]+)(?:'s)?(?: and [A-Z][a-z]+)?(?:,? et al\.)?,? \(?(\d{4})\)?")
+
+
+def _listed(author: str, year: str, references: list[str]) -> bool:
+    return any(author in entry and f"({year}" in entry for entry in references)
+
+
+def test_every_author_cited_in_the_methods_paragraph_is_in_the_reference_list():
+    report = demo_report()
+    cited = _CITED.findall(" ".join(methods_paragraphs(report)))
+    references = references_used(report)
+    assert len(cited) > 10
+    for author, year in cited:
+        assert _listed(author, year, references), (author, year)
+
+
+def test_every_author_cited_in_the_method_reasons_is_in_the_reference_list():
+    report = demo_report()
+    cited = _CITED.findall(" ".join(report["method"]["reasons"]))
+    references = references_used(report)
+    assert cited
+    for author, year in cited:
+        assert _listed(author, year, references), (author, year)
+
+
+def test_the_standard_errors_are_named_by_the_method_used():
+    # where standard errors come from (DEVELOPERS.md, conventions): sandwich on the robust
+    # and ordinal routes, observed information under FIML, expected information otherwise
+    report = demo_report()
+    cases = [({"estimator": "normal", "missing_handling": "full-information"}, "observed information"),
+             ({"estimator": "normal", "missing_handling": "none"}, "expected information"),
+             ({"estimator": "robust", "missing_handling": "full-information"}, "sandwich"),
+             ({"estimator": "ordinal", "missing_handling": "pairwise"}, "sandwich")]
+    for method, words in cases:
+        report["method"].update(method)
+        caption = f"Loadings of ‘{report['models'][0]['name']}’"
+        notes = " ".join(_table(build_document(report), caption).notes)
+        assert words in notes, method
 
 
 def test_missing_user_statements_are_shown_as_missing_not_invented():
@@ -314,29 +499,284 @@ def test_checklist_has_the_thirty_lines_of_the_design_notes():
     assert [r["number"] for r in checklist_rows(demo_report())] == list(range(1, 31))
 
 
+def test_checklist_lines_on_missing_answers_outliers_and_correlations_follow_the_dict():
+    report = demo_report()
+    rows = {r["number"]: r for r in checklist_rows(report)}
+    assert rows[9]["status"] == "shown" and "patterns" in rows[9]["where"]
+    assert rows[11]["status"] == "not computed"            # no outlier key in the dict
+    assert rows[12]["status"] == "partly shown" and "neither this report nor its JSON" in rows[12]["where"]
+    del report["data"]["missing"]
+    assert checklist_rows(report)[8]["status"] == "partly shown"
+    report["models"][0]["polychoric"] = {"items": [], "correlations": []}   # the ordinal route's key
+    where = checklist_rows(report)[11]["where"]
+    assert f"‘polychoric’ under ‘{report['models'][0]['name']}’" in where
+
+
+# --------------------------------------------------------------------------- the data section
+
+def test_the_method_and_its_reasons_are_shown_in_the_data_section():
+    report = demo_report()
+    data = htmllib.unescape(_section(render_html(report), "data"))
+    assert report["method"]["reasons"]
+    for reason in report["method"]["reasons"]:
+        assert f"<li>{reason}</li>" in data
+
+
+def test_the_most_frequent_missing_patterns_are_tabled_as_the_dict_lists_them():
+    report = demo_report()
+    missing = report["data"]["missing"]
+    table = _table(build_document(report), "Most frequent patterns of missing answers")
+    assert len(table.rows) == len(missing["patterns"])
+    for row, pattern in zip(table.rows, missing["patterns"]):
+        assert row[0].text == (", ".join(pattern["missing"]) or "none (every item answered)")
+        assert (row[1].text, row[2].text) == (str(len(pattern["missing"])), str(pattern["n"]))
+    assert f"of the {missing['n_patterns']} patterns" in table.notes[0]
+
+
+def test_each_items_missing_share_is_in_the_items_table():
+    report = demo_report()
+    table = _table(build_document(report), "The items: wording")
+    column = table.columns.index("Missing")
+    shown = {row[0].text.split(" ")[0]: row[column].text for row in table.rows}
+    for item in report["data"]["missing"]["items"]:
+        assert shown[item["item"]] == f"{100 * item['rate_missing']:.1f}%"
+
+
+def test_littles_test_is_reported_with_its_mcar_caution():
+    report = demo_report()
+    test = report["data"]["missing"]["little_mcar"]
+    data = htmllib.unescape(_section(render_html(report), "data"))
+    verdict = "rejects" if test["p_value"] < 0.05 else "does not reject"
+    assert (f"Little's (1988) test {verdict} that the answers are missing completely at random "
+            f"(χ²({test['df']}) = {test['chi_square']:.2f}, p = {p_text(test['p_value'])}"
+            .replace("p = <", "p <")) in data
+    assert "concerns MCAR only" in data and "missing at random (MAR)" in data
+    # the other verdict, with a p-value chosen below .05
+    report["data"]["missing"]["little_mcar"]["p_value"] = 0.01
+    assert "Little's (1988) test rejects" in htmllib.unescape(render_html(report))
+
+
+# --------------------------------------------------------------------------- reliability and validity
+
+def test_omega_is_shown_with_its_interval_and_marked_at_the_conventional_minimum():
+    report = demo_report()
+    doc = build_document(report)
+    for m in report["models"]:
+        table = _table(doc, f"Reliability of the constructs of ‘{m['name']}’")
+        cells = {row[0].text: row[3] for row in table.rows}
+        for r in m["reliability"]:
+            lo, hi = r["omega_ci95"]
+            assert cells[r["construct"]].text == f"{apa(r['omega'], 2)} [{apa(lo, 2)}, {apa(hi, 2)}]"
+            assert cells[r["construct"]].mark == ("✓" if r["omega"] >= RELIABILITY_MINIMUM else "✗")
+
+
+def test_the_part_of_omega_due_to_the_construct_alone_is_shown_where_it_differs_from_omega():
+    report = demo_report()
+    doc = build_document(report)
+    shown = 0
+    for m in report["models"]:
+        table = _table(doc, f"Reliability of the constructs of ‘{m['name']}’")
+        differs = any(apa(r["omega_construct"], 2) != apa(r["omega"], 2) for r in m["reliability"])
+        assert ("Omega, construct alone" in table.columns) == differs
+        if differs:
+            k = table.columns.index("Omega, construct alone")
+            assert [row[k].text for row in table.rows] == [apa(r["omega_construct"], 2)
+                                                           for r in m["reliability"]]
+            shown += 1
+    assert shown   # the demo's bifactor model, whose general factor takes a share
+
+
+def test_item_analysis_rows_follow_the_dict_and_mark_items_whose_removal_raises_reliability():
+    report = demo_report()
+    doc = build_document(report)
+    raised = 0
+    for m in report["models"]:
+        rows = iter(_table(doc, f"Item analysis of ‘{m['name']}’").rows)
+        for r in m["reliability"]:
+            for it in r["items"]:
+                row = next(rows)
+                assert (row[0].text, row[1].text) == (it["item"], r["construct"])
+                assert row[2].text == apa(it["item_total_r"], 2)
+                for cell, key in zip(row[3:], ("alpha", "omega")):
+                    assert cell.text == apa(it[f"{key}_if_dropped"], 2)
+                    rises = it[f"{key}_if_dropped"] > r[key]
+                    assert (cell.mark != "") == rises
+                    raised += rises
+    assert raised   # the demo has items whose removal raises a coefficient
+
+
+def test_reliability_and_validity_notes_go_under_their_tables():
+    report = demo_report()
+    doc = build_document(report)
+    validity_notes = 0
+    for m in report["models"]:
+        notes = _table(doc, f"Reliability of the constructs of ‘{m['name']}’").notes
+        for r in m["reliability"]:
+            for n in r.get("notes") or ():
+                assert n["message"] in notes
+        # the validity notes go under the last validity table present: HTMT, else
+        # Fornell–Larcker, else AVE
+        last = next(caption for key, caption in (
+            ("htmt", "Heterotrait–monotrait ratios in"),
+            ("fornell_larcker", "Correlations against √AVE in"),
+            (None, "Average variance extracted of")) if key is None or m["validity"].get(key))
+        notes = _table(doc, f"{last} ‘{m['name']}’").notes
+        for n in m["validity"].get("notes") or ():
+            assert n["message"] in notes
+            validity_notes += 1
+    assert validity_notes
+
+
+def test_fornell_larcker_rows_are_marked_by_the_convention():
+    # Fornell & Larcker (1981): constructs are distinct when their correlation is smaller in
+    # size than the square root of each one's AVE
+    report = demo_report()
+    doc = build_document(report)
+    checked = 0
+    for m in report["models"]:
+        rows = m["validity"]["fornell_larcker"]
+        if not rows:
+            continue
+        table = _table(doc, f"Correlations against √AVE in ‘{m['name']}’")
+        for row, r in zip(table.rows, rows):
+            assert [c.text for c in row] == [r["a"], r["b"], apa(r["correlation"], 2),
+                                             apa(r["sqrt_ave_a"], 2), apa(r["sqrt_ave_b"], 2)]
+            distinct = abs(r["correlation"]) < min(r["sqrt_ave_a"], r["sqrt_ave_b"])
+            assert r["convention"]["met"] == distinct
+            assert row[2].mark == ("✓" if distinct else "✗")
+            checked += 1
+    assert checked
+
+
+def test_a_pair_failing_the_fornell_larcker_convention_is_marked():
+    # one pair's correlation set above both √AVE, with the convention as the rule gives it
+    report = demo_report()
+    m = next(m for m in report["models"] if m["validity"]["fornell_larcker"])
+    row = m["validity"]["fornell_larcker"][0]
+    row["correlation"] = -(max(row["sqrt_ave_a"], row["sqrt_ave_b"]) + 0.05)
+    row["convention"]["met"] = False
+    table = _table(build_document(report), f"Correlations against √AVE in ‘{m['name']}’")
+    assert table.rows[0][2].mark == "✗" and table.rows[1][2].mark == "✓"
+
+
+def test_ave_and_htmt_marks_follow_their_conventions():
+    # AVE ≥ .50 (Fornell & Larcker 1981); HTMT < .85, the stricter convention of
+    # Henseler, Ringle & Sarstedt (2015)
+    report = demo_report()
+    doc = build_document(report)
+    for m in report["models"]:
+        v = m["validity"]
+        ave = {row[0].text: row[1] for row in
+               _table(doc, f"Average variance extracted of ‘{m['name']}’").rows}
+        for construct, value in v["ave"].items():
+            assert ave[construct].text == apa(value, 2)
+            assert ave[construct].mark == ("✓" if value >= 0.5 else "✗")
+        if v["htmt"]:
+            rows = _table(doc, f"Heterotrait–monotrait ratios in ‘{m['name']}’").rows
+            for row, r in zip(rows, v["htmt"]):
+                assert row[2].text == apa(r["value"], 2)
+                assert row[2].mark == ("✓" if abs(r["value"]) < 0.85 else "✗")
+
+
+def test_fiml_intercepts_are_tabled_with_their_standard_errors():
+    report = demo_report()
+    doc = build_document(report)
+    for m in report["models"]:
+        table = _table(doc, f"Intercepts, residual variances and R² of ‘{m['name']}’")
+        assert table.columns[1:3] == ("Intercept", "SE")
+        shown = {row[0].text: (row[1].text, row[2].text) for row in table.rows}
+        for r in m["intercepts"]:
+            assert shown[r["item"]] == (apa(r["estimate"], bounded=False),
+                                        apa(r["se"], bounded=False))
+
+
+# --------------------------------------------------------------------------- local fit and items
+
+def test_the_z_column_of_residual_correlations_appears_only_when_z_was_computed():
+    report = demo_report()
+    m = report["models"][1]
+    largest = m["residual_correlations"]["largest"]
+    caption = f"Largest residual correlations of ‘{m['name']}’"
+    has_z = any(r.get("standardized") is not None for r in largest)
+    assert ("z" in _table(build_document(report), caption).columns) == has_z
+    for k, r in enumerate(largest):        # values chosen to exercise the other case
+        r["standardized"] = None if has_z else 2.0 + k
+    assert ("z" in _table(build_document(report), caption).columns) != has_z
+
+
+def test_item_review_has_one_row_per_reason():
+    report = demo_report()
+    doc = build_document(report)
+    for m in report["models"]:
+        if not m["item_review"]:
+            continue
+        rows = _table(doc, f"Items to look at in ‘{m['name']}’").rows
+        expected = [(r["item"], d["text"]) for r in m["item_review"] for d in r["details"]]
+        assert [(row[0].text, row[1].text) for row in rows] == expected
+
+
+# --------------------------------------------------------------------------- invariance
+
+def test_invariance_steps_show_their_decisions_and_released_constraints():
+    report = demo_report()
+    html = htmllib.unescape(render_html(report))
+    table = _table(build_document(report), "Measurement invariance, step by step")
+    for row, step in zip(table.rows, report["invariance"]):
+        assert row[0].text == step["step"] + (" (partial)" if step["partial"] else "")
+        holds = step["decision"]["holds"]
+        assert row[-1].mark == {True: "✓", False: "✗", None: ""}[holds]
+        assert step["decision"]["text"] in html
+    assert report["released"]
+    for released in report["released"]:
+        assert released["text"] in html
+
+
+def test_latent_means_are_tabled_as_the_dict_gives_them():
+    report = demo_report()
+    table = _table(build_document(report), "Latent means compared between groups")
+    assert len(table.rows) == len(report["latent_means"])
+    for row, r in zip(table.rows, report["latent_means"]):
+        assert [c.text for c in row[:5]] == [r["construct"], r["group"], r["reference"],
+                                            apa(r["estimate"], bounded=False),
+                                            apa(r["se"], bounded=False)]
+        assert row[6].text == p_text(r["p_value"])
+    assert report["latent_comparison_note"] in table.notes
+
+
 # --------------------------------------------------------------------------- tables export
 
 def test_exported_csv_holds_the_same_numbers_as_the_html(tmp_path):
-    report = with_quality_keys(demo_report())
+    report = demo_report()
     written = export_tables(report, tmp_path / "tables")
     doc = build_document(report)
     assert len(written) == 2 * len(doc.tables)
-    fit_csv = (tmp_path / "tables" / "01-summary-fit.csv").read_text(encoding="utf-8")
-    rows = list(csv.reader(io.StringIO(fit_csv)))
+    rows = list(csv.reader(io.StringIO(
+        (tmp_path / "tables" / "01-summary-fit.csv").read_text(encoding="utf-8"))))
     assert rows[0][:5] == ["Model", "χ²", "df", "p", "CFI"]
     html = render_html(report)
+    fits = {m["name"]: m["fit"] for m in report["models"]}
     for row in rows[1:]:
+        fit = fits[row[0]]
+        assert row[1] == f"{fit['chi_square']:.2f}" and row[4] == apa(fit["cfi"])
         assert row[1] in html and row[4] in html
-    (loadings_file,) = (tmp_path / "tables").glob("*-m1-one-general-loadings.csv")
+    first = report["models"][0]
+    negative = [r["estimate"] for r in first["loadings"] if r["estimate"] < 0]
+    assert negative                                   # the demo's first model has some
+    (loadings_file,) = (tmp_path / "tables").glob("*-m1-*-loadings.csv")
     loadings = loadings_file.read_text(encoding="utf-8")
-    assert "\u2212" not in loadings and "-0.412" in loadings   # ASCII minus for spreadsheets
+    assert MINUS not in loadings and f"{negative[0]:.3f}" in loadings   # ASCII minus
 
 
 def test_markdown_tables_carry_caption_marks_and_notes(tmp_path):
-    export_tables(demo_report(), tmp_path)
+    report = demo_report()
+    export_tables(report, tmp_path)
     text = (tmp_path / "01-summary-fit.md").read_text(encoding="utf-8")
     assert text.startswith("**Table 1.** Fit of the rival models at a glance")
-    assert "| bifactor | 140.19 | 117 | .071 | .974 ✓ |" in text
+    for m in report["models"]:
+        fit = m["fit"]
+        mark = "✓" if meets_hu_bentler("cfi", fit["cfi"]) else "✗"
+        assert (f"| {m['name']} | {fit['chi_square']:.2f} | {fit['df']} | "
+                f"{p_text(fit['p_value'])} | {apa(fit['cfi'])} {mark} |") in text
     assert "*Note.*" in text
 
 
@@ -347,16 +787,21 @@ def test_tables_are_not_written_into_a_folder_of_other_files(tmp_path):
 
 
 def test_tables_of_an_earlier_run_are_replaced(tmp_path):
-    export_tables(with_quality_keys(demo_report()), tmp_path)
-    export_tables(demo_report(), tmp_path)
+    report = demo_report()
+    export_tables(report, tmp_path)
+    assert any("reliability" in p.name for p in tmp_path.iterdir())
+    for m in report["models"]:
+        del m["reliability"]
+    export_tables(report, tmp_path)
     assert not any("reliability" in p.name for p in tmp_path.iterdir())
 
 
 # --------------------------------------------------------------------------- determinism and size
 
-def test_two_runs_differ_only_in_the_timestamp_line(tmp_path):
-    first = api.check(DEMO).to_dict()
-    second = api.check(DEMO).to_dict()
+@pytest.mark.slow
+def test_two_runs_differ_only_in_the_timestamp_line():
+    first = demo_report()
+    second = api.check(DEMO).to_dict()       # a second, independent run of the check
     second["created"] = "another time"
     a, b = render_html(first).splitlines(), render_html(second).splitlines()
     assert len(a) == len(b)
@@ -369,7 +814,7 @@ def large_report(p: int = 100, k: int = 10) -> dict:
     rival models and every per-model key, seeded numbers (sizes matter here,
     not values)."""
     rng = np.random.default_rng(4)
-    report = with_quality_keys(demo_report())
+    report = demo_report()
     items = [f"item{j:03d}" for j in range(p)]
     names = [f"construct{c}" for c in range(k)]
     own = {it: names[j * k // p] for j, it in enumerate(items)}
@@ -407,6 +852,7 @@ def large_report(p: int = 100, k: int = 10) -> dict:
                                    if name == "higher" else [])
         m["residual_variances"] = [{"item": it, "estimate": .5, "se": .03, "z": 16.0,
                                     "p_value": 1e-9, "std_estimate": .5} for it in items]
+        m["intercepts"] = [{"item": it, "estimate": 3.1, "se": .04} for it in items]
         m["r_squared"] = [{"item": it, "value": .5} for it in items]
         matrix = rng.normal(0, .06, (p, p))
         m["residual_correlations"] = {"threshold": .1, "n_flagged": 40, "items": items,
@@ -425,6 +871,6 @@ def large_report(p: int = 100, k: int = 10) -> dict:
 
 
 def test_a_large_study_report_stays_under_five_megabytes():
-    # issue 4: a 100-item, 10-construct study with 4 rival models stays < 5 MB
+    # design brief: a 100-item, 10-construct study with 4 rival models stays < 5 MB
     html = render_html(large_report())
     assert len(html.encode("utf-8")) < 5 * 1024 * 1024

@@ -31,6 +31,11 @@ def _user(number, line, present: bool, where: str, add: str) -> dict:
                 where if present else f"add {add} to the model file")
 
 
+def _names(names) -> str:
+    quoted = [f"‘{n}’" for n in names]
+    return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
+
+
 def checklist_rows(report: dict) -> list[dict]:
     """The thirty checklist lines with status and location, in order."""
     models = report.get("models", [])
@@ -43,6 +48,9 @@ def checklist_rows(report: dict) -> list[dict]:
     rationale = _about(report, "rationale") or any(r.get("rationale") for r in rows_cmp)
     changes = any(r.get("changes") for r in rows_cmp)
     estimators = " ".join(str(m.get("estimator", "")) for m in models).lower()
+    missing = report["data"].get("missing")
+    polychoric = [m["name"] for m in models if m.get("polychoric")]
+    reasons = (report.get("method") or {}).get("reasons")
     out = [
         _user(1, "Rationale for the proposed structure", rationale, design,
               "‘about: rationale:’ (or ‘rationale:’ under a model)"),
@@ -52,7 +60,7 @@ def checklist_rows(report: dict) -> list[dict]:
         _row(3, "How each model is identified and scaled", SHOWN,
              f"{per_model}, first paragraph; methods paragraph"),
         _user(4, "Rival models set out in advance; which one was specified first",
-              first_marked, "section ‘Rival models compared’ (column ‘Specified first’)",
+              first_marked, "section ‘Rival models compared’ (column ‘First’)",
               "‘first: true’ under the model specified first"),
         _user(5, "Population, sampling and exclusions",
               all(_about(report, k) for k in ("population", "sampling", "exclusions")), design,
@@ -67,21 +75,26 @@ def checklist_rows(report: dict) -> list[dict]:
         _user(8, "Clustered or non-independent answers and how they were handled",
               _about(report, "clustering"), design, "‘about: clustering:’"),
         _row(9, "Missing answers: amount, patterns, mechanism, handling",
-             SHOWN if report["data"].get("missingness") else PARTLY,
-             "section ‘The data’ (missing per item; handling in the methods paragraph)"
-             + ("" if report["data"].get("missingness") else "; patterns per case are not "
-                                                            "computed")),
+             SHOWN if missing else PARTLY,
+             "section ‘The data’: missing answers per item, the most frequent patterns, "
+             "Little's test and the assumption the handling makes; say why answers are missing "
+             "if you know" if missing else
+             "section ‘The data’ (missing per item; handling in the methods paragraph); "
+             "patterns per case are not computed"),
         _row(10, "Skewness and kurtosis per item; a multivariate normality test", SHOWN,
              "section ‘The data’"),
         _row(11, "Outliers: how detected and handled", NOT_COMPUTED,
              "scalewright does not screen for outliers; report your own check"),
-        _row(12, "Item means, SDs and correlations, enough to reanalyse",
-             SHOWN if report["data"].get("correlations") else PARTLY,
-             "section ‘The data’ (means and SDs)"
-             + ("" if report["data"].get("correlations") else "; the correlation matrix is "
-                                                             "not in this report")),
+        _row(12, "Item means, SDs and correlations, enough to reanalyse", PARTLY,
+             "section ‘The data’ (means and SDs); "
+             + (f"the polychoric correlations are in the JSON file (‘polychoric’ under "
+                f"{_names(polychoric)})" if polychoric else
+                "the item correlation matrix is in neither this report nor its JSON file: "
+                "compute it from the data file named in the header, whose SHA-256 identifies "
+                "the version analysed")),
         _row(13, "Estimation method and why it suits the data", SHOWN,
-             f"methods paragraph; {per_model}"),
+             ("section ‘The data’ (the method chosen and why); " if reasons else "")
+             + f"methods paragraph; {per_model}"),
         _row(14, "Software and version", SHOWN, "header and methods paragraph"),
         _row(15, "Convergence, non-default settings, improper solutions", SHOWN,
              f"{per_model} (estimation line and warnings)"),
@@ -117,10 +130,12 @@ def checklist_rows(report: dict) -> list[dict]:
                                             comparison.get("nested_tests", ())) else "")),
         _row(27, "Reliability of every scored subscale: omega and alpha with an interval",
              SHOWN if "reliability" in keys else NOT_COMPUTED,
-             per_model if "reliability" in keys else "not computed in this run"),
+             f"{per_model}: alpha and omega with 95% intervals, H, and the item analysis"
+             if "reliability" in keys else "not computed in this run"),
         _row(28, "Evidence that subscales are distinct",
              SHOWN if "validity" in keys else NOT_COMPUTED,
-             per_model if "validity" in keys else "not computed in this run"),
+             f"{per_model}: AVE, Fornell–Larcker comparison and HTMT" if "validity" in keys
+             else "not computed in this run"),
         _row(29, "Measurement invariance across groups that will be compared",
              SHOWN if report.get("invariance") else NOT_COMPUTED,
              "section ‘Measurement invariance’" if report.get("invariance")

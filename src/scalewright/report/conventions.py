@@ -57,7 +57,8 @@ FIT_CUTOFFS = (
 SALIENCE = 0.40
 #: a reliability of .70 is a common minimum for research use (Nunnally & Bernstein 1994)
 RELIABILITY_MINIMUM = 0.70
-RELIABILITY_SOURCE = "Nunnally & Bernstein (1994)"
+#: the source as written inside parentheses
+RELIABILITY_SOURCE = "Nunnally & Bernstein 1994"
 #: |residual correlation| ≥ .10 is commonly flagged (common practice, no source)
 RESIDUAL_FLAG = 0.10
 

@@ -12,7 +12,7 @@ part of scalewright has not produced simply leaves its block out.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from markupsafe import Markup
@@ -33,12 +33,17 @@ ABOUT_LABELS = (
 )
 
 
+#: rows beyond which a printed table may continue on the next page (its header repeats)
+LONG_TABLE = 12
+
 #: subsection heading of each per-model table, in order
 _GROUP = {
     "loadings": "Loadings and correlations", "matrix": "Loadings and correlations",
     "paths": "Loadings and correlations", "correlations": "Loadings and correlations",
-    "residuals": "Residuals", "residual_covariances": "Residuals", "thresholds": "Residuals",
-    "reliability": "Reliability and distinctness", "validity": "Reliability and distinctness",
+    "residuals": "Item parameters", "residual_covariances": "Item parameters",
+    "thresholds": "Item parameters",
+    "reliability": "Reliability and distinctness", "item_analysis": "Reliability and distinctness",
+    "validity": "Reliability and distinctness", "fornell_larcker": "Reliability and distinctness",
     "htmt": "Reliability and distinctness", "bifactor": "Reliability and distinctness",
     "higher_order": "Reliability and distinctness",
     "hints": "Where the model is strained", "residual_correlations": "Where the model is strained",
@@ -75,7 +80,11 @@ class Document:
     figures: int = 0
 
     def table(self, section: Section, table) -> None:
+        """Number ``table`` and add it to ``section``; a table of more than
+        :data:`LONG_TABLE` rows may break across printed pages."""
         numbered = table.numbered(len(self.tables) + 1)
+        if len(table.rows) > LONG_TABLE:
+            numbered = replace(numbered, css=f"{numbered.css} long".strip())
         self.tables.append(numbered)
         section.blocks.append({"type": "table", "table": numbered})
 
@@ -92,7 +101,7 @@ def header_facts(report: dict) -> list[tuple[str, str]]:
         ("Data file", data["file"]),
         ("SHA-256", data["sha256"]),
         ("Rows read / used", f"{count(data['n_rows'])} / {count(data['n_used'])}"),
-        ("Missing answers", str(data.get("missing_handling", "–"))),
+        ("Missing answers", narrative.missing_handling(report)),
         ("Estimation", "; ".join(estimators)),
         ("Model file", report["study"].get("model_file", "–")),
         ("Software", f"scalewright {report['tool']['version']}"),
@@ -179,7 +188,7 @@ def _model(doc: Document, m: dict, index: int) -> None:
                + (" Construct correlations are in the table, not drawn."
                   if arcs_omitted(m) else ""), "diagram")
     current = None
-    for key, table in tables.model_tables(m, index).items():
+    for key, table in tables.model_tables(m, index, narrative.standard_errors(doc.report)).items():
         group = _GROUP[key]
         if group != current:
             s.h3(group)
@@ -200,17 +209,53 @@ def _model(doc: Document, m: dict, index: int) -> None:
     doc.sections.append(s)
 
 
+#: how the invariance sequence was run, in the order shown (keys of ``invariance_setup``)
+SETUP_LABELS = (
+    ("estimator", "Estimation"), ("missing_handling", "Missing answers"),
+    ("standard_errors", "Standard errors"), ("difference_test", "Difference test"),
+    ("baseline_model", "Baseline model"), ("srmr", "SRMR"), ("rmsea", "RMSEA"),
+    ("search", "Search for partial invariance"),
+)
+
+
+def _setup(s: Section, setup: dict) -> None:
+    """The model, the groups and how the invariance sequence was run."""
+    sizes = setup.get("n") or {}
+    s.p(f"Invariance was checked for model ‘{setup.get('model')}’ ("
+        + "; ".join(f"n = {count(n)} in ‘{g}’" for g, n in sizes.items()) + "). "
+        + " ".join(n for n in setup.get("notes") or () if n))
+    entries = [{"term": label, "text": str(setup[key]), "missing": False}
+               for key, label in SETUP_LABELS if setup.get(key)]
+    if setup.get("method_note"):
+        entries.append({"term": "Note", "text": setup["method_note"], "missing": False})
+    s.blocks.append({"type": "dl", "items": entries})
+
+
 def _invariance(doc: Document) -> None:
     r = doc.report
     if not r.get("invariance"):
         return
     s = Section("invariance", "Measurement invariance")
+    if r.get("invariance_setup"):
+        _setup(s, r["invariance_setup"])
     doc.table(s, tables.invariance_table(r))
+    decisions = [(step, (step.get("decision") or {}).get("text")) for step in r["invariance"]
+                 if isinstance(step.get("decision"), dict)]
+    if decisions:
+        s.h3("The decision at each step")
+        s.blocks.append({"type": "dl", "items": [
+            {"term": str(step.get("step", "")), "text": text, "missing": False}
+            for step, text in decisions if text]})
     released = r.get("released") or []
     if released:
         s.h3("Constraints released")
         s.items(x.get("text") or f"{x.get('kind')} of {x.get('item')}" if isinstance(x, dict)
                 else str(x) for x in released)
+    if r.get("latent_means"):
+        s.h3("Latent means")
+        doc.table(s, tables.latent_means_table(r))
+    elif r.get("latent_comparison_note"):
+        s.p(r["latent_comparison_note"])
     doc.sections.append(s)
 
 
@@ -221,11 +266,31 @@ def _data(doc: Document) -> None:
     dropped = data.get("dropped") or {}
     reasons = "; ".join(f"{count(v)} for {k}" for k, v in dropped.items() if v)
     s.p(f"{count(data['n_rows'])} rows were read from {data['file']}; {count(data['n_used'])} "
-        f"were used" + (f" ({reasons})" if reasons else "") + ". Missing answers were handled by "
-        f"{data.get('missing_handling', '–')}.")
+        f"were used" + (f" ({reasons})" if reasons else "") + ". Missing answers: "
+        f"{narrative.missing_handling(r)}.")
+    method = r.get("method") or {}
+    if method.get("reasons"):
+        s.h3("The method chosen for these data")
+        s.items(method["reasons"])
+    s.h3("The items")
     doc.table(s, tables.screening_table(r))
+    items_table = len(doc.tables)
     if (data.get("screening") or {}).get("mardia"):
         doc.table(s, tables.mardia_table(r))
+    missing = data.get("missing") or {}
+    if missing.get("patterns") and missing.get("n_patterns", 0) > 1:
+        s.h3("Missing answers")
+        s.p(f"{count(missing.get('n_complete'))} of the {count(missing.get('n_rows'))} rows "
+            f"answer every item; the others fall into {count(missing['n_patterns'] - 1)} "
+            "patterns of unanswered items"
+            + (f", and {count(missing['n_no_answer'])} rows answer none"
+               if missing.get("n_no_answer") else "")
+            + f". The share of missing answers of each item is in the column ‘Missing’ of "
+              f"Table {items_table}.")
+        doc.table(s, tables.missing_patterns_table(r))
+        sentence = narrative.little_sentence(r)
+        if sentence:
+            s.p(sentence)
     doc.sections.append(s)
 
 

@@ -11,7 +11,15 @@ from __future__ import annotations
 
 from scalewright.report.conventions import (FIT_CUTOFFS, HU_BENTLER, RELIABILITY_MINIMUM,
                                             RELIABILITY_SOURCE, SALIENCE, shown_fit)
-from scalewright.report.formatting import coef, count, dec, interval, p_equals
+from scalewright.report.formatting import coef, count, dec, dof, interval, p_equals
+
+#: how missing answers were handled, in words, by the codes of scalewright.methods
+MISSING_HANDLING = {
+    "full-information": "full-information maximum likelihood (every answer given counts)",
+    "listwise": "listwise deletion (only respondents who answered every item)",
+    "pairwise": "pairwise use (each correlation from everyone who answered both items)",
+    "none": "none needed (no answer is missing)",
+}
 
 _NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")
 
@@ -30,6 +38,45 @@ def _names(names) -> str:
 def _plain_list(words) -> str:
     words = list(words)
     return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
+
+
+def missing_handling(report: dict) -> str:
+    """How missing answers were handled, in words (the code itself if it is not known)."""
+    code = report["data"].get("missing_handling")
+    return MISSING_HANDLING.get(code, str(code) if code else "not stated")
+
+
+def standard_errors(report: dict) -> str:
+    """Where the standard errors come from, by the method the check chose
+    (``report["method"]``): robust routes use the sandwich, full-information
+    ML the observed information, complete-data normal ML the expected
+    information.  Empty when the result dict does not name the method."""
+    method = report.get("method") or {}
+    if method.get("estimator") in ("robust", "ordinal"):
+        return "Standard errors are robust (sandwich) standard errors."
+    if method.get("missing_handling") == "full-information":
+        return ("Standard errors from the observed information, which stays consistent when "
+                "answers are missing at random.")
+    if method.get("estimator") == "normal":
+        return "Standard errors from the expected information."
+    return ""
+
+
+def little_sentence(report: dict) -> str | None:
+    """Little's (1988) MCAR test in words, with what it can and cannot show;
+    ``None`` when the test was not run (no answer missing)."""
+    test = (report["data"].get("missing") or {}).get("little_mcar")
+    if not test:
+        return None
+    p = test.get("p_value")
+    verdict = ("rejects" if p is not None and p < 0.05 else "does not reject")
+    return (f"Little's (1988) test {verdict} that the answers are missing completely at random "
+            f"(χ²({dof(test.get('df'))}) = {dec(test.get('chi_square'), 2)}, {p_equals(p)}, "
+            f"{count(test.get('n_patterns'))} patterns). The test concerns MCAR only: not "
+            "rejecting it does not show that answers are missing completely at random, and no "
+            "test on these data can show that they are missing at random (MAR), the weaker "
+            "assumption full-information maximum likelihood needs; that rests on knowing why "
+            "answers are missing.")
 
 
 def _models(report: dict) -> dict:
@@ -173,14 +220,18 @@ def _reliability_paragraph(model: dict) -> str | None:
     rows = model.get("reliability")
     if not rows:
         return None
-    def value(row):
-        return row.get("omega") if row.get("omega") is not None else row.get("alpha")
-    named = [(row["construct"], value(row)) for row in rows if value(row) is not None]
+    key = "omega" if any(row.get("omega") is not None for row in rows) else "alpha"
+    named = [(row["construct"], row[key], row.get(f"{key}_ci95")) for row in rows
+             if row.get(key) is not None]
     if not named:
         return None
-    high = [f"{c} ({coef(v, 2)})" for c, v in named if v >= RELIABILITY_MINIMUM]
-    low = [f"{c} ({coef(v, 2)})" for c, v in named if v < RELIABILITY_MINIMUM]
-    what = "Omega" if any(row.get("omega") is not None for row in rows) else "Alpha"
+
+    def shown(c, v, ci):
+        return f"{c} ({coef(v, 2)}" + (f", 95% CI {interval(ci, 2)}" if ci else "") + ")"
+
+    high = [shown(*x) for x in named if x[1] >= RELIABILITY_MINIMUM]
+    low = [shown(*x) for x in named if x[1] < RELIABILITY_MINIMUM]
+    what = key.capitalize()
     parts = []
     if high:
         parts.append(f"at least {coef(RELIABILITY_MINIMUM, 2)} for {_plain_list(high)}")
@@ -220,14 +271,23 @@ def _strain_paragraph(model: dict) -> str | None:
     return f"Where ‘{model['name']}’ is strained: {'; '.join(parts)}."
 
 
+def _sample_sentence(report: dict) -> str:
+    """Who was analysed, and how missing answers entered."""
+    data = report["data"]
+    n_rows, n_used = data["n_rows"], data["n_used"]
+    complete = (data.get("missing") or {}).get("n_complete")
+    who = (f"The answers of all {count(n_rows)} respondents were analysed" if n_used == n_rows
+           else f"The answers of {count(n_used)} of the {count(n_rows)} respondents were "
+                f"analysed; {count(n_rows - n_used)} were left out")
+    if data.get("missing_handling") == "none":
+        return f"{who}; no answer was missing."
+    return (f"{who}" + (f"; {count(complete)} answered every item" if complete is not None
+                        else "") + f". Missing answers: {missing_handling(report)}.")
+
+
 def summary_paragraphs(report: dict) -> list[str]:
     """The plain-language summary, one paragraph per string."""
-    data = report["data"]
-    dropped = data["n_rows"] - data["n_used"]
-    out = [f"The answers of {count(data['n_used'])} of the {count(data['n_rows'])} respondents "
-           f"were analysed" + (f"; {count(dropped)} rows were left out (missing answers were "
-                               f"handled by {data.get('missing_handling', 'the default')})."
-                               if dropped else ".")]
+    out = [_sample_sentence(report)]
     fav = favoured(report)
     model = _models(report).get(fav["focus"], {})
     for paragraph in (_comparison_paragraph(report, fav), _focus_paragraph(report, fav),
@@ -264,6 +324,28 @@ def abstract_sentence(report: dict) -> str:
             f"{coef(fit.get('srmr'))}; {local}.")
 
 
+def _missing_methods(report: dict) -> str:
+    """The methods sentence on missing answers, with Little's test when it was run."""
+    code = report["data"].get("missing_handling")
+    text = {
+        "full-information": "Every answer given entered the likelihood (full-information "
+                            "maximum likelihood; Arbuckle, 1996), which assumes that answers "
+                            "are missing at random (Rubin, 1976).",
+        "listwise": "Respondents with any missing answer were left out (listwise deletion), "
+                    "which assumes that answers are missing completely at random (Rubin, 1976).",
+        "pairwise": "Each polychoric correlation used every respondent who answered both items "
+                    "(pairwise), which assumes that answers are missing completely at random "
+                    "(Rubin, 1976).",
+        "none": "No answer was missing.",
+    }.get(code, f"Missing answers were handled by {missing_handling(report)}.")
+    test = (report["data"].get("missing") or {}).get("little_mcar")
+    if test:
+        text += (f" Little's (1988) test of missingness completely at random gave "
+                 f"χ²({dof(test.get('df'))}) = {dec(test.get('chi_square'), 2)}, "
+                 f"{p_equals(test.get('p_value'))}.")
+    return text
+
+
 def methods_paragraphs(report: dict) -> list[str]:
     """A methods paragraph built from what was run, for the researcher to adapt."""
     models = report.get("models", [])
@@ -275,12 +357,15 @@ def methods_paragraphs(report: dict) -> list[str]:
     deps = tool.get("dependencies")
     software = f"scalewright {tool['version']}" + (
         " (" + ", ".join(f"{k} {v}" for k, v in deps.items()) + ")" if deps else "")
-    out = [(f"We fitted {_number(len(models))} rival confirmatory factor model"
-            f"{'s' * (len(models) != 1)} ({_names(names)}) to the answers of "
-            f"{count(data['n_used'])} of {count(data['n_rows'])} respondents with {software}. "
-            f"Estimation was by {_plain_list(estimators)} (Jöreskog, 1969); missing answers were "
-            f"handled by {data.get('missing_handling', 'the default of the software')}. "
-            + " ".join(notes))]
+    out = [" ".join([
+        f"We fitted {_number(len(models))} rival confirmatory factor model"
+        f"{'s' * (len(models) != 1)} ({_names(names)}) to the answers of "
+        + (f"all {count(data['n_rows'])}" if data["n_used"] == data["n_rows"]
+           else f"{count(data['n_used'])} of {count(data['n_rows'])}")
+        + f" respondents with {software}.",
+        f"Estimation was by {_plain_list(estimators)}, after Jöreskog (1969).",
+        _missing_methods(report), *notes,
+        "Section ‘The data’ of the report gives the reasons for these choices."])]
     fit = ("Global fit was judged with the chi-square test and with CFI (Bentler, 1990), TLI "
            "(Tucker & Lewis, 1973), RMSEA with its 90% confidence interval (Steiger & Lind, "
            "1980; Browne & Cudeck, 1993) and SRMR, read against the conventional cutoffs of Hu "
@@ -315,7 +400,34 @@ def methods_paragraphs(report: dict) -> list[str]:
                      "indices (Sörbom, 1989) with expected parameter changes; no model was "
                      "changed because of them.")
     out.append(" ".join(extra))
+    invariance = _invariance_methods(report)
+    if invariance:
+        out.append(invariance)
     return out
+
+
+def _invariance_methods(report: dict) -> str | None:
+    """The methods sentences on measurement invariance, when it was checked."""
+    steps = report.get("invariance")
+    if not steps:
+        return None
+    setup = report.get("invariance_setup") or {}
+    groups = list((setup.get("n") or {}).items())
+    text = (f"Measurement invariance of ‘{setup.get('model', '')}’ across "
+            + (_plain_list([f"‘{g}’ (n = {count(n)})" for g, n in groups]) if groups
+               else "the groups")
+            + f" was examined in the steps {_plain_list([str(s.get('step')) for s in steps])}, "
+            "each judged by the change in CFI, RMSEA and SRMR against the criteria of Cheung "
+            "and Rensvold (2002) and Chen (2007) and by the chi-square difference test.")
+    released = len(report.get("released") or ())
+    if released:
+        text += (f" {_number(released).capitalize()} equality constraint"
+                 f"{' was' if released == 1 else 's were'} released where score tests pointed "
+                 "to a difference (partial invariance).")
+    if report.get("latent_means"):
+        text += (" Latent means were then compared between groups, with standardized "
+                 "differences after Hancock (2001).")
+    return text
 
 
 def cautions(report: dict) -> list[tuple[str, str]]:
@@ -327,8 +439,8 @@ def cautions(report: dict) -> list[tuple[str, str]]:
          "covariances; evidence that the scores mean what they are meant to mean comes from "
          "content, response processes and relations with other variables."),
         ("Cutoffs are conventions",
-         f"The cutoffs marked in this report come from simulations of particular models "
-         f"({HU_BENTLER}); with other numbers of items, loadings or sample sizes they can be "
+         f"The cutoffs marked in this report come from the simulations of particular models "
+         f"by {HU_BENTLER}; with other numbers of items, loadings or sample sizes they can be "
          "too strict or too lenient (McNeish & Wolf, 2023). Every index is reported so that a "
          "reader can apply other criteria."),
         ("Equivalent models",

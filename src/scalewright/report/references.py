@@ -1,8 +1,12 @@
 """The reference list of a report: every method the check actually used,
-chosen from the keys present in the result dict, in alphabetical order.
+chosen from the keys present in the result dict, and every work cited in
+the sentences the report shows from the dict (the reasons for the method),
+in alphabetical order.
 """
 
 from __future__ import annotations
+
+import re
 
 CITATIONS = {
     "akaike": "Akaike, H. (1974). A new look at the statistical model identification. IEEE "
@@ -25,6 +29,9 @@ CITATIONS = {
     "cheung_rensvold": "Cheung, G. W., & Rensvold, R. B. (2002). Evaluating goodness-of-fit "
                        "indexes for testing measurement invariance. Structural Equation "
                        "Modeling, 9, 233–255.",
+    "curran": "Curran, P. J., West, S. G., & Finch, J. F. (1996). The robustness of test "
+              "statistics to nonnormality and specification error in confirmatory factor "
+              "analysis. Psychological Methods, 1, 16–29.",
     "cronbach": "Cronbach, L. J. (1951). Coefficient alpha and the internal structure of "
                 "tests. Psychometrika, 16, 297–334.",
     "feldt": "Feldt, L. S., Woodruff, D. J., & Salih, F. A. (1987). Statistical inference for "
@@ -35,6 +42,10 @@ CITATIONS = {
     "green_yang": "Green, S. B., & Yang, Y. (2009). Reliability of summed item scores using "
                   "structural equation modeling: An alternative to coefficient alpha. "
                   "Psychometrika, 74, 155–167.",
+    "hancock2001": "Hancock, G. R. (2001). Effect size, power, and sample size determination "
+                   "for structured means modeling and MIMIC approaches to between-groups "
+                   "hypothesis testing of means on a single latent construct. Psychometrika, 66, "
+                   "373–388.",
     "hancock_mueller": "Hancock, G. R., & Mueller, R. O. (2001). Rethinking construct "
                        "reliability within latent variable systems. In R. Cudeck, S. du Toit, "
                        "& D. Sörbom (Eds.), Structural equation modeling: Present and future "
@@ -67,9 +78,14 @@ CITATIONS = {
               "coefficient. Psychometrika, 44, 443–460.",
     "raftery": "Raftery, A. E. (1995). Bayesian model selection in social research. "
                "Sociological Methodology, 25, 111–163.",
+    "rhemtulla": "Rhemtulla, M., Brosseau-Liard, P. É., & Savalei, V. (2012). When can "
+                 "categorical variables be treated as continuous? A comparison of robust "
+                 "continuous and categorical SEM estimation methods under suboptimal conditions. "
+                 "Psychological Methods, 17, 354–373.",
     "rodriguez": "Rodriguez, A., Reise, S. P., & Haviland, M. G. (2016). Evaluating bifactor "
                  "models: Calculating and interpreting statistical indices. Psychological "
                  "Methods, 21, 137–150.",
+    "rubin": "Rubin, D. B. (1976). Inference and missing data. Biometrika, 63, 581–592.",
     "saris": "Saris, W. E., Satorra, A., & van der Veen, W. M. (2009). Testing structural "
              "equation models or detection of misspecifications? Structural Equation "
              "Modeling, 16, 561–582.",
@@ -109,6 +125,13 @@ CITATIONS = {
              "Statistical Methods, 6, 21–29.",
 }
 
+#: author and year by which a citation is recognised in a sentence the report shows from the dict
+CUES = {
+    "arbuckle": ("Arbuckle", 1996), "curran": ("Curran", 1996), "little": ("Little", 1988),
+    "mardia": ("Mardia", 1970), "rhemtulla": ("Rhemtulla", 2012), "rubin": ("Rubin", 1976),
+    "satorra_bentler1994": ("Satorra", 1994), "yuan_bentler": ("Yuan", 2000),
+}
+
 #: always used: ML, the fit indices, the cutoffs and the cautions shown in every report
 _ALWAYS = ("joreskog", "bentler1990", "tucker_lewis", "steiger_lind", "browne_cudeck",
            "hu_bentler", "mcneish_wolf", "akaike", "schwarz", "mardia", "standards")
@@ -120,6 +143,13 @@ def _model_keys(report: dict) -> set:
 
 def _estimators(report: dict) -> str:
     return " ".join(str(m.get("estimator", "")) for m in report.get("models", ())).lower()
+
+
+def cited_in(texts) -> set[str]:
+    """Keys of :data:`CUES` whose author is followed, within a few words, by the year."""
+    joined = " ".join(texts)
+    return {key for key, (name, year) in CUES.items()
+            if re.search(rf"\b{name}\b.{{0,60}}?\b{year}\b", joined)}
 
 
 def references_used(report: dict) -> list[str]:
@@ -155,8 +185,14 @@ def references_used(report: dict) -> list[str]:
         keys |= {"arbuckle"}
     if "robust" in estimators and "missing" in estimators:
         keys.add("yuan_bentler")
-    if "little_mcar" in report.get("data", {}) or "mcar" in report.get("data", {}):
+    data = report.get("data", {})
+    if (data.get("missing") or {}).get("little_mcar"):
         keys.add("little")
+    if data.get("missing_handling") in ("full-information", "listwise", "pairwise"):
+        keys.add("rubin")
+    keys |= cited_in((report.get("method") or {}).get("reasons", ()))
     if report.get("invariance"):
         keys |= {"cheung_rensvold", "chen"}
+    if report.get("latent_means"):
+        keys.add("hancock2001")
     return sorted((CITATIONS[k] for k in keys), key=str.casefold)

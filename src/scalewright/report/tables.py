@@ -21,8 +21,8 @@ from scalewright.report.charts import frequency_chart, frequency_text
 from scalewright.report.conventions import (FIT_CUTOFFS, MEETS, MISSES, RELIABILITY_MINIMUM,
                                             RELIABILITY_SOURCE, ROBUST, SALIENCE, cutoff_note,
                                             fit_marks, shown_fit)
-from scalewright.report.formatting import (DASH, coef, count, dec, interval, percent, plain,
-                                           pval)
+from scalewright.report.formatting import (DASH, coef, count, dec, dof, interval, percent,
+                                           plain, pval)
 
 
 @dataclass(frozen=True)
@@ -103,6 +103,8 @@ class Table:
 #: rows of the largest residual correlations and of the strongest hints shown (all are in the JSON)
 MAX_RESIDUAL_ROWS = 15
 MAX_HINT_ROWS = 15
+#: marks an item whose removal would raise its construct's alpha or omega
+RISES = "▲"
 
 
 def weight(x) -> str:
@@ -228,7 +230,9 @@ def nested_table(report: dict) -> Table:
 
 # --------------------------------------------------------------------------- one model
 
-def loadings_table(m: dict, prefix: str) -> Table:
+def loadings_table(m: dict, prefix: str, standard_errors: str = "") -> Table:
+    """Loadings with SE, z, p and the standardized value; ``standard_errors``
+    is the sentence saying where the standard errors come from."""
     rows = []
     for row in m["loadings"]:
         std = row.get("std_estimate")
@@ -241,8 +245,8 @@ def loadings_table(m: dict, prefix: str) -> Table:
     return Table(f"{prefix}-loadings", f"Loadings of ‘{m['name']}’",
                  ("Item", "Construct", "Estimate", "SE", "z", "p", "Standardized"), tuple(rows),
                  (f"▽ standardized loading below |{coef(SALIENCE, 2)}| on the item's own "
-                  "construct (a common rule of thumb for a salient loading). Standard errors "
-                  "from the expected information; 'fixed' marks a loading fixed for scaling.",),
+                  "construct (a common rule of thumb for a salient loading). 'fixed' marks a "
+                  "loading fixed for scaling." + (f" {standard_errors}" if standard_errors else ""),),
                  left=2)
 
 
@@ -292,14 +296,30 @@ def correlations_table(m: dict, prefix: str) -> Table:
 
 
 def residuals_table(m: dict, prefix: str) -> Table:
+    """Per item: the intercept with its SE when the model has a mean structure
+    (full-information ML), the residual variance with SE, standardized, and R²."""
     r2 = {r["item"]: r["value"] for r in m.get("r_squared", ())}
-    rows = [(_h(r["item"]), _c(dec(r["estimate"])), _c(dec(r.get("se"))),
-             _c(coef(r.get("std_estimate"))), _c(coef(r2.get(r["item"]))))
-            for r in m["residual_variances"]]
-    return Table(f"{prefix}-residuals", f"Residual variances and R² of ‘{m['name']}’",
-                 ("Item", "Residual variance", "SE", "Standardized", "R²"), tuple(rows),
-                 ("A negative residual variance (a Heywood case) is reported as estimated and "
-                  "flagged among the warnings.",))
+    intercepts = {r["item"]: r for r in m.get("intercepts") or ()}
+    rows = []
+    for r in m["residual_variances"]:
+        cells = [_h(r["item"])]
+        if intercepts:
+            nu = intercepts.get(r["item"], {})
+            cells += [_c(dec(nu.get("estimate"))), _c(dec(nu.get("se")))]
+        cells += [_c(dec(r["estimate"])), _c(dec(r.get("se"))), _c(coef(r.get("std_estimate"))),
+                  _c(coef(r2.get(r["item"])))]
+        rows.append(tuple(cells))
+    notes = ["A negative residual variance (a Heywood case) is reported as estimated and "
+             "flagged among the warnings."]
+    if intercepts:
+        notes.insert(0, "Intercept: the expected answer to the item (after reverse keying) of a "
+                        "respondent at the mean of every construct, estimated with the other "
+                        "parameters from every answer given.")
+    return Table(f"{prefix}-residuals",
+                 (f"Intercepts, residual variances and R² of ‘{m['name']}’" if intercepts
+                  else f"Residual variances and R² of ‘{m['name']}’"),
+                 ("Item",) + (("Intercept", "SE") if intercepts else ()) +
+                 ("Residual variance", "SE", "Standardized", "R²"), tuple(rows), tuple(notes))
 
 
 def residual_covariances_table(m: dict, prefix: str) -> Table:
@@ -312,37 +332,106 @@ def residual_covariances_table(m: dict, prefix: str) -> Table:
                  left=2)
 
 
+def _messages(notes) -> list[str]:
+    """The sentences of a list of notes (``{"message": …}`` or plain strings), each once."""
+    return list(dict.fromkeys(n.get("message", "") if isinstance(n, dict) else str(n)
+                              for n in notes or ()))
+
+
 def reliability_table(m: dict, prefix: str) -> Table:
+    """Per construct: alpha and omega, each with its 95% interval, and H; the
+    part of omega due to the construct alone where a general factor makes it
+    differ from omega; the notes the reliability keys carry are the table's notes."""
     rows = []
+    alone = any(coef(r.get("omega_construct"), 2) != coef(r.get("omega"), 2)
+                for r in m["reliability"])
     for r in m["reliability"]:
         omega = r.get("omega")
         rows.append((_h(r["construct"]), _c(count(r.get("n_items"))),
                      _c(f"{coef(r.get('alpha'), 2)} {interval(r.get('alpha_ci95'), 2)}"),
                      _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
-                             coef(omega, 2)),
-                     _c(coef(r.get("coefficient_h"), 2))))
+                             f"{coef(omega, 2)} {interval(r.get('omega_ci95'), 2)}"))
+                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
+                    + (_c(coef(r.get("coefficient_h"), 2)),))
+    notes = [f"Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
+             f"omega total from the fitted model (McDonald 1999) with a delta-method interval on "
+             f"the logit scale; "
+             f"coefficient H (Hancock & Mueller 2001). {MEETS}/{MISSES}: omega at least / below "
+             f"{coef(RELIABILITY_MINIMUM, 2)}, a common minimum for research use "
+             f"({RELIABILITY_SOURCE}); decisions about individuals need more."]
+    if alone:
+        notes.append("Omega, construct alone: the part of omega due to the construct itself, "
+                     "without the general factor its items also load on.")
+    notes += _messages(n for r in m["reliability"] for n in r.get("notes") or ())
     return Table(f"{prefix}-reliability", f"Reliability of the constructs of ‘{m['name']}’",
-                 ("Construct", "Items", "Alpha [95% CI]", "Omega", "H"), tuple(rows),
-                 (f"Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
-                  f"omega total from the fitted model (McDonald 1999); coefficient H (Hancock & "
-                  f"Mueller 2001). {MEETS}/{MISSES}: omega at least / below "
-                  f"{coef(RELIABILITY_MINIMUM, 2)}, a common minimum for research use "
-                  f"({RELIABILITY_SOURCE}); decisions about individuals need more.",))
+                 ("Construct", "Items", "Alpha [95% CI]", "Omega [95% CI]")
+                 + (("Omega, construct alone",) if alone else ()) + ("H",), tuple(rows),
+                 tuple(notes))
+
+
+def item_analysis_table(m: dict, prefix: str) -> Table:
+    """Per item of each construct: corrected item–total correlation, and alpha
+    and omega of the construct without the item, marked where they exceed
+    the construct's value with it."""
+    rows = []
+    for r in m["reliability"]:
+        for it in r.get("items") or ():
+            cells = [_h(it["item"]), Cell(r["construct"], css="text"),
+                     _c(coef(it.get("item_total_r"), 2))]
+            for key in ("alpha", "omega"):
+                value, whole = it.get(f"{key}_if_dropped"), r.get(key)
+                higher = value is not None and whole is not None and value > whole
+                cells.append(Cell(coef(value, 2), mark=RISES if higher else "",
+                                  css="flag" if higher else ""))
+            rows.append(tuple(cells))
+    return Table(f"{prefix}-item-analysis", f"Item analysis of ‘{m['name']}’",
+                 ("Item", "Construct", "Item–total r", "Alpha without the item",
+                  "Omega without the item"), tuple(rows),
+                 ("Item–total r: the item's correlation with the sum of the other items of its "
+                  "construct. Omega without the item comes from the model refitted without it. "
+                  f"{RISES} higher than the construct's coefficient with all its items (previous "
+                  "table): by this coefficient alone the scale would gain from dropping the "
+                  "item, which says nothing about what the item adds to the content.",),
+                 left=2)
+
+
+def _met(conventions, name: str | None = None) -> bool | None:
+    """Whether a value meets its convention, as the result dict says: the
+    convention called ``name``, else the strictest (lowest threshold) given."""
+    if isinstance(conventions, dict):
+        conventions = [conventions]
+    chosen = [c for c in conventions or () if name is None or c.get("name") == name]
+    if not chosen:
+        return None
+    return min(chosen, key=lambda c: c.get("threshold", 0.0)).get("met")
 
 
 def validity_table(m: dict, prefix: str) -> Table:
+    """AVE (marked by its convention) and composite reliability per construct."""
     v = m["validity"]
     ave, cr = v.get("ave", {}), v.get("composite_reliability", {})
-    rows = []
-    for c in dict.fromkeys([*ave, *cr]):
-        a = ave.get(c)
-        rows.append((_h(c), _marked(a, None if a is None else a > 0.5, coef(a, 2)),
-                     _c(coef(None if a is None else a ** 0.5, 2)), _c(coef(cr.get(c), 2))))
+    conventions = v.get("conventions") or {}
+    rows = [(_h(c), _marked(ave.get(c), _met(conventions.get(c), "AVE"), coef(ave.get(c), 2)),
+             _c(coef(cr.get(c), 2))) for c in dict.fromkeys([*ave, *cr])]
     return Table(f"{prefix}-validity", f"Average variance extracted of ‘{m['name']}’",
-                 ("Construct", "AVE", "√AVE", "Composite reliability"), tuple(rows),
-                 (f"{MEETS}/{MISSES}: AVE above / not above .50, the convention of Fornell & "
-                  "Larcker (1981); by the same convention each construct's √AVE should exceed "
-                  "its correlations with the others.",))
+                 ("Construct", "AVE", "Composite reliability"), tuple(rows),
+                 (f"{MEETS}/{MISSES}: AVE at least / below .50, the convention of Fornell & "
+                  "Larcker (1981): the construct explains at least half of its items' variance.",))
+
+
+def fornell_larcker_table(m: dict, prefix: str) -> Table:
+    """Each pair of constructs: their correlation beside the two √AVE, marked by
+    the Fornell–Larcker convention as the result dict states it."""
+    rows = [(_h(r["a"]), Cell(r["b"], css="text"),
+             _marked(r.get("correlation"), _met(r.get("convention")), coef(r.get("correlation"), 2)),
+             _c(coef(r.get("sqrt_ave_a"), 2)), _c(coef(r.get("sqrt_ave_b"), 2)))
+            for r in m["validity"]["fornell_larcker"]]
+    return Table(f"{prefix}-fornell-larcker", f"Correlations against √AVE in ‘{m['name']}’",
+                 ("Construct", "With", "Correlation", "√AVE (construct)", "√AVE (with)"),
+                 tuple(rows),
+                 (f"{MEETS}/{MISSES}: the correlation is / is not smaller in size than both √AVE, "
+                  "the convention of Fornell & Larcker (1981) for distinct constructs.",),
+                 left=2)
 
 
 def htmt_table(m: dict, prefix: str) -> Table:
@@ -350,12 +439,17 @@ def htmt_table(m: dict, prefix: str) -> Table:
     for r in m["validity"]["htmt"]:
         value = r.get("value")
         rows.append((_h(r["a"]), Cell(r["b"], css="text"),
-                     _marked(value, None if value is None else value < 0.85, coef(value, 2))))
+                     _marked(value, _met(r.get("conventions")), coef(value, 2))))
     return Table(f"{prefix}-htmt", f"Heterotrait–monotrait ratios in ‘{m['name']}’",
                  ("Construct", "With", "HTMT"), tuple(rows),
-                 (f"{MEETS}/{MISSES}: below / not below .85, the stricter convention of Henseler, "
-                  "Ringle & Sarstedt (2015) for distinct constructs (.90 for conceptually "
-                  "similar ones).",), left=2)
+                 (f"{MEETS}/{MISSES}: below / not below the stricter of the conventions of "
+                  "Henseler, Ringle & Sarstedt (2015), .85 for distinct constructs (.90 for "
+                  "conceptually similar ones).",), left=2)
+
+
+def with_notes(table: Table, notes) -> Table:
+    """``table`` with the sentences of ``notes`` added to its notes."""
+    return replace(table, notes=table.notes + tuple(_messages(notes)))
 
 
 def bifactor_table(coefficients: dict, key: str, title: str) -> Table:
@@ -398,30 +492,37 @@ def hints_table(m: dict, prefix: str) -> Table:
 def residual_correlations_table(m: dict, prefix: str) -> Table:
     res = m["residual_correlations"]
     largest = res.get("largest", ())
+    shown = largest[:MAX_RESIDUAL_ROWS]
+    with_z = any(r.get("standardized") is not None for r in shown)
     rows = []
-    for r in largest[:MAX_RESIDUAL_ROWS]:
+    for r in shown:
         flagged = r.get("flagged")
         rows.append((_h(r["a"]), Cell(r["b"], css="text"),
                      Cell(coef(r["value"], 2), mark="◆" if flagged else "",
-                          css="flag" if flagged else ""),
-                     _c(dec(r.get("standardized"), 2))))
+                          css="flag" if flagged else ""))
+                    + ((_c(dec(r.get("standardized"), 2)),) if with_z else ()))
     return Table(f"{prefix}-residual-correlations",
                  f"Largest residual correlations of ‘{m['name']}’",
-                 ("Item", "With", "Residual correlation", "z"), tuple(rows),
+                 ("Item", "With", "Residual correlation") + (("z",) if with_z else ()),
+                 tuple(rows),
                  (f"Observed minus model-implied correlation; ◆ at or beyond "
-                  f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb). z: the "
-                  "standardized residual."
+                  f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb)."
+                  + (" z: the standardized residual." if with_z else
+                     " Standardized residuals were not computed for this model.")
                   + (f" The {len(largest) - MAX_RESIDUAL_ROWS} smaller ones listed in the JSON "
                      "file are left out here." if len(largest) > MAX_RESIDUAL_ROWS else ""),),
                  left=2)
 
 
 def item_review_table(m: dict, prefix: str) -> Table:
+    """One row per reason an item is flagged; rows after an item's first show
+    its name muted (it stays in every row for the CSV)."""
     rows = []
     for r in m["item_review"]:
         details = r.get("details") or [{"text": f} for f in r.get("flags", ())]
-        rows.append((_h(r["item"]), Cell("; ".join(d.get("text", "") for d in details),
-                                         css="text prose")))
+        for k, d in enumerate(details):
+            rows.append((Cell(r["item"], header=True, css="cont" if k else ""),
+                         Cell(d.get("text", ""), css="text prose")))
     return Table(f"{prefix}-item-review", f"Items to look at in ‘{m['name']}’",
                  ("Item", "Why"), tuple(rows), left=2)
 
@@ -456,10 +557,15 @@ def thresholds_table(m: dict, prefix: str) -> Table:
                  ("Item", *[f"τ{k + 1}" for k in range(width)]), tuple(rows))
 
 
-def model_tables(m: dict, index: int) -> dict[str, Table]:
-    """Every table of one model whose key is present, in document order."""
+def model_tables(m: dict, index: int, standard_errors: str = "") -> dict[str, Table]:
+    """Every table of one model whose key is present, in document order.
+
+    ``standard_errors`` is the sentence under the loadings saying where the
+    standard errors come from.  The notes the validity key carries go under
+    the last of its tables."""
     prefix = f"m{index}-{slug(m['name'])}"
-    out = {"loadings": loadings_table(m, prefix), "matrix": loading_matrix(m, prefix)}
+    out = {"loadings": loadings_table(m, prefix, standard_errors),
+           "matrix": loading_matrix(m, prefix)}
     if m.get("higher_order_paths"):
         out["paths"] = paths_table(m, prefix)
     if m.get("construct_correlations"):
@@ -471,17 +577,30 @@ def model_tables(m: dict, index: int) -> dict[str, Table]:
         out["thresholds"] = thresholds_table(m, prefix)
     if m.get("reliability"):
         out["reliability"] = reliability_table(m, prefix)
+        if any(r.get("items") for r in m["reliability"]):
+            out["item_analysis"] = item_analysis_table(m, prefix)
     if m.get("validity"):
+        validity = m["validity"]
         out["validity"] = validity_table(m, prefix)
-        if m["validity"].get("htmt"):
+        last = "validity"
+        if validity.get("fornell_larcker"):
+            last = "fornell_larcker"
+            out["fornell_larcker"] = fornell_larcker_table(m, prefix)
+        if validity.get("htmt"):
+            last = "htmt"
             out["htmt"] = htmt_table(m, prefix)
+        out[last] = with_notes(out[last], validity.get("notes"))
     if isinstance(m.get("bifactor"), dict):
-        out["bifactor"] = bifactor_table(m["bifactor"], f"{prefix}-bifactor",
-                                         f"General and specific factors in ‘{m['name']}’")
+        out["bifactor"] = with_notes(
+            bifactor_table(m["bifactor"], f"{prefix}-bifactor",
+                           f"General and specific factors in ‘{m['name']}’"),
+            m["bifactor"].get("notes"))
     if isinstance(m.get("higher_order"), dict) and m["higher_order"].get("coefficients"):
-        out["higher_order"] = bifactor_table(
-            m["higher_order"]["coefficients"], f"{prefix}-higher-order",
-            f"The higher-order factor of ‘{m['name']}’ in its Schmid–Leiman form")
+        coefficients = m["higher_order"]["coefficients"]
+        out["higher_order"] = with_notes(
+            bifactor_table(coefficients, f"{prefix}-higher-order",
+                           f"The higher-order factor of ‘{m['name']}’ in its Schmid–Leiman form"),
+            coefficients.get("notes"))
     if m.get("modification_hints"):
         out["hints"] = hints_table(m, prefix)
     if (m.get("residual_correlations") or {}).get("largest"):
@@ -519,7 +638,7 @@ def screening_table(report: dict) -> Table:
 def mardia_table(report: dict) -> Table:
     m = report["data"]["screening"]["mardia"]
     rows = ((_h("Skewness"), _c(dec(m.get("skewness"), 2)),
-             _c(f"χ²({count(m.get('skewness_df'))}) = {dec(m.get('skewness_chi2'), 1)}"),
+             _c(f"χ²({dof(m.get('skewness_df'))}) = {dec(m.get('skewness_chi2'), 1)}"),
              _c(pval(m.get("skewness_p")))),
             (_h("Kurtosis"), _c(dec(m.get("kurtosis"), 2)), _c(f"z = {dec(m.get('kurtosis_z'), 2)}"),
              _c(pval(m.get("kurtosis_p")))))
@@ -531,32 +650,72 @@ def mardia_table(report: dict) -> Table:
                  ("Coefficient", "Value", "Test", "p"), tuple(rows), (note,))
 
 
-def _decision(decision) -> str:
-    """An invariance step's decision: its text (issue 6 shape) or the value as given."""
-    if isinstance(decision, dict):
-        mark = {True: f"{MEETS} ", False: f"{MISSES} "}.get(decision.get("holds"), "")
-        return mark + str(decision.get("text") or "")
-    return "" if decision is None else str(decision)
+def _decision(decision) -> Cell:
+    """An invariance step's decision in brief, marked; the full wording is
+    listed under the table (see :func:`scalewright.report.document`)."""
+    holds = decision.get("holds") if isinstance(decision, dict) else None
+    if holds is None:
+        return Cell("reference" if isinstance(decision, dict) else DASH, css="text")
+    return Cell("holds" if holds else "does not hold", mark=MEETS if holds else MISSES,
+                css="text " + ("meets" if holds else "misses"))
 
 
 def invariance_table(report: dict) -> Table:
+    """One row per step: fit, its change from the step before, the difference
+    test and the decision in brief."""
     rows = []
     for s in report["invariance"]:
         fit = s.get("fit") or {}
         delta = s.get("delta") or {}
         test = s.get("difference_test") or {}
-        rows.append((_h(s.get("step", "")), _c(dec(fit.get("chi_square"), 2)),
+        step = str(s.get("step", "")) + (" (partial)" if s.get("partial") else "")
+        rows.append((_h(step), _c(dec(fit.get("chi_square"), 2)),
                      _c(str(fit.get("df", DASH))), _c(coef(fit.get("cfi"))),
                      _c(coef(fit.get("rmsea"))), _c(coef(fit.get("srmr"))),
                      _c(coef(delta.get("cfi"))), _c(coef(delta.get("rmsea"))),
                      _c(coef(delta.get("srmr"))), _c(dec(test.get("chi_square"), 2)),
                      _c(str(test.get("df", DASH))), _c(pval(test.get("p_value"))),
-                     Cell(_decision(s.get("decision")), css="text prose")))
+                     _decision(s.get("decision"))))
     return Table("invariance", "Measurement invariance, step by step",
                  ("Step", "χ²", "df", "CFI", "RMSEA", "SRMR", "ΔCFI", "ΔRMSEA", "ΔSRMR",
                   "Δχ²", "Δdf", "p", "Decision"), tuple(rows),
                  ("Decisions follow the change criteria of Cheung & Rensvold (2002) and Chen "
-                  "(2007), which are conventions.",), css="wide")
+                  "(2007), which are conventions; each decision is given in full below the "
+                  "table. (partial): some equality constraints of the step were released.",),
+                 css="wide")
+
+
+def latent_means_table(report: dict) -> Table:
+    """Latent mean differences between groups under the invariance reached."""
+    rows = [(_h(r["construct"]), Cell(str(r.get("group")), css="text"),
+             Cell(str(r.get("reference")), css="text"), _c(dec(r.get("estimate"))),
+             _c(dec(r.get("se"))), _c(dec(r.get("z"), 2)), _c(pval(r.get("p_value"))),
+             _c(dec(r.get("std_difference"), 2)))
+            for r in report["latent_means"]]
+    notes = [n for n in (report.get("latent_comparison_note"),) if n]
+    notes.append("Difference: the group's latent mean minus the reference group's, which is "
+                 "fixed at 0. Standardized: the difference divided by the latent standard "
+                 "deviation pooled over the two groups, weighted by their size (Hancock 2001)."
+                 + (" The latent variances and correlations of each group are in the JSON file."
+                    if report.get("latent_variances") or report.get("latent_correlations")
+                    else ""))
+    return Table("latent-means", "Latent means compared between groups",
+                 ("Construct", "Group", "Reference", "Difference", "SE", "z", "p",
+                  "Standardized"), tuple(rows), tuple(notes), left=3)
+
+
+def missing_patterns_table(report: dict) -> Table:
+    """The most frequent patterns of unanswered items, as the result dict lists them."""
+    missing = report["data"]["missing"]
+    patterns = missing.get("patterns") or []
+    rows = [(_h(", ".join(p["missing"]) if p["missing"] else "none (every item answered)"),
+             _c(count(len(p["missing"]))), _c(count(p.get("n")))) for p in patterns]
+    covered = sum(p.get("n", 0) for p in patterns)
+    note = (f"The {count(len(patterns))} most frequent of the {count(missing.get('n_patterns'))} "
+            f"patterns of unanswered items; together they hold {count(covered)} of the "
+            f"{count(missing.get('n_rows'))} rows.")
+    return Table("missing-patterns", "Most frequent patterns of missing answers",
+                 ("Items not answered", "Number of items", "Rows"), tuple(rows), (note,))
 
 
 def checklist_table(rows: list[dict]) -> Table:
