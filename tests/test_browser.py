@@ -98,6 +98,21 @@ def test_every_section_and_every_rival_model_is_visible(browser, demo_html):
     page.close()
 
 
+def test_the_method_missing_data_and_scale_quality_blocks_are_visible(browser, demo_html):
+    report = demo_report()
+    page, _ = _open(browser, demo_html)
+    data = page.locator("#data")
+    for heading in ("The method chosen for these data", "Missing answers"):
+        assert data.locator("h3", has_text=heading).is_visible(), heading
+    assert data.locator("li", has_text=report["method"]["reasons"][0][:40]).is_visible()
+    assert data.locator("caption", has_text="Most frequent patterns of missing answers").is_visible()
+    for caption in ("Item analysis of", "Correlations against √AVE in",
+                    "Intercepts, residual variances and R² of"):
+        assert page.locator("caption", has_text=caption).first.is_visible(), caption
+    assert page.locator("#invariance caption", has_text="Latent means").is_visible()
+    page.close()
+
+
 def test_hostile_wording_renders_as_text_and_runs_nothing(browser, hostile_html):
     page, seen = _open(browser, hostile_html)
     assert page.evaluate("document.scripts.length") == 0
