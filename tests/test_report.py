@@ -503,13 +503,33 @@ def test_checklist_lines_on_missing_answers_outliers_and_correlations_follow_the
     report = demo_report()
     rows = {r["number"]: r for r in checklist_rows(report)}
     assert rows[9]["status"] == "shown" and "patterns" in rows[9]["where"]
-    assert rows[11]["status"] == "not computed"            # no outlier key in the dict
-    assert rows[12]["status"] == "partly shown" and "neither this report nor its JSON" in rows[12]["where"]
+    assert rows[11]["status"] == "shown" and "Mahalanobis" in rows[11]["where"]
+    assert rows[12]["status"] == "shown" and "‘correlations’" in rows[12]["where"]
     del report["data"]["missing"]
     assert checklist_rows(report)[8]["status"] == "partly shown"
     report["models"][0]["polychoric"] = {"items": [], "correlations": []}   # the ordinal route's key
     where = checklist_rows(report)[11]["where"]
     assert f"‘polychoric’ under ‘{report['models'][0]['name']}’" in where
+    report["data"]["outliers"] = None                       # too few complete rows to screen
+    del report["data"]["correlations"]
+    rows = {r["number"]: r for r in checklist_rows(report)}
+    assert rows[11]["status"] == "not computed" and rows[12]["status"] == "partly shown"
+
+
+def test_outlier_and_correlation_tables_follow_the_dict():
+    report = demo_report()
+    data = report["data"]
+    html = render_html(report)
+    items = data["correlations"]["items"]
+    assert "Item correlations" in html
+    # the lower triangle of the matrix, two decimals without the leading zero (APA)
+    r = data["correlations"]["matrix"][1][0]
+    assert f"{r:.2f}".replace("0.", ".").replace("-", "−") in html
+    assert len(items) == len(data["correlations"]["matrix"])
+    data["outliers"]["largest"] = [{"row": "T999", "d2": 61.25, "p_value": 0.0000012}]
+    data["outliers"]["n_flagged"] = 1
+    html = render_html(report)
+    assert "T999" in html and "61.2" in html and "kept in the analysis" in html
 
 
 # --------------------------------------------------------------------------- the data section

@@ -32,6 +32,7 @@ from scalewright.methods import LISTWISE, ORDINAL, choose_method
 from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
+from scalewright.outliers import item_correlations, mahalanobis_outliers
 from scalewright.output import check_targets, write_outputs
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study, load_study
@@ -51,6 +52,7 @@ class CheckResult:
     extra: dict = field(default_factory=dict)
     missing: dict = field(default_factory=dict)   # patterns, per-item rates, Little's test
     method: object = None                          # the MethodChoice
+    data_checks: dict = field(default_factory=dict)  # outliers, item correlations
 
     def model(self, name: str) -> ModelResult:
         for m in self.models:
@@ -84,6 +86,7 @@ class CheckResult:
             },
             "models": [m.to_dict() for m in self.models],
         }
+        out["data"].update(self.data_checks)
         out.update(self.extra)
         return _plain(out)
 
@@ -136,10 +139,23 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
                else "incomplete answers": int(data.n_rows - n_used)}
     result = CheckResult(study, data, screening, models, n_used, dropped,
                          _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-                         extra, missing_data_summary(data), choice)
+                         extra, missing_data_summary(data), choice,
+                         _reanalysis_keys(data, choice))
     if out is not None:
         write_outputs(result, Path(out))
     return result
+
+
+def _reanalysis_keys(data: ItemData, choice) -> dict:
+    """Outlier screening and the item correlation matrix (reporting checklist
+    lines 11 and 12), under ``data``."""
+    values = np.asarray(data.values)
+    saturated = None
+    if choice.missing_handling != LISTWISE and np.isnan(values).any():
+        saturated = saturated_covariance(values, data.items, data.file.name)
+    found = mahalanobis_outliers(values, data.row_ids)
+    return {"outliers": found.to_dict() if found else None,
+            "correlations": item_correlations(values, data.items, saturated)}
 
 
 def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:

@@ -13,6 +13,8 @@ which key to add rather than inventing an answer.
 
 from __future__ import annotations
 
+from scalewright.report.tables import CORRELATION_TABLE_MAX_ITEMS
+
 SHOWN, PARTLY, MISSING, NOT_COMPUTED, NOT_APPLICABLE = (
     "shown", "partly shown", "missing", "not computed", "not applicable")
 
@@ -48,7 +50,8 @@ def checklist_rows(report: dict) -> list[dict]:
     rationale = _about(report, "rationale") or any(r.get("rationale") for r in rows_cmp)
     changes = any(r.get("changes") for r in rows_cmp)
     estimators = " ".join(str(m.get("estimator", "")) for m in models).lower()
-    missing = report["data"].get("missing")
+    data = report["data"]
+    missing = data.get("missing")
     polychoric = [m["name"] for m in models if m.get("polychoric")]
     reasons = (report.get("method") or {}).get("reasons")
     out = [
@@ -83,15 +86,19 @@ def checklist_rows(report: dict) -> list[dict]:
              "patterns per case are not computed"),
         _row(10, "Skewness and kurtosis per item; a multivariate normality test", SHOWN,
              "section ‘The data’"),
-        _row(11, "Outliers: how detected and handled", NOT_COMPUTED,
-             "scalewright does not screen for outliers; report your own check"),
-        _row(12, "Item means, SDs and correlations, enough to reanalyse", PARTLY,
-             "section ‘The data’ (means and SDs); "
-             + (f"the polychoric correlations are in the JSON file (‘polychoric’ under "
-                f"{_names(polychoric)})" if polychoric else
-                "the item correlation matrix is in neither this report nor its JSON file: "
-                "compute it from the data file named in the header, whose SHA-256 identifies "
-                "the version analysed")),
+        _row(11, "Outliers: how detected and handled",
+             SHOWN if data.get("outliers") else NOT_COMPUTED,
+             "section ‘The data’ (Mahalanobis distance, p < .001; flagged rows kept); say "
+             "whether you looked at them" if data.get("outliers") else
+             "too few complete rows to screen for outliers; report your own check"),
+        _row(12, "Item means, SDs and correlations, enough to reanalyse",
+             SHOWN if data.get("correlations") else PARTLY,
+             "section ‘The data’ (means, SDs"
+             + (", item correlations" if data.get("correlations") and len(
+                 data["correlations"]["items"]) <= CORRELATION_TABLE_MAX_ITEMS else "")
+             + "); the correlation matrix is also in the JSON file (‘data’ → ‘correlations’)"
+             + (f"; the polychoric correlations are in the JSON file (‘polychoric’ under "
+                f"{_names(polychoric)})" if polychoric else "")),
         _row(13, "Estimation method and why it suits the data", SHOWN,
              ("section ‘The data’ (the method chosen and why); " if reasons else "")
              + f"methods paragraph; {per_model}"),

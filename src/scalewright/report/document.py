@@ -291,6 +291,20 @@ def _data(doc: Document) -> None:
         sentence = narrative.little_sentence(r)
         if sentence:
             s.p(sentence)
+    outliers = data.get("outliers")
+    if outliers:
+        s.h3("Rows far from the others")
+        flagged = outliers["n_flagged"]
+        s.p(f"Mahalanobis distances of the {count(outliers['n_checked'])} rows that answer every "
+            f"item flag {count(flagged)} row{'' if flagged == 1 else 's'} at p < .001"
+            + ("; they were kept in the analysis, and the most distant are listed below so "
+               "that their answers can be looked at." if flagged else "."))
+        if outliers["largest"]:
+            doc.table(s, tables.outliers_table(r))
+    correlations = data.get("correlations")
+    if correlations and len(correlations["items"]) <= tables.CORRELATION_TABLE_MAX_ITEMS:
+        s.h3("Item correlations")
+        doc.table(s, tables.correlation_table(r))
     doc.sections.append(s)
 
 

@@ -58,6 +58,10 @@ CITATIONS = {
                   "alternatives. Structural Equation Modeling, 6, 1–55.",
     "joreskog": "Jöreskog, K. G. (1969). A general approach to confirmatory maximum "
                 "likelihood factor analysis. Psychometrika, 34, 183–202.",
+    "mahalanobis": "Mahalanobis, P. C. (1936). On the generalized distance in statistics. "
+                   "Proceedings of the National Institute of Sciences of India, 2, 49–55.",
+    "tabachnick": "Tabachnick, B. G., & Fidell, L. S. (2013). Using multivariate statistics "
+                  "(6th ed.). Pearson.",
     "little": "Little, R. J. A. (1988). A test of missing completely at random for "
               "multivariate data with missing values. Journal of the American Statistical "
               "Association, 83, 1198–1202.",
@@ -188,6 +192,8 @@ def references_used(report: dict) -> list[str]:
     data = report.get("data", {})
     if (data.get("missing") or {}).get("little_mcar"):
         keys.add("little")
+    if data.get("outliers"):
+        keys |= {"mahalanobis", "tabachnick"}
     if data.get("missing_handling") in ("full-information", "listwise", "pairwise"):
         keys.add("rubin")
     keys |= cited_in((report.get("method") or {}).get("reasons", ()))

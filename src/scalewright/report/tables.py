@@ -718,6 +718,33 @@ def missing_patterns_table(report: dict) -> Table:
                  ("Items not answered", "Number of items", "Rows"), tuple(rows), (note,))
 
 
+def outliers_table(report: dict) -> Table:
+    """The most distant rows flagged by Mahalanobis distance, as the result dict lists them."""
+    found = report["data"]["outliers"]
+    rows = [(_h(str(r["row"])), _c(dec(r["d2"], 1)), _c(pval(r["p_value"])))
+            for r in found["largest"]]
+    note = (f"Rows answering every item ({count(found['n_checked'])}); flagged when D² exceeds "
+            f"{dec(found['threshold'], 1)}, the chi-square quantile at p < .001 (Tabachnick & "
+            "Fidell 2013). Flagged rows were kept in the analysis.")
+    return Table("outliers", "Rows far from the others (Mahalanobis distance)",
+                 ("Row", "D²", "p"), tuple(rows), (note,))
+
+
+#: the correlation matrix is printed for at most this many items (else: in the JSON file)
+CORRELATION_TABLE_MAX_ITEMS = 30
+
+
+def correlation_table(report: dict) -> Table:
+    """The item correlation matrix (lower triangle), for reanalysis."""
+    corr = report["data"]["correlations"]
+    items, matrix = corr["items"], corr["matrix"]
+    rows = [tuple([_h(items[i])] + [_c(coef(matrix[i][j], 2)) if j < i else _c("1" if j == i else "")
+                                    for j in range(len(items))]) for i in range(len(items))]
+    note = (f"Pearson correlations after reverse keying; {corr['basis']}. With the means and "
+            "standard deviations of the item table they allow the models to be refitted.")
+    return Table("correlations", "Item correlations", ("Item", *items), tuple(rows), (note,))
+
+
 def checklist_table(rows: list[dict]) -> Table:
     cells = [(_h(str(r["number"])), Cell(r["line"], css="text prose"),
               Cell(r["status"], css=f"text status-{r['status'].split()[0]}"),
