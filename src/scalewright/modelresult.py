@@ -16,6 +16,16 @@ from scalewright.layout import GENERAL, LOADING, PATH, RESIDUAL_COV
 from scalewright.standardize import Standardized, delta_method_se
 
 
+#: where each estimation route's standard errors come from, in words
+STANDARD_ERRORS = {
+    "ml": "expected information",
+    "fiml": "observed information (consistent when answers are missing at random)",
+    "robust-ml": "sandwich (robust to non-normal answers)",
+    "robust-fiml": "sandwich with missing answers (Yuan & Bentler 2000)",
+    "dwls": "sandwich from the asymptotic covariance of the polychoric correlations",
+}
+
+
 @dataclass(frozen=True)
 class ModelResult:
     """Everything reported about one rival model."""
@@ -41,6 +51,7 @@ class ModelResult:
             "estimator": self.estimator,
             "fit": self.fit.to_dict(),
             "optimizer": est.record.to_dict(),
+            "standard_errors": STANDARD_ERRORS.get(est.method, est.method),
             "identification": list(layout.notes),
             "n_used": est.n,
             "items": list(layout.items),
