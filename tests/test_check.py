@@ -118,8 +118,10 @@ def test_planted_non_invariant_item_is_released(demo_result):
 
 
 def test_missing_answers_are_used_by_full_information_ml(demo_result):
-    assert demo_result.to_dict()["data"]["missing_handling"] == "full-information"
+    d = demo_result.to_dict()
+    assert d["data"]["missing_handling"] == "full-information"
     assert demo_result.n_used == demo_result.data.n_rows
+    assert all(m["standard_errors"].startswith("observed information") for m in d["models"])
 
 
 # --------------------------------------------------------------------------- command line
