@@ -124,3 +124,17 @@ def test_missing_data_summary_reports_rates_patterns_and_little(tmp_path):
     assert summary["items"][0] == {"item": "q1", "n_answered": 360, "rate_missing": 0.1}
     assert summary["n_patterns"] == 2 and summary["patterns"][0]["n"] == 360
     assert summary["little_mcar"]["df"] == 5      # Σ p_k − p = 6 + 5 − 6
+
+
+def test_declared_continuous_items_in_an_ordinal_study_are_refused_not_overridden(tmp_path):
+    # three items have three answer categories (ordinal under the Rhemtulla et al.
+    # 2012 rule), three are declared continuous: one analysis cannot honour both
+    rng = np.random.default_rng(9)
+    x = normal_answers(rng)
+    x[:, :3] = np.digitize(x[:, :3], [-0.5, 0.5])
+    estimation = ("items:\n  treat_as:\n    q4: continuous\n    q5: continuous\n"
+                  "    q6: continuous\n")
+    study, data = write_study(tmp_path, x, estimation)
+    with pytest.raises(StudyError, match=r"'q4', 'q5' and 'q6' are declared continuous.*"
+                                         r"cannot mix the two"):
+        choose_method(study, data)

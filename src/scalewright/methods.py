@@ -92,6 +92,15 @@ def choose_method(study: Study, data: ItemData, screening: Screening | None = No
         study.items[it].treat_as == "auto" and stats[it].n_distinct <= ORDINAL_MAX_CATEGORIES))
     reasons: list[str] = []
     estimator = _estimator(study, screening, stats, used, ordinal, reasons)
+    continuous = [it for it in used if study.items[it].treat_as == "continuous"]
+    if estimator == ORDINAL and continuous:
+        raise StudyError(
+            f"{study.place_of('items', 'treat_as')}: {_list(continuous)} "
+            f"{'is' if len(continuous) == 1 else 'are'} declared continuous, but the study is "
+            f"analysed as ordinal ({_list(ordinal or used)}); one analysis cannot mix the two yet "
+            "(that would need polyserial correlations). Declare every item ordinal or every "
+            "item continuous under items: treat_as:, or set estimation: method: robust to "
+            "treat all items as continuous.")
     missing = _missing(study, data, estimator, reasons)
     return MethodChoice(estimator, missing, tuple(reasons),
                         ordinal if estimator == ORDINAL else ())
