@@ -199,7 +199,7 @@ def _embedded_inverse(stack: _GroupStack, sigma: np.ndarray):
     logdet = 2.0 * np.sum(np.log(np.diagonal(chol, axis1=1, axis2=2)), axis=1)
     eye = np.broadcast_to(np.eye(sigma.shape[0]), embedded.shape)
     inv_chol = np.linalg.solve(chol, eye)
-    v = np.einsum("kji,kjl->kil", inv_chol, inv_chol)
+    v = inv_chol.transpose(0, 2, 1) @ inv_chol
     return v * mask, logdet
 
 
