@@ -27,7 +27,7 @@ from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, 
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.evaluate import evaluate_normal
+from scalewright.evaluate import NORMAL_ML, evaluate_normal
 from scalewright.indices import FitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
@@ -37,7 +37,7 @@ from scalewright.specify import build_layout
 from scalewright.standardize import standardize
 
 LABELS = {
-    ("normal", False): "maximum likelihood (normal theory)",
+    ("normal", False): NORMAL_ML,
     ("robust", False): "maximum likelihood with robust (sandwich) standard errors and the "
                        "Satorra–Bentler scaled test",
     ("normal", True): "full-information maximum likelihood (normal theory)",

@@ -151,16 +151,7 @@ def bvn_pdf(h, k, rho):
     Olsson, U. (1979). Maximum likelihood estimation of the polychoric
     correlation coefficient. *Psychometrika*, 44, 443-460.
     """
-    h, k, rho = np.broadcast_arrays(
-        np.asarray(h, dtype=float), np.asarray(k, dtype=float), np.asarray(rho, dtype=float)
-    )
-    out = np.zeros(h.shape)
-    finite = np.isfinite(h) & np.isfinite(k)
-    hf, kf, rf = h[finite], k[finite], rho[finite]
-    one_minus = 1.0 - rf * rf
-    quad = hf * hf - 2.0 * rf * hf * kf + kf * kf
-    out[finite] = np.exp(-quad / (2.0 * one_minus)) / (_TWO_PI * np.sqrt(one_minus))
-    return out
+    return _density_parts(h, k, rho)[0]
 
 
 def bvn_pdf_drho(h, k, rho):
@@ -172,17 +163,26 @@ def bvn_pdf_drho(h, k, rho):
     differentiating log phi2 = -log(2 pi) - log(1 - rho^2)/2
     - (h^2 - 2 rho h k + k^2) / (2 (1 - rho^2)).  Zero where h or k is infinite.
     """
+    density, finite, hf, kf, rf, one_minus, quad = _density_parts(h, k, rho)
+    out = np.zeros(density.shape)
+    factor = rf / one_minus + (hf * kf * one_minus - rf * quad) / one_minus**2
+    out[finite] = density[finite] * factor
+    return out
+
+
+def _density_parts(h, k, rho):
+    """φ₂(h, k; ρ) broadcast over the arguments (zero where h or k is infinite),
+    with the pieces its derivative reuses."""
     h, k, rho = np.broadcast_arrays(
         np.asarray(h, dtype=float), np.asarray(k, dtype=float), np.asarray(rho, dtype=float)
     )
-    out = np.zeros(h.shape)
+    density = np.zeros(h.shape)
     finite = np.isfinite(h) & np.isfinite(k)
     hf, kf, rf = h[finite], k[finite], rho[finite]
     one_minus = 1.0 - rf * rf
     quad = hf * hf - 2.0 * rf * hf * kf + kf * kf
-    factor = rf / one_minus + (hf * kf * one_minus - rf * quad) / one_minus**2
-    out[finite] = bvn_pdf(hf, kf, rf) * factor
-    return out
+    density[finite] = np.exp(-quad / (2.0 * one_minus)) / (_TWO_PI * np.sqrt(one_minus))
+    return density, finite, hf, kf, rf, one_minus, quad
 
 
 def bvn_cdf_dh(h, k, rho):

@@ -78,7 +78,7 @@ from scipy import linalg, sparse
 
 from scalewright.errors import StudyError
 from scalewright.estimate.fisher import OptimizerRecord
-from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, fit_normal
+from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
 from scalewright.layout import INTERCEPT, Cells, Layout, Param, cell_derivatives
 
@@ -229,13 +229,11 @@ class _Embedded:
 
 
 def _embedded_inverses(sigma: np.ndarray, masks: np.ndarray) -> _Embedded:
-    m = masks.astype(float)
-    both = m[:, :, None] * m[:, None, :]
-    filled = sigma[None] * both + np.eye(len(sigma))[None] * (1.0 - m)[:, None, :]
-    chol = np.linalg.cholesky(filled)
-    logdet = 2.0 * np.log(np.diagonal(chol, axis1=1, axis2=2)).sum(axis=1)
-    v = np.linalg.inv(filled) * both
-    return _Embedded(v, logdet)
+    parts = embedded_inverse(sigma, masks)
+    if parts is None:
+        raise np.linalg.LinAlgError("an implied covariance of a missing-data pattern is not "
+                                    "positive definite")
+    return _Embedded(*parts)
 
 
 def pattern_loglik(moments: PatternMoments, mu: np.ndarray, sigma: np.ndarray,

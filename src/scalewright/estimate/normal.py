@@ -129,7 +129,7 @@ class NormalFit:
         """``f(θ) = −ℓ(θ)/N`` (``inf`` where an implied covariance is not positive definite)."""
         total = 0.0
         for stack, mats in zip(self._stacks, self._all_matrices(theta)):
-            parts = _embedded_inverse(stack, mats.implied_cov)
+            parts = embedded_inverse(mats.implied_cov, stack.observed)
             if parts is None:
                 return np.inf
             v, logdet = parts
@@ -150,7 +150,7 @@ class NormalFit:
         means = self.layout.has_means
         for stack, pattern, mats in zip(self._stacks, self.layout.patterns,
                                         self._all_matrices(theta)):
-            parts = _embedded_inverse(stack, mats.implied_cov)
+            parts = embedded_inverse(mats.implied_cov, stack.observed)
             if parts is None:
                 return np.inf, grad, info
             v, logdet = parts
@@ -184,10 +184,11 @@ class NormalFit:
         return [pattern.matrices(theta) for pattern in self.layout.patterns]
 
 
-def _embedded_inverse(stack: _GroupStack, sigma: np.ndarray):
+def embedded_inverse(sigma: np.ndarray, observed: np.ndarray):
     """``V_k`` (``Σ_oo⁻¹`` embedded with zeros) and ``log|Σ_oo|`` for every
-    block of a group, or None when some ``Σ_oo`` is not positive definite."""
-    d = stack.observed
+    missing-data pattern ``k`` (``observed``: K × p bool), or None when some
+    ``Σ_oo`` is not positive definite."""
+    d = observed
     mask = d[:, :, None] & d[:, None, :]
     embedded = np.where(mask, sigma, 0.0)
     idx = np.arange(sigma.shape[0])
