@@ -380,7 +380,8 @@ def methods_paragraphs(report: dict) -> list[str]:
         fit += "."
     out.append(fit)
     extra = ["Item distributions were described by skewness and excess kurtosis, and "
-             "multivariate normality by Mardia's (1970) coefficients."]
+             "multivariate normality by Mardia's (1970) coefficients, the kurtosis tested with its "
+             "exact normal-sample mean and variance (Mardia, 1974)."]
     present = {k for m in models for k in m}
     if "reliability" in present:
         extra.append("Reliability of each construct's sum score was estimated by Cronbach's "

@@ -70,6 +70,9 @@ CITATIONS = {
                  "on chance. Psychological Bulletin, 111, 490–504.",
     "mardia": "Mardia, K. V. (1970). Measures of multivariate skewness and kurtosis with "
               "applications. Biometrika, 57, 519–530.",
+    "mardia1974": "Mardia, K. V. (1974). Applications of some measures of multivariate "
+                  "skewness and kurtosis in testing normality and robustness studies. "
+                  "Sankhyā B, 36, 115–128.",
     "mcdonald": "McDonald, R. P. (1999). Test theory: A unified treatment. Erlbaum.",
     "mcneish_wolf": "McNeish, D., & Wolf, M. G. (2023). Dynamic fit index cutoffs for "
                     "confirmatory factor analysis models. Psychological Methods, 28, 61–88.",
@@ -132,13 +135,13 @@ CITATIONS = {
 #: author and year by which a citation is recognised in a sentence the report shows from the dict
 CUES = {
     "arbuckle": ("Arbuckle", 1996), "curran": ("Curran", 1996), "little": ("Little", 1988),
-    "mardia": ("Mardia", 1970), "rhemtulla": ("Rhemtulla", 2012), "rubin": ("Rubin", 1976),
+    "mardia": ("Mardia", 1970), "mardia1974": ("Mardia", 1974), "rhemtulla": ("Rhemtulla", 2012), "rubin": ("Rubin", 1976),
     "satorra_bentler1994": ("Satorra", 1994), "yuan_bentler": ("Yuan", 2000),
 }
 
 #: always used: ML, the fit indices, the cutoffs and the cautions shown in every report
 _ALWAYS = ("joreskog", "bentler1990", "tucker_lewis", "steiger_lind", "browne_cudeck",
-           "hu_bentler", "mcneish_wolf", "akaike", "schwarz", "mardia", "standards")
+           "hu_bentler", "mcneish_wolf", "akaike", "schwarz", "mardia", "mardia1974", "standards")
 
 
 def _model_keys(report: dict) -> set:

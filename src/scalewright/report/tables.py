@@ -642,10 +642,12 @@ def mardia_table(report: dict) -> Table:
              _c(pval(m.get("skewness_p")))),
             (_h("Kurtosis"), _c(dec(m.get("kurtosis"), 2)), _c(f"z = {dec(m.get('kurtosis_z'), 2)}"),
              _c(pval(m.get("kurtosis_p")))))
-    expected = m.get("p")
-    note = (f"Mardia (1970), on the {count(m.get('n'))} rows that answer every item. Under "
-            f"multivariate normality the kurtosis is p(p + 2) = "
-            f"{count(expected * (expected + 2)) if expected else DASH}.")
+    p, n = m.get("p"), m.get("n")
+    expected = p * (p + 2) * (n - 1) / (n + 1) if p and n else None
+    note = (f"Mardia (1970), on the {count(n)} rows that answer every item. Under "
+            f"multivariate normality the kurtosis averages p(p + 2)(n − 1)/(n + 1) = "
+            f"{dec(expected, 2) if expected else DASH}; its z uses this exact mean and the "
+            "exact variance (Mardia, 1974).")
     return Table("mardia", "Multivariate normality (Mardia's coefficients)",
                  ("Coefficient", "Value", "Test", "p"), tuple(rows), (note,))
 
