@@ -26,6 +26,7 @@ general derivative of the covariance structure that this specialises).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -131,13 +132,22 @@ class Pattern:
         alpha[self.latent_means.rows] = theta[self.latent_means.params]
         return Matrices(lam, beta, psi, res, nu, alpha)
 
-    @property
+    @cached_property
     def cell_params(self) -> np.ndarray:
         """Parameter index of every free cell, in the order used by
         :func:`cell_derivatives`."""
-        return np.concatenate([self.loadings.params, self.paths.params,
-                               self.disturbances.params, self.residuals.params,
-                               self.intercepts.params, self.latent_means.params])
+        params = np.concatenate([self.loadings.params, self.paths.params,
+                                 self.disturbances.params, self.residuals.params,
+                                 self.intercepts.params, self.latent_means.params])
+        params.flags.writeable = False     # cached: shared by every caller
+        return params
+
+    @cached_property
+    def cells_are_parameters(self) -> bool:
+        """True when free cell ``k`` is parameter ``k`` (no parameter shared by
+        two cells, none from another group), so cell-wise sums need no mapping."""
+        params = self.cell_params
+        return bool(np.array_equal(params, np.arange(len(params))))
 
 
 def _symmetric_fill(fixed: np.ndarray, cells: Cells, theta: np.ndarray) -> np.ndarray:

@@ -33,6 +33,11 @@ import numpy as np
 from scipy import linalg
 
 
+#: relative size of the rounding error in an objective value: a few hundred
+#: additions of products each off by machine epsilon (common practice, no source)
+_ROUNDING = 64 * np.finfo(float).eps
+
+
 @dataclass(frozen=True)
 class OptimizerRecord:
     """How the optimiser ended."""
@@ -79,11 +84,18 @@ def fisher_scoring(theta0: np.ndarray,
         slope = float(grad @ step)
         if slope <= 0:   # information not positive definite here: fall back to the gradient
             step, slope = grad.copy(), float(grad @ grad)
+        # near the minimum the predicted decrease falls below the rounding error of f,
+        # where Armijo's test is decided by rounding alone: the full step is then taken
+        # unless f rises by more than rounding (the steps are quadratically convergent
+        # there, so halving them only slows the last iterations down)
+        rounding = _ROUNDING * max(1.0, abs(f))
+        below_rounding = slope <= rounding
         t = 1.0
         while True:
             candidate = theta - t * step
             f_new = value(candidate)
-            if np.isfinite(f_new) and f_new <= f - 1e-4 * t * slope:
+            if np.isfinite(f_new) and (f_new <= f - 1e-4 * t * slope
+                                       or below_rounding and f_new <= f + rounding):
                 break
             t *= 0.5
             if t < 1e-10:

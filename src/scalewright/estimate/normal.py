@@ -41,7 +41,9 @@ from functools import cached_property
 import numpy as np
 
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
-from scalewright.layout import Layout, cell_derivatives
+from scipy.linalg import lapack
+
+from scalewright.layout import Layout, Matrices, Pattern, cell_derivatives
 
 LOG_2PI = np.log(2.0 * np.pi)
 
@@ -80,6 +82,11 @@ class _GroupStack:
     covs: np.ndarray          # K × p × p, zero outside the observed items
     means: np.ndarray         # K × p, zero outside the observed items
     counts: np.ndarray        # K, n_k
+
+    @cached_property
+    def complete(self) -> bool:
+        """One block that observes every item (complete data): the 2-D path applies."""
+        return len(self.weights) == 1 and bool(self.observed.all())
 
 
 def _stack(blocks, p: int, n_total: int) -> _GroupStack:
@@ -129,7 +136,8 @@ class NormalFit:
         """``f(θ) = −ℓ(θ)/N`` (``inf`` where an implied covariance is not positive definite)."""
         total = 0.0
         for stack, mats in zip(self._stacks, self._all_matrices(theta)):
-            parts = embedded_inverse(mats.implied_cov, stack.observed)
+            parts = (_complete_inverse(mats.implied_cov) if stack.complete
+                     else embedded_inverse(mats.implied_cov, stack.observed))
             if parts is None:
                 return np.inf
             v, logdet = parts
@@ -150,6 +158,14 @@ class NormalFit:
         means = self.layout.has_means
         for stack, pattern, mats in zip(self._stacks, self.layout.patterns,
                                         self._all_matrices(theta)):
+            if stack.complete:
+                parts = _complete_inverse(mats.implied_cov)
+                if parts is None:
+                    return np.inf, grad, info
+                total += _stack_value(stack, *parts, mats.implied_mean, means)
+                cell_grad, cell_info = _complete_terms(stack, parts[0][0], pattern, mats, means)
+                _add_cells(grad, info, pattern, cell_grad, cell_info)
+                continue
             parts = embedded_inverse(mats.implied_cov, stack.observed)
             if parts is None:
                 return np.inf, grad, info
@@ -175,9 +191,7 @@ class NormalFit:
                 cell_grad -= dmu.T @ (w @ z)
                 cell_info += dmu.T @ np.tensordot(w, v, axes=1) @ dmu
             cell_grad += np.einsum("ic,ic->c", a, e_total @ b)
-            params = pattern.cell_params
-            np.add.at(grad, params, cell_grad)
-            _add_block(info, params, cell_info)
+            _add_cells(grad, info, pattern, cell_grad, cell_info)
         return total, grad, info
 
     def _all_matrices(self, theta):
@@ -202,6 +216,57 @@ def embedded_inverse(sigma: np.ndarray, observed: np.ndarray):
     inv_chol = np.linalg.solve(chol, eye)
     v = inv_chol.transpose(0, 2, 1) @ inv_chol
     return v * mask, logdet
+
+
+def _complete_inverse(sigma: np.ndarray):
+    """``Σ⁻¹`` and ``log|Σ|`` shaped as :func:`embedded_inverse` returns them for
+    one pattern that observes every item, by LAPACK's Cholesky factorisation
+    and inversion (``potrf``, ``potri``) without the batch machinery; None
+    when ``Σ`` is not positive definite."""
+    chol, info = lapack.dpotrf(sigma, lower=True, clean=True)
+    if info != 0:
+        return None
+    inv, info = lapack.dpotri(chol, lower=True)
+    if info != 0:
+        return None
+    inv = np.tril(inv)
+    inv += np.tril(inv, -1).T
+    logdet = 2.0 * np.sum(np.log(np.diagonal(chol)))
+    return inv[None], np.array([logdet])
+
+
+def _complete_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Matrices,
+                    means: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Cell gradient and information of one complete-data block, weighted by
+    its share of the cases (the module docstring's formulas with ``K = 1``, as
+    plain matrix products)."""
+    a, b, dmu = cell_derivatives(pattern, mats)
+    e = v - v @ stack.covs[0] @ v
+    va, vb = v @ a, v @ b
+    r = a.T @ vb
+    cell_info = (a.T @ va) * (b.T @ vb)
+    cell_info += r * r.T
+    cell_grad = np.zeros(a.shape[1])
+    if means:
+        z = v @ (stack.means[0] - mats.implied_mean)
+        e -= np.outer(z, z)
+        cell_grad -= dmu.T @ z
+        cell_info += dmu.T @ v @ dmu
+    cell_grad += np.einsum("ic,ic->c", a, e @ b)
+    weight = stack.weights[0]
+    return weight * cell_grad, weight * cell_info
+
+
+def _add_cells(grad: np.ndarray, info: np.ndarray, pattern: Pattern, cell_grad: np.ndarray,
+               cell_info: np.ndarray) -> None:
+    """Add cell-by-cell gradient and information into the parameter-by-parameter ones."""
+    params = pattern.cell_params
+    if pattern.cells_are_parameters and len(params) == len(grad):
+        grad += cell_grad
+        info += cell_info
+        return
+    np.add.at(grad, params, cell_grad)
+    _add_block(info, params, cell_info)
 
 
 def _stack_value(stack: _GroupStack, v, logdet, mu, means: bool) -> float:
