@@ -240,24 +240,59 @@ def cell_derivatives(pattern: Pattern, mats: Matrices):
     and Hessian of the fitting function. Statistics & Probability Letters 11,
     57–61.
     """
-    p = pattern.p
+    f = cell_factors(pattern, mats)
+    a = f.u[:, f.a_index]
+    b = f.w[:, f.b_index] * f.b_scale
+    if f.mu_index is None:
+        return a, b, None
+    return a, b, f.u[:, f.mu_index] * f.mu_scale
+
+
+@dataclass(frozen=True)
+class CellFactors:
+    """:func:`cell_derivatives` as columns picked from two small matrices:
+    ``a_c = U[:, a_index[c]]``, ``b_c = b_scale[c] · W[:, b_index[c]]`` and
+    ``∂μ/∂c = mu_scale[c] · U[:, mu_index[c]]``, with ``U = [I | H | 0]`` and
+    ``W = [I | G | H | 0]`` (``p × (p + m + 1)`` and ``p × (p + 2m + 1)``).
+
+    Products such as ``AᵀVB`` are then ``(UᵀVW)[a_index][:, b_index]`` scaled:
+    the costly matrix products shrink from one column per free cell to one
+    per item or factor, and the rest is indexing."""
+
+    u: np.ndarray
+    w: np.ndarray
+    a_index: np.ndarray
+    b_index: np.ndarray
+    b_scale: np.ndarray
+    mu_index: np.ndarray | None   # None without a mean structure
+    mu_scale: np.ndarray | None
+
+
+def cell_factors(pattern: Pattern, mats: Matrices) -> CellFactors:
+    """The factors of :func:`cell_derivatives` (see its table) in index form."""
+    p, m = pattern.p, pattern.m
     a_mat = mats.total_effects
     h = mats.loadings @ a_mat
     g = mats.loadings @ (a_mat @ mats.disturbances @ a_mat.T)
-    kappa = a_mat @ mats.latent_means
-    eye = np.eye(p)
+    u = np.hstack([np.eye(p), h, np.zeros((p, 1))])
+    w = np.hstack([np.eye(p), g, h, np.zeros((p, 1))])
+    u_zero, w_zero = p + m, p + 2 * m
 
     lam, pth, psi, res = pattern.loadings, pattern.paths, pattern.disturbances, pattern.residuals
-    psi_half = np.where(psi.rows == psi.cols, 0.5, 1.0)
-    res_half = np.where(res.rows == res.cols, 0.5, 1.0)
     n_nu, n_al = len(pattern.intercepts), len(pattern.latent_means)
-    zeros = np.zeros((p, n_nu + n_al))
-    a = np.hstack([eye[:, lam.rows], h[:, pth.rows], h[:, psi.rows], eye[:, res.rows], zeros])
-    b = np.hstack([g[:, lam.cols], g[:, pth.cols], h[:, psi.cols] * psi_half,
-                   eye[:, res.cols] * res_half, zeros])
+    n_means = n_nu + n_al
+    a_index = np.concatenate([lam.rows, p + pth.rows, p + psi.rows, res.rows,
+                              np.full(n_means, u_zero)])
+    b_index = np.concatenate([p + lam.cols, p + pth.cols, p + m + psi.cols, res.cols,
+                              np.full(n_means, w_zero)])
+    b_scale = np.concatenate([np.ones(len(lam) + len(pth)),
+                              np.where(psi.rows == psi.cols, 0.5, 1.0),
+                              np.where(res.rows == res.cols, 0.5, 1.0), np.zeros(n_means)])
     if not pattern.has_means:
-        return a, b, None
-    d_mu = np.hstack([eye[:, lam.rows] * kappa[lam.cols], h[:, pth.rows] * kappa[pth.cols],
-                      np.zeros((p, len(psi) + len(res))),
-                      eye[:, pattern.intercepts.rows], h[:, pattern.latent_means.rows]])
-    return a, b, d_mu
+        return CellFactors(u, w, a_index, b_index, b_scale, None, None)
+    kappa = a_mat @ mats.latent_means
+    mu_index = np.concatenate([lam.rows, p + pth.rows, np.full(len(psi) + len(res), u_zero),
+                               pattern.intercepts.rows, p + pattern.latent_means.rows])
+    mu_scale = np.concatenate([kappa[lam.cols], kappa[pth.cols], np.zeros(len(psi) + len(res)),
+                               np.ones(n_means)])
+    return CellFactors(u, w, a_index, b_index, b_scale, mu_index, mu_scale)

@@ -43,7 +43,7 @@ import numpy as np
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scipy.linalg import lapack
 
-from scalewright.layout import Layout, Matrices, Pattern, cell_derivatives
+from scalewright.layout import Layout, Matrices, Pattern, cell_derivatives, cell_factors
 
 LOG_2PI = np.log(2.0 * np.pi)
 
@@ -238,21 +238,25 @@ def _complete_inverse(sigma: np.ndarray):
 def _complete_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Matrices,
                     means: bool) -> tuple[np.ndarray, np.ndarray]:
     """Cell gradient and information of one complete-data block, weighted by
-    its share of the cases (the module docstring's formulas with ``K = 1``, as
-    plain matrix products)."""
-    a, b, dmu = cell_derivatives(pattern, mats)
+    its share of the cases: the module docstring's formulas with ``K = 1``,
+    the products taken over the columns of ``U`` and ``W``
+    (:class:`~scalewright.layout.CellFactors`) and then indexed per cell."""
+    f = cell_factors(pattern, mats)
+    ia, ib, sb = f.a_index, f.b_index, f.b_scale
     e = v - v @ stack.covs[0] @ v
-    va, vb = v @ a, v @ b
-    r = a.T @ vb
-    cell_info = (a.T @ va) * (b.T @ vb)
-    cell_info += r * r.T
-    cell_grad = np.zeros(a.shape[1])
+    vu, vw = v @ f.u, v @ f.w
+    # rows then columns: two plain takes run about 5x faster than one np.ix_ gather
+    uvw = (f.u.T @ vw)[ia][:, ib] * sb
+    cell_info = (f.u.T @ vu)[ia][:, ia] * ((f.w.T @ vw)[ib][:, ib] * np.outer(sb, sb))
+    cell_info += uvw * uvw.T
+    cell_grad = np.zeros(len(ia))
     if means:
         z = v @ (stack.means[0] - mats.implied_mean)
         e -= np.outer(z, z)
-        cell_grad -= dmu.T @ z
-        cell_info += dmu.T @ v @ dmu
-    cell_grad += np.einsum("ic,ic->c", a, e @ b)
+        im, sm = f.mu_index, f.mu_scale
+        cell_grad -= (f.u.T @ z)[im] * sm
+        cell_info += (f.u.T @ vu)[im][:, im] * np.outer(sm, sm)
+    cell_grad += (f.u.T @ e @ f.w)[ia, ib] * sb
     weight = stack.weights[0]
     return weight * cell_grad, weight * cell_info
 
