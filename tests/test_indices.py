@@ -77,6 +77,21 @@ def test_rmsea_interval_inverts_the_noncentral_chi_square():
     assert_allclose(rmsea_interval(chi2, df, n), expected, rtol=1e-6)
 
 
+@pytest.mark.parametrize("chi2, df, n", [(5517.2, 4805, 2000), (120000.0, 4805, 1_000_000),
+                                         (3.2, 1, 150), (40.0, 24, 301)])
+def test_rmsea_interval_inverts_the_noncentral_chi_square_for_large_models(chi2, df, n):
+    # Browne & Cudeck (1993) as above, at the sizes of 100-item models and million-row
+    # files: each bound's noncentrality puts ncx2.cdf (scipy) at its tail probability
+    lower, upper = rmsea_interval(chi2, df, n)
+    for bound, tail in ((lower, 0.95), (upper, 0.05)):
+        lam = bound ** 2 * df * (n - 1)
+        if lam > 0:
+            assert_allclose(stats.ncx2.cdf(chi2, df, lam), tail, rtol=1e-9)
+        else:
+            assert stats.chi2.cdf(chi2, df) <= tail
+    assert upper > lower >= 0
+
+
 def test_rmsea_interval_lower_bound_is_zero_when_the_fit_is_close():
     # a statistic below the 95th percentile of the central χ² gives λ_L = 0
     assert rmsea_interval(20.0, 24, 301)[0] == 0.0
