@@ -1,17 +1,13 @@
 """Fit one rival model to the data and evaluate it: the estimation core
-called with the BLAS pinned to one thread, then fit indices, standardized
-solution and warnings.
-
-Why one BLAS thread: on the 2-core machines this tool is built for, a
-multi-threaded BLAS made the small matrix products of the engine many times
-slower and erratic (measured; see ``benchmarks/``).
+called with the BLAS pinned to one thread (why: :mod:`scalewright.blas`),
+then fit indices, standardized solution and warnings.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.normal import Block, complete_data_blocks, fit_normal
 from scalewright.estimate.result import Estimate, invert_information
@@ -26,7 +22,7 @@ NORMAL_ML = "maximum likelihood (normal theory)"
 def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
     """Normal-theory ML for one model on complete data ``x`` (n × p, columns
     in ``spec.items`` order)."""
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         return evaluate_moments(spec, complete_data_blocks(x)[0])
 
 
@@ -34,7 +30,7 @@ def evaluate_moments(spec, block: Block) -> ModelResult:
     """Normal-theory ML for one model from the sample moments of complete
     data (the sufficient statistics): ``block.cov`` (÷n), ``block.mean``,
     ``block.n``, items in ``spec.items`` order."""
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         blocks = (block,)
         layout = build_layout(spec, block.cov)
         theta, record, objective = fit_normal(layout, blocks)

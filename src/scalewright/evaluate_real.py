@@ -18,8 +18,8 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, replace
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, fit_fiml,
                                        missing_patterns, pattern_moments, saturated_em,
@@ -106,7 +106,7 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> M
         raise ValueError("the ordinal route has its own evaluation; evaluate_answers fits "
                          "normal-theory and robust ML only")
     robust = choice.estimator == ROBUST
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         incomplete = np.isnan(x).any(axis=1)
         if choice.missing_handling == FULL_INFORMATION and incomplete.any():
             return _full_information(spec, x, robust, where)
@@ -166,7 +166,7 @@ def missing_data_summary(data: ItemData, items: tuple[str, ...] | None = None) -
     x = np.asarray(data.values)
     if items != tuple(data.items):
         x = x[:, [data.items.index(it) for it in items]]
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         patterns = missing_patterns(x, items, data.file.name)
         out = patterns.to_dict()
         test = None

@@ -59,8 +59,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.estimate.normal import NormalFit
 from scalewright.estimate.result import Estimate
 from scalewright.layout import LOADING, RESIDUAL_COV, Matrices, Pattern, cell_derivatives
@@ -173,7 +173,7 @@ def score_tests(estimate: Estimate) -> ScoreTests:
         raise ValueError("score tests need the data blocks the estimate was fitted to")
     if estimate.acov is None:
         raise ValueError("the information matrix is singular: the model is not identified")
-    with threadpool_limits(limits=1, user_api="blas"):   # as the engine; see evaluate.py
+    with one_blas_thread():
         return _score_tests(estimate)
 
 

@@ -36,8 +36,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.estimate.result import Estimate
 from scalewright.layout import cell_derivatives
 
@@ -126,7 +126,7 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     block = blocks[0]
     standardized = None
     if estimate.acov is not None:
-        with threadpool_limits(limits=1, user_api="blas"):   # as the engine; see evaluate.py
+        with one_blas_thread():
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
     return ResidualCorrelations(items, _correlation(block.cov) - _correlation(sigma),
                                 standardized, float(threshold))

@@ -27,15 +27,14 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 from scipy import linalg, stats
-from threadpoolctl import ThreadpoolController
 
+from scalewright.blas import one_blas_thread
 from scalewright.itemdata import ItemData
 from scalewright.studyfile import format_code
 
 _MAX_FREQUENCIES = 15  # answer counts are kept for items with at most this many distinct values
 _CHUNK_CELLS = 2_000_000  # floats in one block of whitened rows (16 MB)
 _SINGULAR = 1e-10  # smallest eigenvalue of the item correlation matrix treated as zero
-_BLAS = ThreadpoolController()
 
 
 @dataclass(frozen=True)
@@ -209,7 +208,7 @@ def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia |
         return None
     # one BLAS thread: these small and thin products ran 10-100x slower threaded on a
     # busy 2-core machine (see DEVELOPERS.md, "Speed")
-    with _BLAS.limit(limits=1, user_api="blas"):
+    with one_blas_thread():
         dt -= dt.mean(axis=1, keepdims=True)
         s = dt @ dt.T / n
         scale = np.sqrt(np.diag(s))
