@@ -284,7 +284,8 @@ def test_missing_answers_reach_the_refits_and_alpha_uses_complete_rows(hs_study)
         return evaluate_normal(spec, answers[~np.isnan(answers).any(axis=1)])
 
     result = listwise(hs_study.model("three"), x, list(range(x.shape[1])))
-    keys = scale_quality_keys(result, hs_study, x, fit=listwise)
+    keys = scale_quality_keys(result, hs_study, x,
+                              estimates=lambda *args: listwise(*args).estimate)
     assert all(given)                 # every refit saw the rows with missing answers
     frame = hz.data()[hz.CONSTRUCTS["visual"]].copy()
     frame[np.isnan(x[:, :3])] = np.nan

@@ -23,7 +23,7 @@ from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
-from scalewright.evaluate import evaluate_moments, moments_subset
+from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
 from scalewright.evaluate_ordinal import evaluate_ordinal
 from scalewright.evaluate_real import evaluate_answers, missing_data_summary
 from scalewright.invariance import invariance_keys
@@ -197,6 +197,9 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     if np.isnan(x).any():
         def refit(reduced_spec, answers, columns):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name)
+
+        def estimates(reduced_spec, answers, columns):
+            return refit(reduced_spec, answers, columns).estimate
     else:
         # complete data: the refits of the refinement path and of omega-if-dropped
         # need only the ML point estimates and normal-theory fit, whose sufficient
@@ -207,11 +210,17 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
             return evaluate_moments(reduced_spec,
                                     moments_subset(moments, spec.items, reduced_spec.items))
 
+        def estimates(reduced_spec, answers, columns):
+            # omega if dropped needs only the solution: warm-started, no SEs or indices
+            return point_estimate(reduced_spec,
+                                  moments_subset(moments, spec.items, reduced_spec.items),
+                                  start_from=model.estimate)
+
     observed = None
     if model.estimate.method.endswith("fiml"):
         observed = saturated_covariance(x, spec.items, data.file.name)
     model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
-    model.extra.update(scale_quality_keys(model, study, x, fit=refit))
+    model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
 
 

@@ -28,7 +28,7 @@ from scalewright.bifactor import bifactor_coefficients, higher_order_coefficient
 from scalewright.coefficient_types import Note, plain
 from scalewright.errors import StudyError
 from scalewright.estimate.result import Estimate
-from scalewright.evaluate import refit_columns
+from scalewright.evaluate import estimate_columns
 from scalewright.itemreview import without_item
 from scalewright.layout import CONSTRUCT, GENERAL, HIGHER, cell_derivatives
 from scalewright.modelresult import ModelResult
@@ -42,25 +42,28 @@ LEVEL = 0.95
 
 
 def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
-                       fit: Callable = refit_columns) -> dict:
+                       estimates: Callable = estimate_columns) -> dict:
     """The per-model JSON keys of reliability and distinctness.
 
     Parameters
     ----------
     model_result : ModelResult
-        One single-group rival model, fitted to ``x`` by ``fit``.
+        One single-group rival model, fitted to ``x``.
     study : Study
         The study; ``study.model(model_result.name)`` is the model's
         specification, used for the item assignment and for the refits.
     x : ndarray, n × p
         The answers the model was fitted to, after reverse keying, columns in
         ``model_result.estimate.layout.items`` order; missing answers are NaN
-        (allowed when ``fit`` handles them, e.g. full-information ML).
-    fit : callable
-        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits behind
-        ``omega_if_dropped``, given ``x`` without the dropped item's column;
-        pass the function that fitted ``model_result`` so that omega and
-        omega if dropped come from the same method.
+        (allowed when ``estimates`` handles them, e.g. full-information ML).
+    estimates : callable
+        ``estimates(spec, x, columns) -> Estimate`` (see
+        :func:`scalewright.evaluate.estimate_columns`): the point estimates
+        of the refits behind ``omega_if_dropped``, given the columns of ``x``
+        without the dropped item; pass a function of the method that fitted
+        ``model_result`` so that omega and omega if dropped come from the
+        same method.  Only the solution is used, so the refit need not
+        compute standard errors or fit indices.
 
     Returns
     -------
@@ -99,7 +102,7 @@ def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     if x.ndim != 2 or x.shape[1] != layout.p:
         raise ValueError(f"x has shape {x.shape}; model '{layout.name}' has {layout.p} items")
     constructs = [j for j, kind in enumerate(layout.kinds) if kind == CONSTRUCT]
-    out = {"reliability": _reliability(model_result, spec, x, constructs, fit),
+    out = {"reliability": _reliability(model_result, spec, x, constructs, estimates),
            "validity": _validity(model_result, x, constructs)}
     if not model_result.converged:
         return out
@@ -122,7 +125,7 @@ def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
 # --------------------------------------------------------------------------- reliability
 
 def _reliability(model_result: ModelResult, spec, x: np.ndarray, constructs: Sequence[int],
-                 fit: Callable) -> list[dict]:
+                 estimates: Callable) -> list[dict]:
     est = model_result.estimate
     layout = est.layout
     row = {item: i for i, item in enumerate(layout.items)}
@@ -156,7 +159,7 @@ def _reliability(model_result: ModelResult, spec, x: np.ndarray, constructs: Seq
             notes += result.notes
             if not np.isfinite(se[k]):
                 notes.append(_no_interval_note(name))
-            dropped, drop_notes = _omega_if_dropped(spec, name, items, x, layout.items, fit)
+            dropped, drop_notes = _omega_if_dropped(spec, name, items, x, layout.items, estimates)
             notes += drop_notes
             entry.update(omega=result.omega_total, omega_ci95=interval,
                          omega_construct=result.omega_construct,
@@ -279,7 +282,7 @@ def omega_interval(omega: float, se: float, level: float = 0.95) -> list[float] 
 
 
 def _omega_if_dropped(spec, construct: str, items: Sequence[str], x: np.ndarray,
-                      columns: Sequence[str], fit: Callable) -> tuple[list, list[Note]]:
+                      columns: Sequence[str], estimates: Callable) -> tuple[list, list[Note]]:
     """Omega total of the construct after refitting the model without each item."""
     if len(items) < 3:
         return [None] * len(items), [Note(
@@ -292,30 +295,30 @@ def _omega_if_dropped(spec, construct: str, items: Sequence[str], x: np.ndarray,
     for item in items:
         reduced = without_item(spec, item)
         try:
-            refit = fit(reduced, x, [column[i] for i in reduced.items])
+            refit = estimates(reduced, x, [column[i] for i in reduced.items])
         except StudyError as exc:
             values.append(None)
             failed.append((item, f"was refused: {exc}"))
             continue
-        mats = refit.estimate.matrices()
+        mats = refit.matrices()
         negative = np.diag(mats.residuals) < 0
-        if not refit.converged:
+        if not refit.record.converged:
             values.append(None)
             failed.append((item, "did not converge."))
             continue
         if negative.any():
             values.append(None)
             listing = ", ".join(f"'{i}' ({v:.3g})" for i, v in zip(
-                np.asarray(refit.estimate.layout.items)[negative],
+                np.asarray(refit.layout.items)[negative],
                 np.diag(mats.residuals)[negative]))
             failed.append((item, "gives an improper solution with a negative residual variance "
                                  f"({listing}), where omega would count negative error variance "
                                  "as true variance."))
             continue
         kept = list(reduced.constructs[construct])
-        rows = [refit.estimate.layout.items.index(i) for i in kept]
+        rows = [refit.layout.items.index(i) for i in kept]
         values.append(omega_total(mats.loadings, mats.latent_cov, mats.residuals, rows,
-                                  refit.estimate.layout.factors.index(construct),
+                                  refit.layout.factors.index(construct),
                                   item_names=kept, construct=construct).omega_total)
     notes = [Note(code="not_dropped", subject=construct, items=(item,), message=(
         f"Omega if '{item}' is dropped from construct '{construct}' is not given: refitting "

@@ -179,17 +179,20 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
             out.loading[(spec.general, item)] = value
         communality += lam ** 2
     out.residual = np.clip(1.0 - communality, 0.1, 0.95)
-    # construct correlations: average of r_ij / (λ_i λ_j) over the two constructs' items
+    # construct correlations: average of r_ij / (λ_i λ_j) over the two constructs' items,
+    # for all pairs at once as Mᵀ (R ∘ (1/λλᵀ)) M / (n_a n_b), M the item-construct incidence
     names = list(spec.constructs)
+    listed = [(c, row[i], out.loading[(c, i)]) for c in names for i in spec.constructs[c]]
+    index = np.array([r for _, r, _ in listed])
+    lam = np.array([value for _, _, value in listed])
+    incidence = np.zeros((len(listed), len(names)))
+    incidence[np.arange(len(listed)), [names.index(c) for c, _, _ in listed]] = 1.0
+    scaled = corr[np.ix_(index, index)] / np.outer(lam, lam)
+    counts = incidence.sum(axis=0)
+    mean_ratio = incidence.T @ scaled @ incidence / np.outer(counts, counts)
     for x in range(len(names)):
         for y in range(x):
-            a, b = names[x], names[y]
-            ia = [row[i] for i in spec.constructs[a]]
-            ib = [row[i] for i in spec.constructs[b]]
-            la = np.array([out.loading[(a, i)] for i in spec.constructs[a]])
-            lb = np.array([out.loading[(b, i)] for i in spec.constructs[b]])
-            r = np.mean(corr[np.ix_(ia, ib)] / np.outer(la, lb))
-            out.correlation[(a, b)] = float(np.clip(r, -0.9, 0.9))
+            out.correlation[(names[x], names[y])] = float(np.clip(mean_ratio[x, y], -0.9, 0.9))
     _shrink_to_positive_definite(out, names)
     for h, cs in spec.higher_order.items():
         # paths: one-factor loadings of the constructs' correlation matrix

@@ -293,10 +293,12 @@ def _add_block(info: np.ndarray, params: np.ndarray, cell_info: np.ndarray) -> N
     info += incidence.T @ cell_info @ incidence
 
 
-def fit_normal(layout: Layout, blocks: tuple[Block, ...], start: np.ndarray | None = None
-               ) -> tuple[np.ndarray, OptimizerRecord, NormalFit]:
-    """Maximum-likelihood estimates of the layout's parameters."""
+def fit_normal(layout: Layout, blocks: tuple[Block, ...], start: np.ndarray | None = None,
+               grad_tol: float = 1e-9) -> tuple[np.ndarray, OptimizerRecord, NormalFit]:
+    """Maximum-likelihood estimates of the layout's parameters (converged when
+    the largest gradient element of ``f = −ℓ/N`` is below ``grad_tol``)."""
     objective = NormalFit(layout, blocks)
     theta0 = layout.start if start is None else start
-    theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info)
+    theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info,
+                                   grad_tol=grad_tol)
     return theta, record, objective
