@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg import lapack
 
 from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.layout import Layout, Matrices
@@ -69,12 +70,16 @@ def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tup
     """
     d = np.sqrt(np.clip(np.diag(info), 1e-300, None))
     scaled = info / np.outer(d, d)
-    values, vectors = np.linalg.eigh(scaled)
+    values = np.linalg.eigvalsh(scaled)
     ratio = float(values[0] / max(values[-1], 1e-300))
-    involved: tuple[int, ...] = ()
-    if ratio < NEARLY_SINGULAR:
-        null = vectors[:, values < NEARLY_SINGULAR * values[-1]]
-        involved = tuple(int(i) for i in np.nonzero(np.max(np.abs(null), axis=1) > 0.1)[0])
+    if ratio >= NEARLY_SINGULAR:       # well conditioned: no eigenvectors needed
+        inverse, failed = lapack.dpotri(lapack.dpotrf(scaled, lower=True)[0], lower=True)
+        if failed == 0:
+            inverse = np.tril(inverse) + np.tril(inverse, -1).T
+            return inverse / np.outer(d, d) / n, ()
+    values, vectors = np.linalg.eigh(scaled)
+    null = vectors[:, values < NEARLY_SINGULAR * values[-1]]
+    involved = tuple(int(i) for i in np.nonzero(np.max(np.abs(null), axis=1) > 0.1)[0])
     if ratio < SINGULAR:
         return None, involved
     inv_scaled = (vectors / values) @ vectors.T
