@@ -94,18 +94,18 @@ def core_stages(path: Path) -> tuple[dict, str]:
         x = data.values[:, [column[i] for i in spec.items]]
         start = time.perf_counter()
         evaluate_answers(spec, x, choice, data.file.name)
-        out[f"fit {spec.name} ({choice.estimator})"] = time.perf_counter() - start
+        out[f"fit {spec.name} (chosen: {choice.estimator})"] = time.perf_counter() - start
         start = time.perf_counter()
         evaluate_normal(spec, x)
-        out[f"fit {spec.name} (normal)"] = time.perf_counter() - start
+        out[f"fit {spec.name} (normal ML)"] = time.perf_counter() - start
     return out, choice.estimator
 
 
 def core_totals(stages: dict) -> dict:
     """Core check time by the chosen method and by normal-theory ML."""
     common = stages["read"] + stages["screen"] + stages["method choice"]
-    chosen = sum(v for k, v in stages.items() if k.startswith("fit") and "(normal)" not in k)
-    normal = sum(v for k, v in stages.items() if k.endswith("(normal)"))
+    chosen = sum(v for k, v in stages.items() if "(chosen: " in k)
+    normal = sum(v for k, v in stages.items() if k.endswith("(normal ML)"))
     return {"chosen_method": common + chosen, "normal_ml": common + normal}
 
 
