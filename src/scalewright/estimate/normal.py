@@ -35,7 +35,7 @@ missing data as a sum over patterns.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
@@ -117,10 +117,15 @@ class NormalFit:
     ``Σ_oo⁻¹`` on the observed items and the identity elsewhere, and whose
     determinant is ``|Σ_oo|``.  One batched Cholesky factorisation then
     serves every missing-data pattern.
+
+    The inverses of the last ``θ`` whose value was asked for are kept: the
+    line search asks for the value at the point the next iteration then
+    needs the gradient and information of.
     """
 
     layout: Layout
     blocks: tuple[Block, ...]
+    _last: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     @property
     def n(self) -> int:
@@ -135,14 +140,24 @@ class NormalFit:
     def value(self, theta: np.ndarray) -> float:
         """``f(θ) = −ℓ(θ)/N`` (``inf`` where an implied covariance is not positive definite)."""
         total = 0.0
-        for stack, mats in zip(self._stacks, self._all_matrices(theta)):
-            parts = (_complete_inverse(mats.implied_cov) if stack.complete
-                     else embedded_inverse(mats.implied_cov, stack.observed))
+        for stack, mats, parts in zip(self._stacks, self._all_matrices(theta),
+                                      self._inverses(theta)):
             if parts is None:
                 return np.inf
             v, logdet = parts
             total += _stack_value(stack, v, logdet, mats.implied_mean, self.layout.has_means)
         return total
+
+    def _inverses(self, theta: np.ndarray) -> list:
+        """Per group, ``(V, log|Σ|)`` of :func:`embedded_inverse` (None where
+        not positive definite), computed once per ``θ`` (see the class docstring)."""
+        key = theta.tobytes()
+        if self._last.get("key") != key:
+            parts = [_complete_inverse(mats.implied_cov) if stack.complete
+                     else embedded_inverse(mats.implied_cov, stack.observed)
+                     for stack, mats in zip(self._stacks, self._all_matrices(theta))]
+            self._last.update(key=key, parts=parts)
+        return self._last["parts"]
 
     def loglik(self, theta: np.ndarray) -> float:
         """The log-likelihood ℓ(θ), including the constants."""
@@ -156,21 +171,16 @@ class NormalFit:
         info = np.zeros((q, q))
         total = 0.0
         means = self.layout.has_means
-        for stack, pattern, mats in zip(self._stacks, self.layout.patterns,
-                                        self._all_matrices(theta)):
-            if stack.complete:
-                parts = _complete_inverse(mats.implied_cov)
-                if parts is None:
-                    return np.inf, grad, info
-                total += _stack_value(stack, *parts, mats.implied_mean, means)
-                cell_grad, cell_info = _complete_terms(stack, parts[0][0], pattern, mats, means)
-                _add_cells(grad, info, pattern, cell_grad, cell_info)
-                continue
-            parts = embedded_inverse(mats.implied_cov, stack.observed)
+        for stack, pattern, mats, parts in zip(self._stacks, self.layout.patterns,
+                                               self._all_matrices(theta), self._inverses(theta)):
             if parts is None:
                 return np.inf, grad, info
             v, logdet = parts
             total += _stack_value(stack, v, logdet, mats.implied_mean, means)
+            if stack.complete:
+                cell_grad, cell_info = _complete_terms(stack, v[0], pattern, mats, means)
+                _add_cells(grad, info, pattern, cell_grad, cell_info)
+                continue
             a, b, dmu = cell_derivatives(pattern, mats)
             w = stack.weights
             vsv = v @ stack.covs @ v
