@@ -305,3 +305,28 @@ def test_nearly_unidentified_model_is_named_but_keeps_its_standard_errors():
     result = evaluate_normal(make_spec({"a": ("i1", "i2"), "b": ("i3", "i4")}), x)
     text = " ".join(result.warnings)
     assert "nearly singular" in text and ("'a'" in text or "'b'" in text)
+
+
+def test_secant_correction_satisfies_the_secant_equation_and_folds_without_change():
+    # Dennis, Gay & Welsch (1981): after the structured BFGS update, B = I + C maps the
+    # last step s to the gradient change y (the secant equation); folding the rank-one
+    # terms into a matrix must not change C
+    from scalewright.estimate.fisher import _MAX_TERMS, _Correction
+    rng = np.random.default_rng(81)
+    q = 12
+    root = rng.normal(size=(q, q))
+    info = root @ root.T + q * np.eye(q)
+    correction = _Correction()
+    dense = np.zeros((q, q))
+    for _ in range(_MAX_TERMS // 2 + 3):           # enough updates to fold at least once
+        s = rng.normal(size=q)
+        y = (info + np.eye(q)) @ s + 0.1 * rng.normal(size=q)
+        if y @ s <= 0:
+            continue
+        correction = correction.updated(info, s, y)
+        b = info + dense
+        bs = b @ s
+        dense = dense - np.outer(bs, bs) / (s @ bs) + np.outer(y, y) / (y @ s)
+        np.testing.assert_allclose(correction.added_to(info) @ s, y, rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(correction.added_to(info), info + dense, rtol=1e-9, atol=1e-9)
+    assert correction.base is not None

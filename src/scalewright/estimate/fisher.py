@@ -73,11 +73,11 @@ def fisher_scoring(theta0: np.ndarray,
         return theta, OptimizerRecord(False, 0, float("nan"), f,
                                       "the start values give an implied covariance matrix "
                                       "that is not positive definite")
-    correction = np.zeros_like(info)
+    correction = _Correction()
     for iteration in range(1, max_iter + 1):
-        step = _solve(info + correction, grad)
+        step = _solve(correction.added_to(info), grad)
         if step is None:          # the corrected matrix lost definiteness: drop the correction
-            correction = np.zeros_like(info)
+            correction = _Correction()
             step = _solve(info, grad)
         if step is None:
             step = np.linalg.lstsq(info, grad, rcond=None)[0]
@@ -110,9 +110,9 @@ def fisher_scoring(theta0: np.ndarray,
         grad_old = grad
         f, grad, info = value_grad_info(theta)
         if t < 1.0:               # a shortened step: the correction misled, start it afresh
-            correction = np.zeros_like(info)
+            correction = _Correction()
         else:
-            correction = _secant_correction(info, correction, s_vec, grad - grad_old)
+            correction = correction.updated(info, s_vec, grad - grad_old)
         gnorm = float(np.max(np.abs(grad))) if grad.size else 0.0
         small_step = np.max(np.abs(t * step) / (1.0 + np.abs(theta)), initial=0.0) < step_tol
         if gnorm < grad_tol or (small_step and gnorm < 1e-6):
@@ -122,15 +122,53 @@ def fisher_scoring(theta0: np.ndarray,
                                   f"stopped after {max_iter} iterations without converging")
 
 
-def _secant_correction(info, correction, s, y):
-    """Structured BFGS update of the correction to the information (see module docstring)."""
-    ys = float(y @ s)
-    b = info + correction
-    bs = b @ s
-    sbs = float(s @ bs)
-    if ys <= 1e-12 * np.linalg.norm(y) * np.linalg.norm(s) or sbs <= 0:
-        return correction          # no curvature information: keep the old correction
-    return correction - np.outer(bs, bs) / sbs + np.outer(y, y) / ys
+@dataclass(frozen=True)
+class _Correction:
+    """The correction ``C`` of the module docstring as a dense part plus its
+    latest rank-one terms, ``C = base + Σ_j sign_j u_j u_jᵀ``.
+
+    Each structured BFGS update adds two rank-one terms; kept as vectors they
+    cost ``O(q)`` per update instead of several passes over a ``q × q``
+    matrix.  Past :data:`_MAX_TERMS` terms they are folded into ``base``."""
+
+    base: np.ndarray | None = None
+    vectors: tuple[np.ndarray, ...] = ()
+    signs: tuple[float, ...] = ()
+
+    def added_to(self, info: np.ndarray) -> np.ndarray:
+        """``I + C``."""
+        out = info if self.base is None else info + self.base
+        if self.vectors:
+            u = np.column_stack(self.vectors)
+            out = out + (u * np.array(self.signs)) @ u.T
+        return out
+
+    def times(self, s: np.ndarray) -> np.ndarray:
+        """``C s``."""
+        out = np.zeros_like(s) if self.base is None else self.base @ s
+        for sign, u in zip(self.signs, self.vectors):
+            out += sign * (u @ s) * u
+        return out
+
+    def updated(self, info: np.ndarray, s: np.ndarray, y: np.ndarray) -> "_Correction":
+        """Structured BFGS update after step ``s`` with gradient change ``y``
+        (module docstring): ``C − BssᵀB/(sᵀBs) + yyᵀ/(yᵀs)`` with ``B = I + C``."""
+        ys = float(y @ s)
+        bs = info @ s + self.times(s)
+        sbs = float(s @ bs)
+        if ys <= 1e-12 * np.linalg.norm(y) * np.linalg.norm(s) or sbs <= 0:
+            return self            # no curvature information: keep the old correction
+        vectors = self.vectors + (bs / np.sqrt(sbs), y / np.sqrt(ys))
+        signs = self.signs + (-1.0, 1.0)
+        if len(vectors) <= _MAX_TERMS:
+            return _Correction(self.base, vectors, signs)
+        folded = _Correction(None, vectors, signs).added_to(
+            np.zeros((len(s), len(s))) if self.base is None else self.base)
+        return _Correction(folded)
+
+
+#: rank-one terms of the correction kept as vectors before they are folded into a matrix
+_MAX_TERMS = 32
 
 
 def _solve(matrix: np.ndarray, grad: np.ndarray) -> np.ndarray | None:
