@@ -409,7 +409,7 @@ def ordinal_moments(
     raw[jj, ll] = raw[ll, jj] = rho
     influence = _influence(codes, bounds, rho, jj, ll, n_pairs, k_max)
     acov = influence.T @ influence / n**2
-    smoothed_corr, note = _smooth(raw, items)
+    smoothed_corr, note = smooth_correlations(raw, items)
     if note:
         warnings.warn(note, ScalewrightWarning, stacklevel=2)
     return OrdinalMoments(
@@ -729,8 +729,12 @@ def _influence(codes, bounds, rho, jj, ll, n_pairs, k_max):
 # Smoothing
 
 
-def _smooth(raw, items):
-    """Eigenvalue-clipped, unit-diagonal version of ``raw`` and a note, if needed."""
+def smooth_correlations(raw, items, kind="polychoric"):
+    """Eigenvalue-clipped, unit-diagonal version of ``raw`` and a note, if needed.
+
+    ``kind`` names the correlations in the note ("polychoric", or the mixed
+    kinds of :mod:`scalewright.estimate.mixed`).
+    """
     values, vectors = np.linalg.eigh(raw)
     if values[0] >= MIN_EIGENVALUE:
         return raw, ""
@@ -742,7 +746,7 @@ def _smooth(raw, items):
     worst = np.argsort(-change, kind="stable")[:3]
     named = ", ".join(f"'{items[j]}' (up to {change[j]:.3f})" for j in worst)
     note = (
-        f"The polychoric correlation matrix was not positive definite (smallest "
+        f"The {kind} correlation matrix was not positive definite (smallest "
         f"eigenvalue {values[0]:.4g}). It was smoothed: eigenvalues below "
         f"{MIN_EIGENVALUE:g} were raised to {MIN_EIGENVALUE:g} and the matrix was "
         f"rescaled to unit diagonal. The correlations that changed most involve "
