@@ -126,15 +126,56 @@ def test_missing_data_summary_reports_rates_patterns_and_little(tmp_path):
     assert summary["little_mcar"]["df"] == 5      # Σ p_k − p = 6 + 5 − 6
 
 
-def test_declared_continuous_items_in_an_ordinal_study_are_refused_not_overridden(tmp_path):
+def test_declared_continuous_items_in_an_ordinal_study_get_the_mixed_route(tmp_path):
     # three items have three answer categories (ordinal under the Rhemtulla et al.
-    # 2012 rule), three are declared continuous: one analysis cannot honour both
+    # 2012 rule), three are declared continuous: the analysis honours both, with
+    # polyserial correlations between the kinds (Olsson, Drasgow & Dorans 1982)
     rng = np.random.default_rng(9)
     x = normal_answers(rng)
     x[:, :3] = np.digitize(x[:, :3], [-0.5, 0.5])
     estimation = ("items:\n  treat_as:\n    q4: continuous\n    q5: continuous\n"
                   "    q6: continuous\n")
     study, data = write_study(tmp_path, x, estimation)
-    with pytest.raises(StudyError, match=r"'q4', 'q5' and 'q6' are declared continuous.*"
-                                         r"cannot mix the two"):
+    choice = choose_method(study, data)
+    assert (choice.estimator, choice.missing_handling) == ("mixed", "none")
+    assert choice.ordinal_items == ("q1", "q2", "q3")
+    assert choice.continuous_items == ("q4", "q5", "q6")
+    assert any(r.startswith("'q4', 'q5' and 'q6' are continuous") and
+               "polyserial correlations with the ordinal items (Olsson, Drasgow & Dorans 1982)" in r
+               for r in choice.reasons)
+
+
+def test_auto_item_that_cannot_be_ordinal_makes_an_ordinal_study_mixed(tmp_path):
+    # q1-q5 have three categories; q6 keeps its unrounded answers (not whole numbers,
+    # hundreds of values), so under treat_as: auto it is continuous
+    rng = np.random.default_rng(10)
+    x = normal_answers(rng)
+    x[:, :5] = np.digitize(x[:, :5], [-0.5, 0.5]) + 1.0
+    x[rng.random(x.shape) < 0.05] = np.nan
+    study, data = write_study(tmp_path, x)
+    choice = choose_method(study, data)
+    assert (choice.estimator, choice.missing_handling) == ("mixed", "pairwise")
+    assert choice.continuous_items == ("q6",)
+    assert any("each polychoric, polyserial or Pearson correlation uses everyone who answered "
+               "both items (pairwise)" in r for r in choice.reasons)
+    assert choice.to_dict()["continuous_items"] == ["q6"]
+
+
+def test_ordinal_method_with_every_item_continuous_is_refused(tmp_path):
+    study, data = write_study(tmp_path, normal_answers(np.random.default_rng(11)),
+                              "estimation:\n  method: ordinal\n")
+    with pytest.raises(StudyError, match=r"study.yaml, line \d+: 'method: ordinal' asks for "
+                                         r"ordinal analysis, but every item is continuous"):
+        choose_method(study, data)
+
+
+def test_full_information_with_the_mixed_route_raises(tmp_path):
+    rng = np.random.default_rng(12)
+    x = normal_answers(rng)
+    x[:, :5] = np.digitize(x[:, :5], [-0.5, 0.5]) + 1.0
+    x[rng.random(x.shape) < 0.05] = np.nan
+    study, data = write_study(tmp_path, x, "estimation:\n  missing: full-information\n")
+    with pytest.raises(StudyError, match=r"cannot be combined with the ordinal method, which "
+                                         r"estimates the polychoric, polyserial and Pearson "
+                                         r"correlations pair by pair"):
         choose_method(study, data)

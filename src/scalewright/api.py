@@ -10,6 +10,7 @@ the JSON file.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import warnings
 from dataclasses import dataclass, field
@@ -24,11 +25,12 @@ from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
+from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
 from scalewright.evaluate_real import evaluate_answers, missing_data_summary
 from scalewright.invariance import invariance_keys
 from scalewright.itemreview import quality_keys
-from scalewright.methods import LISTWISE, ORDINAL, choose_method
+from scalewright.methods import LISTWISE, MIXED, ORDINAL, ROBUST, choose_method
 from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
@@ -134,7 +136,7 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     extra.update(compare_models(study.models, [m.to_dict() for m in models]))
     if study.groups is not None:
         spec = next((m for m in study.models if m.first), study.models[0])
-        extra.update(invariance_keys(study, data, spec, choice))
+        extra.update(_invariance(study, data, spec, choice))
     dropped = {"no answer to any item" if choice.missing_handling != LISTWISE
                else "incomplete answers": int(data.n_rows - n_used)}
     result = CheckResult(study, data, screening, models, n_used, dropped,
@@ -144,6 +146,19 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     if out is not None:
         write_outputs(result, Path(out))
     return result
+
+
+def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
+    """The invariance keys; a mixed study is checked by robust ML on the items as
+    they are (invariance of its thresholds and correlations is not available), and
+    the setup says so."""
+    if choice.estimator != MIXED:
+        return invariance_keys(study, data, spec, choice)
+    keys = invariance_keys(study, data, spec, dataclasses.replace(choice, estimator=ROBUST))
+    keys["invariance_setup"]["method_note"] = (
+        "The items are treated as continuous here (robust ML): invariance for models that mix "
+        "ordinal and continuous items is not available yet.")
+    return keys
 
 
 def _reanalysis_keys(data: ItemData, choice) -> dict:
@@ -185,8 +200,11 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         x = values                        # no copy of a large file
     else:
         x = values[np.ix_(rows, columns)]
-    if choice.estimator == ORDINAL:
-        model = evaluate_ordinal(spec, x, spec.items, study.scale, study.collapse_sparse)
+    if choice.estimator in (ORDINAL, MIXED):
+        model = (evaluate_ordinal(spec, x, spec.items, study.scale, study.collapse_sparse)
+                 if choice.estimator == ORDINAL else
+                 evaluate_mixed(spec, x, spec.items, choice.continuous_items, study.scale,
+                                study.collapse_sparse))
         complete = x[~np.isnan(x).any(axis=1)]
         model.extra.update(quality_keys(model, study, complete))
         return model

@@ -5,10 +5,18 @@ ordinal and ``estimation: missing:`` auto | full-information | listwise); on
 ``auto`` the data decide, by rules stated in the report:
 
 * **ordinal** when an item is declared ordinal, or (``treat_as: auto``) has
-  four or fewer answer categories: with so few categories, treating answers
-  as continuous biases loadings and fit, while with five or more robust ML
-  performs about as well as categorical methods (Rhemtulla, Brosseau-Liard &
-  Savalei 2012).
+  four or fewer answer categories, all whole numbers: with so few
+  categories, treating answers as continuous biases loadings and fit, while
+  with five or more robust ML performs about as well as categorical methods
+  (Rhemtulla, Brosseau-Liard & Savalei 2012).
+* **mixed** when the study would be ordinal but some items are continuous:
+  declared so, or (``treat_as: auto``) with answers that are not whole
+  numbers or more than ``polychoric.MAX_CATEGORIES`` different values, which
+  cannot be ordinal.  The other items are analysed as ordinal (as on the
+  ordinal route, an ``auto`` item with five to ten whole-number answers joins
+  them) and the continuous items enter through Pearson correlations with
+  each other and polyserial correlations with the ordinal items (Olsson,
+  Drasgow & Dorans 1982), standardized (see :mod:`scalewright.evaluate_mixed`).
 * otherwise **robust** ML when the answers are clearly non-normal: an item
   with |skewness| above 2 or excess kurtosis above 7 (Curran, West & Finch
   1996), or Mardia's (1970) multivariate kurtosis test significant at .05;
@@ -18,10 +26,12 @@ Missing answers: full-information ML whenever any answer is missing, which
 assumes the answers are missing at random (Rubin 1976; Enders & Bandalos
 2001 show it beats listwise deletion then); the ordinal route uses all
 complete pairs (pairwise), because its polychoric correlations are estimated
-pair by pair.
+pair by pair; so does the mixed route.
 
 References
 ----------
+Olsson, U., Drasgow, F. & Dorans, N. J. (1982). The polyserial correlation
+coefficient. Psychometrika 47, 337–347.
 Rhemtulla, M., Brosseau-Liard, P. E. & Savalei, V. (2012). When can
 categorical variables be treated as continuous? Psychological Methods 17,
 354–373.
@@ -43,11 +53,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from scalewright.errors import StudyError
+from scalewright.estimate.polychoric import MAX_CATEGORIES
 from scalewright.itemdata import ItemData
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study
 
-NORMAL, ROBUST, ORDINAL = "normal", "robust", "ordinal"
+NORMAL, ROBUST, ORDINAL, MIXED = "normal", "robust", "ordinal", "mixed"
 FULL_INFORMATION, LISTWISE, PAIRWISE, NONE = "full-information", "listwise", "pairwise", "none"
 
 #: at most this many answer categories makes an item ordinal under treat_as: auto
@@ -62,14 +73,16 @@ MARDIA_ALPHA = 0.05
 class MethodChoice:
     """The method, the handling of missing answers, and why, in sentences for the report."""
 
-    estimator: str                  # normal | robust | ordinal
+    estimator: str                  # normal | robust | ordinal | mixed
     missing_handling: str           # full-information | listwise | pairwise | none
     reasons: tuple[str, ...]
     ordinal_items: tuple[str, ...] = ()
+    continuous_items: tuple[str, ...] = ()   # the mixed route's continuous items
 
     def to_dict(self) -> dict:
         return {"estimator": self.estimator, "missing_handling": self.missing_handling,
-                "reasons": list(self.reasons), "ordinal_items": list(self.ordinal_items)}
+                "reasons": list(self.reasons), "ordinal_items": list(self.ordinal_items),
+                "continuous_items": list(self.continuous_items)}
 
 
 def choose_method(study: Study, data: ItemData, screening: Screening | None = None
@@ -83,27 +96,55 @@ def choose_method(study: Study, data: ItemData, screening: Screening | None = No
     ------
     StudyError
         When the model file asks for full-information ML together with the
-        ordinal method, which estimates its correlations pair by pair.
+        ordinal (or mixed) method, which estimates its correlations pair by
+        pair; when it asks for the ordinal method but no item can be ordinal.
     """
     screening = screen(data) if screening is None else screening
     stats = {s.item: s for s in screening.items}
     used = [it for it in data.items if it in study.items]
     ordinal = tuple(it for it in used if study.items[it].treat_as == ORDINAL or (
-        study.items[it].treat_as == "auto" and stats[it].n_distinct <= ORDINAL_MAX_CATEGORIES))
+        study.items[it].treat_as == "auto" and stats[it].n_distinct <= ORDINAL_MAX_CATEGORIES
+        and _can_be_ordinal(data, it, stats[it])))
     reasons: list[str] = []
     estimator = _estimator(study, screening, stats, used, ordinal, reasons)
-    continuous = [it for it in used if study.items[it].treat_as == "continuous"]
-    if estimator == ORDINAL and continuous:
-        raise StudyError(
-            f"{study.place_of('items', 'treat_as')}: {_list(continuous)} "
-            f"{'is' if len(continuous) == 1 else 'are'} declared continuous, but the study is "
-            f"analysed as ordinal ({_list(ordinal or used)}); one analysis cannot mix the two yet "
-            "(that would need polyserial correlations). Declare every item ordinal or every "
-            "item continuous under items: treat_as:, or set estimation: method: robust to "
-            "treat all items as continuous.")
+    continuous = ()
+    if estimator == ORDINAL:
+        continuous = tuple(it for it in used if study.items[it].treat_as == "continuous" or (
+            study.items[it].treat_as == "auto" and not _can_be_ordinal(data, it, stats[it])))
+    if continuous:
+        estimator = MIXED
+        ordinal = tuple(it for it in used if it not in continuous)
+        if not ordinal:
+            raise StudyError(
+                f"{study.place_of('estimation', 'method')}: 'method: ordinal' asks for ordinal "
+                f"analysis, but every item is continuous ({_list(continuous)}: declared so, or "
+                f"with answers that are not whole numbers or more than {MAX_CATEGORIES} different "
+                "values). Write method: auto or method: robust, or declare the ordinal items "
+                "under items: treat_as:.")
+        reasons.append(_mixed_reason(ordinal, continuous))
     missing = _missing(study, data, estimator, reasons)
     return MethodChoice(estimator, missing, tuple(reasons),
-                        ordinal if estimator == ORDINAL else ())
+                        ordinal if estimator in (ORDINAL, MIXED) else (), continuous)
+
+
+def _can_be_ordinal(data: ItemData, item: str, stats) -> bool:
+    """Whole-number answers with at most ``MAX_CATEGORIES`` different values."""
+    if stats.n_distinct > MAX_CATEGORIES:
+        return False
+    x = data.values[:, data.items.index(item)]
+    x = x[~np.isnan(x)]
+    return bool(np.all(x == np.round(x)))
+
+
+def _mixed_reason(ordinal, continuous) -> str:
+    one = len(continuous) == 1
+    return (f"{_list(continuous)} {'is' if one else 'are'} continuous (declared so, or with "
+            f"answers that are not whole numbers or more than {MAX_CATEGORIES} different values) "
+            f"and {_list(ordinal)} {'is' if len(ordinal) == 1 else 'are'} analysed as ordinal, "
+            "so the analysis mixes the two: ordinal items enter through their polychoric "
+            "correlations, continuous items through Pearson correlations with each other and "
+            "polyserial correlations with the ordinal items (Olsson, Drasgow & Dorans 1982). "
+            "Continuous items are analysed standardized, so their estimates are standardized.")
 
 
 def _estimator(study, screening, stats, used, ordinal, reasons) -> str:
@@ -123,7 +164,7 @@ def _estimator(study, screening, stats, used, ordinal, reasons) -> str:
             f"so, or with {ORDINAL_MAX_CATEGORIES} or fewer answer categories): with so few "
             "categories, treating answers as continuous biases the results, while with five or "
             "more robust maximum likelihood does about as well (Rhemtulla, Brosseau-Liard & "
-            "Savalei 2012). The items are analysed by their polychoric correlations.")
+            "Savalei 2012). These items are analysed by their polychoric correlations.")
         return ORDINAL
     skewed = [it for it in used if abs(_finite(stats[it].skewness)) > SKEW_LIMIT
               or _finite(stats[it].excess_kurtosis) > KURTOSIS_LIMIT]
@@ -160,20 +201,21 @@ def _missing(study, data, estimator, reasons) -> str:
         return NONE
     rate = n_missing / data.values.size
     share = f"{rate:.1%} of the answers are missing"
-    if estimator == ORDINAL:
+    if estimator in (ORDINAL, MIXED):
+        kinds = "polychoric" if estimator == ORDINAL else "polychoric, polyserial and Pearson"
         if asked == FULL_INFORMATION:
             raise StudyError(
                 f"{study.place_of('estimation', 'missing')}: 'missing: full-information' cannot "
-                "be combined with the ordinal method, which estimates the polychoric "
+                f"be combined with the ordinal method, which estimates the {kinds} "
                 "correlations pair by pair from everyone who answered both items. Write "
                 "missing: auto (pairwise) or missing: listwise, or choose method: robust.")
         if asked == LISTWISE:
             reasons.append(f"{share}; as the model file asks, only respondents who answered "
                            "every item are used (listwise deletion).")
             return LISTWISE
-        reasons.append(f"{share}; each polychoric correlation uses everyone who answered both "
-                       "items (pairwise), which assumes the answers are missing completely at "
-                       "random.")
+        reasons.append(f"{share}; each {kinds.replace(' and ', ' or ')} correlation uses "
+                       "everyone who answered both items (pairwise), which assumes the answers "
+                       "are missing completely at random.")
         return PAIRWISE
     if asked == LISTWISE:
         reasons.append(f"{share}; as the model file asks, only respondents who answered every "

@@ -23,6 +23,8 @@ STANDARD_ERRORS = {
     "robust-ml": "sandwich (robust to non-normal answers)",
     "robust-fiml": "sandwich with missing answers (Yuan & Bentler 2000)",
     "dwls": "sandwich from the asymptotic covariance of the polychoric correlations",
+    "dwls-mixed": "sandwich from the asymptotic covariance of the polychoric, polyserial and "
+                  "Pearson correlations",
 }
 
 
