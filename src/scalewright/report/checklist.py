@@ -53,6 +53,7 @@ def checklist_rows(report: dict) -> list[dict]:
     data = report["data"]
     missing = data.get("missing")
     polychoric = [m["name"] for m in models if m.get("polychoric")]
+    mixed = [m["name"] for m in models if m.get("correlations_mixed")]
     reasons = (report.get("method") or {}).get("reasons")
     out = [
         _user(1, "Rationale for the proposed structure", rationale, design,
@@ -98,7 +99,9 @@ def checklist_rows(report: dict) -> list[dict]:
                  data["correlations"]["items"]) <= CORRELATION_TABLE_MAX_ITEMS else "")
              + "); the correlation matrix is also in the JSON file (‘data’ → ‘correlations’)"
              + (f"; the polychoric correlations are in the JSON file (‘polychoric’ under "
-                f"{_names(polychoric)})" if polychoric else "")),
+                f"{_names(polychoric)})" if polychoric else "")
+             + (f"; the polychoric, polyserial and Pearson correlations are in the JSON file "
+                f"(‘correlations_mixed’ under {_names(mixed)})" if mixed else "")),
         _row(13, "Estimation method and why it suits the data", SHOWN,
              ("section ‘The data’ (the method chosen and why); " if reasons else "")
              + f"methods paragraph; {per_model}"),

@@ -52,7 +52,7 @@ def standard_errors(report: dict) -> str:
     ML the observed information, complete-data normal ML the expected
     information.  Empty when the result dict does not name the method."""
     method = report.get("method") or {}
-    if method.get("estimator") in ("robust", "ordinal"):
+    if method.get("estimator") in ("robust", "ordinal", "mixed"):
         return "Standard errors are robust (sandwich) standard errors."
     if method.get("missing_handling") == "full-information":
         return ("Standard errors from the observed information, which stays consistent when "
@@ -333,9 +333,9 @@ def _missing_methods(report: dict) -> str:
                             "are missing at random (Rubin, 1976).",
         "listwise": "Respondents with any missing answer were left out (listwise deletion), "
                     "which assumes that answers are missing completely at random (Rubin, 1976).",
-        "pairwise": "Each polychoric correlation used every respondent who answered both items "
-                    "(pairwise), which assumes that answers are missing completely at random "
-                    "(Rubin, 1976).",
+        "pairwise": f"Each {_correlation_kinds(report, ' or ')} correlation used every "
+                    "respondent who answered both items (pairwise), which assumes that answers "
+                    "are missing completely at random (Rubin, 1976).",
         "none": "No answer was missing.",
     }.get(code, f"Missing answers were handled by {missing_handling(report)}.")
     test = (report["data"].get("missing") or {}).get("little_mcar")
@@ -344,6 +344,24 @@ def _missing_methods(report: dict) -> str:
                  f"χ²({dof(test.get('df'))}) = {dec(test.get('chi_square'), 2)}, "
                  f"{p_equals(test.get('p_value'))}.")
     return text
+
+
+def _correlation_kinds(report: dict, joint: str) -> str:
+    """"polychoric", or the three kinds of a study mixing ordinal and continuous items."""
+    if (report.get("method") or {}).get("estimator") == "mixed":
+        return f"polychoric, polyserial{joint}Pearson"
+    return "polychoric"
+
+
+def _mixed_methods(report: dict) -> str | None:
+    """The methods sentence on the correlations of a study mixing item types."""
+    if not any("correlations_mixed" in m for m in report.get("models", ())):
+        return None
+    return ("Correlations involving a continuous and an ordinal item were polyserial "
+            "correlations (two-step maximum likelihood; Olsson, Drasgow & Dorans, 1982), those "
+            "between ordinal items polychoric correlations (Olsson, 1979) and those between "
+            "continuous items Pearson correlations; the continuous items were analysed "
+            "standardized, so their loadings and residual variances are standardized.")
 
 
 def methods_paragraphs(report: dict) -> list[str]:
@@ -364,6 +382,7 @@ def methods_paragraphs(report: dict) -> list[str]:
            else f"{count(data['n_used'])} of {count(data['n_rows'])}")
         + f" respondents with {software}.",
         f"Estimation was by {_plain_list(estimators)}, after Jöreskog (1969).",
+        *filter(None, [_mixed_methods(report)]),
         _missing_methods(report), *notes,
         "Section ‘The data’ of the report gives the reasons for these choices."])]
     fit = ("Global fit was judged with the chi-square test and with CFI (Bentler, 1990), TLI "

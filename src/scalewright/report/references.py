@@ -83,6 +83,8 @@ CITATIONS = {
                 "McGraw-Hill.",
     "olsson": "Olsson, U. (1979). Maximum likelihood estimation of the polychoric correlation "
               "coefficient. Psychometrika, 44, 443–460.",
+    "olsson_drasgow_dorans": "Olsson, U., Drasgow, F., & Dorans, N. J. (1982). The polyserial "
+                             "correlation coefficient. Psychometrika, 47, 337–347.",
     "raftery": "Raftery, A. E. (1995). Bayesian model selection in social research. "
                "Sociological Methodology, 25, 111–163.",
     "rhemtulla": "Rhemtulla, M., Brosseau-Liard, P. É., & Savalei, V. (2012). When can "
@@ -135,6 +137,7 @@ CITATIONS = {
 #: author and year by which a citation is recognised in a sentence the report shows from the dict
 CUES = {
     "arbuckle": ("Arbuckle", 1996), "curran": ("Curran", 1996), "little": ("Little", 1988),
+    "olsson_drasgow_dorans": ("Drasgow", 1982),
     "mardia": ("Mardia", 1970), "mardia1974": ("Mardia", 1974), "rhemtulla": ("Rhemtulla", 2012), "rubin": ("Rubin", 1976),
     "satorra_bentler1994": ("Satorra", 1994), "yuan_bentler": ("Yuan", 2000),
 }
@@ -185,6 +188,8 @@ def references_used(report: dict) -> list[str]:
         keys |= {"rodriguez", "schmid_leiman"}
     if "thresholds" in present:
         keys |= {"olsson", "muthen", "zumbo", "green_yang"}
+    if "correlations_mixed" in present:
+        keys.add("olsson_drasgow_dorans")
     if any("chi_square_scaled" in m.get("fit", {}) for m in report.get("models", ())):
         keys |= {"satorra_bentler1994", "brosseau"}
     estimators = _estimators(report)
