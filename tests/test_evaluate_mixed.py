@@ -99,6 +99,20 @@ def test_estimates_match_semopy_dwls_on_the_same_mixed_matrix_and_weights(sample
     assert_allclose(fit.test.chi_square, result.fun, rtol=1e-7)
 
 
+def test_sparse_category_of_an_ordinal_item_is_reported_and_merged_on_request():
+    x = _population_sample(np.random.default_rng(3), 300)
+    fives = np.flatnonzero(x[:, 1] == 5)
+    x[fives[3:], 1] = 4                  # three answers of 5 remain for o2
+    notes = evaluate_mixed(SPEC, x, ITEMS, ("c1", "c2", "c3", "c4")).to_dict()["ordinal_notes"]
+    assert [n for n in notes if "sparse" in n][0].startswith(
+        "Item 'o2' has sparse categories: 5 (3 answers).")
+    merged = evaluate_mixed(SPEC, x, ITEMS, ("c1", "c2", "c3", "c4"), collapse_sparse=True)
+    out = merged.to_dict()
+    assert "Item 'o2': categories with fewer than 5 answers were merged into a neighbouring " \
+           "category: 5 (3 answers) into 4." in out["ordinal_notes"]
+    assert len(out["thresholds"]["o2"]) == 3 and len(out["thresholds"]["o1"]) == 4
+
+
 # --------------------------------------------------------------------------
 # Simulation from a known population
 

@@ -25,7 +25,7 @@ from numpy.testing import assert_allclose
 from scipy import optimize
 from scipy.stats import multivariate_normal, norm
 
-from scalewright.errors import StudyError
+from scalewright.errors import ScalewrightWarning, StudyError
 from scalewright.estimate.mixed import mixed_moments
 
 ITEMS = ("c1", "c2", "o1", "o2")
@@ -209,7 +209,7 @@ def test_polyserial_covariance_with_missing_answers_matches_empirical_sandwich(w
     assert_allclose(ours, reference[np.ix_([2, 3, 4, 5], [2, 3, 4, 5])], rtol=1e-5)
 
 
-def test_joint_covariance_of_all_kinds_matches_empirical_sandwich():
+def test_joint_covariance_of_all_kinds_matches_empirical_sandwich(monkeypatch):
     # Complete data, every estimate of the four items as one M-estimator:
     # θ = (μ₁, σ₁, μ₂, σ₂, τ of o1 (3), τ of o2 (4), ρ for the 6 pairs in triu order).
     # Pearson: ψ = z₁z₂ − r; polyserial and polychoric: ψ = ∂log P/∂ρ by differences,
@@ -218,6 +218,8 @@ def test_joint_covariance_of_all_kinds_matches_empirical_sandwich():
     # does (expected information, Olsson 1979); the other rows from the sample, as the
     # polyserial module does (observed information).
     x = _sample(np.random.default_rng(12), 400)
+    # one polyserial pair per block of working arrays, so that the blocks are stitched too
+    monkeypatch.setattr("scalewright.estimate.polyserial._BLOCK_CELLS", 400)
     moments = mixed_moments(x, ITEMS, ORDINAL)
     n = x.shape[0]
     codes = [np.searchsorted(np.unique(x[:, j]), x[:, j]) for j in (2, 3)]
@@ -309,3 +311,22 @@ def test_copied_continuous_item_is_named():
     with pytest.raises(StudyError, match=r"Items 'c1' and 'c2' \(continuous\) are perfectly "
                                          r"correlated \(r = \+1\)"):
         mixed_moments(x, ITEMS, ORDINAL)
+
+
+def test_indefinite_mixed_matrix_is_smoothed_and_named():
+    # Pairwise answers that no joint distribution can produce: c1 and c2 agree in one set
+    # of rows, c1 and o1 agree in another, c2 and o1 disagree in a third, so the three
+    # correlations (about .9, .9 and −.9) form a matrix with a negative eigenvalue.
+    rng = np.random.default_rng(13)
+    x = np.full((300, 3), np.nan)
+    u = rng.standard_normal((3, 100))
+    noise = 0.3 * rng.standard_normal((3, 100))
+    x[:100, 0], x[:100, 1] = u[0], u[0] + noise[0]
+    x[100:200, 0], x[100:200, 2] = u[1], np.digitize(u[1] + noise[1], [-0.5, 0.5]) + 1
+    x[200:, 1], x[200:, 2] = u[2], np.digitize(-u[2] + noise[2], [-0.5, 0.5]) + 1
+    with pytest.warns(ScalewrightWarning, match=r"The mixed \(polychoric, polyserial and "
+                                                r"Pearson\) correlation matrix was not positive "
+                                                r"definite") as caught:
+        moments = mixed_moments(x, ("c1", "c2", "o1"), (False, False, True))
+    assert moments.smoothed and np.linalg.eigvalsh(moments.correlations)[0] > 0
+    assert len([w for w in caught if "not positive definite" in str(w.message)]) == 1

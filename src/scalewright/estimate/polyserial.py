@@ -78,6 +78,9 @@ _RHO_TOL = 1e-10
 # Bisection alone halves the bracket each step, so 100 steps always suffice.
 _MAX_ITER = 100
 _SQRT_2PI = np.sqrt(2.0 * np.pi)
+# Pairs are solved in blocks of about this many (pair, row) cells, which bounds
+# the working memory to some tens of MB per array (common practice, no source).
+_BLOCK_CELLS = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -105,7 +108,9 @@ def continuous_margins(x: np.ndarray, items) -> ContinuousMargins:
     x = np.asarray(x, dtype=float)
     seen = ~np.isnan(x)
     n_obs = seen.sum(axis=0)
-    for j in np.flatnonzero(n_obs < 2):
+    few = np.flatnonzero(n_obs < 2)
+    if few.size:
+        j = few[0]
         raise StudyError(
             f"Item '{items[j]}' (continuous) has {n_obs[j]} answer{'' if n_obs[j] == 1 else 's'}, "
             "too few for a mean and a standard deviation. Check the item's column name and its "
@@ -113,7 +118,9 @@ def continuous_margins(x: np.ndarray, items) -> ContinuousMargins:
     zeroed = np.where(seen, x, 0.0)
     mean = zeroed.sum(axis=0) / n_obs
     sd = np.sqrt(np.where(seen, (x - mean) ** 2, 0.0).sum(axis=0) / n_obs)
-    for j in np.flatnonzero(sd == 0):
+    constant = np.flatnonzero(sd == 0)
+    if constant.size:
+        j = constant[0]
         raise StudyError(
             f"Item '{items[j]}' (continuous) has the same answer in all {n_obs[j]} rows that "
             "answered it, so it carries no information about correlations. Leave it out of "
@@ -171,22 +178,36 @@ def polyserial_pairs(z: np.ndarray, codes: np.ndarray, bounds: np.ndarray, n_obs
     """
     n = z.shape[0]
     k_max = bounds.shape[1] - 1
+    names = [(names_cont[c], names_ord[o]) for c, o in zip(continuous, ordinal)]
+    answered_both = (~np.isnan(z)).T.astype(float) @ (codes < k_max).astype(float)
+    n_both = np.rint(answered_both[continuous, ordinal]).astype(int)
+    _require_rows(n_both, names)
+    # pairs in blocks, so that the (pairs × n) working arrays stay near _BLOCK_CELLS
+    size = max(1, _BLOCK_CELLS // max(n, 1))
+    blocks = [slice(start, start + size) for start in range(0, continuous.size, size)]
+    solved = [_solve_block(z, codes, bounds, n_obs_cont, continuous[b], ordinal[b], names[b])
+              for b in blocks]
+    return PolyserialPairs(continuous, ordinal, np.concatenate([r for r, _ in solved]), n_both,
+                           np.hstack([u for _, u in solved]))
+
+
+def _solve_block(z, codes, bounds, n_obs_cont, continuous, ordinal, names):
+    """Estimates and influence (n, P) of one block of pairs."""
+    n = z.shape[0]
+    k_max = bounds.shape[1] - 1
     zc = z[:, continuous].T
     kc = codes[:, ordinal].T
     used = ~np.isnan(zc) & (kc < k_max)
-    n_both = used.sum(axis=1)
-    names = [(names_cont[c], names_ord[o]) for c, o in zip(continuous, ordinal)]
-    _require_rows(n_both, names)
-    _require_variation(zc, kc, used, n_both, names)
+    _require_variation(zc, kc, used, used.sum(axis=1), names)
     zs = np.where(used, zc, 0.0)
     safe_codes = np.where(used, kc, 0)
     lower = np.take_along_axis(bounds[ordinal], safe_codes, axis=1)
     upper = np.take_along_axis(bounds[ordinal], safe_codes + 1, axis=1)
     rho = _solve_pairs(zs, lower, upper, used, names)
     _require_inside(rho, zs, lower, upper, used, names)
-    influence = _influence(rho, zs, lower, upper, used, safe_codes, kc, bounds, ordinal,
-                           z[:, continuous].T, n_obs_cont[continuous], n)
-    return PolyserialPairs(continuous, ordinal, rho, n_both, influence)
+    influence = _influence(rho, zs, lower, upper, used, safe_codes, kc, bounds, ordinal, zc,
+                           n_obs_cont[continuous], n)
+    return rho, influence
 
 
 # --------------------------------------------------------------------------
@@ -257,16 +278,20 @@ def _bound(tau, r, s, z):
     """
     finite = np.isfinite(tau)
     t = np.where(finite, tau, 0.0)
-    a_finite = np.where(finite, (t - r * z) / s, 0.0)
-    density = np.where(finite, np.exp(-a_finite ** 2 / 2.0) / _SQRT_2PI, 0.0)
-    slope = np.where(finite, (r * t - z) / s ** 3, 0.0)
-    curve = np.where(finite, t / s ** 3 + 3.0 * r * (r * t - z) / s ** 5, 0.0)
+    a_finite = (t - r * z) / s
+    a_finite *= finite
+    density = np.exp(-0.5 * a_finite * a_finite) * (finite / _SQRT_2PI)
+    lean = r * t - z
+    slope = lean * (finite / s ** 3)
+    curve = (t + (3.0 * r / (s * s)) * lean) * (finite / s ** 3)
     return np.where(finite, a_finite, tau), a_finite, density, slope, curve
 
 
 def _probability(a_lo, a_up):
-    """Φ(a_up) − Φ(a_lo), from the upper tail when both bounds are above 0 (no cancellation)."""
-    return np.where(a_lo > 0, ndtr(-a_lo) - ndtr(-a_up), ndtr(a_up) - ndtr(a_lo))
+    """Φ(a_up) − Φ(a_lo), from the upper tail when both bounds are above 0 (no cancellation):
+    with ``g = −1`` there and ``+1`` elsewhere it is ``g (Φ(g a_up) − Φ(g a_lo))``."""
+    sign = np.where(a_lo > 0, -1.0, 1.0)
+    return sign * (ndtr(sign * a_up) - ndtr(sign * a_lo))
 
 
 def _rho_terms(rho, z, lower, upper):
