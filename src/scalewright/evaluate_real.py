@@ -31,7 +31,7 @@ from scalewright.evaluate import NORMAL_ML, evaluate_normal
 from scalewright.indices import FitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
-from scalewright.methods import FULL_INFORMATION, ORDINAL, ROBUST, MethodChoice
+from scalewright.methods import FULL_INFORMATION, MIXED, ORDINAL, ROBUST, MethodChoice
 from scalewright.modelresult import ModelResult
 from scalewright.specify import build_layout
 from scalewright.standardize import standardize
@@ -85,8 +85,8 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
     data : ItemData
         The answers (NaN = missing).
     choice : MethodChoice
-        From :func:`scalewright.methods.choose_method`; the ordinal route
-        is not handled here.
+        From :func:`scalewright.methods.choose_method`; the ordinal and
+        mixed routes are not handled here.
 
     Returns
     -------
@@ -102,9 +102,9 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> M
     """:func:`evaluate_with` on the answer matrix of the model's items
     (columns in ``spec.items`` order, NaN = missing); ``where`` names the
     data file in messages."""
-    if choice.estimator == ORDINAL:
-        raise ValueError("the ordinal route has its own evaluation; evaluate_answers fits "
-                         "normal-theory and robust ML only")
+    if choice.estimator in (ORDINAL, MIXED):
+        raise ValueError("the ordinal and mixed routes have their own evaluation; "
+                         "evaluate_answers fits normal-theory and robust ML only")
     robust = choice.estimator == ROBUST
     with one_blas_thread():
         incomplete = np.isnan(x).any(axis=1)

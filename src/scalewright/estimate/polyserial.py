@@ -133,8 +133,7 @@ class PolyserialPairs:
     """Polyserial correlations of every (continuous, ordinal) item pair.
 
     ``continuous`` and ``ordinal`` index the columns of the ``z`` and
-    ``codes`` arrays the pairs were estimated from; ``n_both`` counts the
-    rows answering both items; ``influence`` (n × pairs) holds the casewise
+    ``codes`` arrays the pairs were estimated from; ``influence`` (n × pairs) holds the casewise
     influence of the module docstring, so that
     ``influence.T @ influence / n²`` is the sampling covariance of the
     estimates including the first-step uncertainty.
@@ -143,7 +142,6 @@ class PolyserialPairs:
     continuous: np.ndarray
     ordinal: np.ndarray
     rho: np.ndarray
-    n_both: np.ndarray
     influence: np.ndarray
 
 
@@ -187,7 +185,7 @@ def polyserial_pairs(z: np.ndarray, codes: np.ndarray, bounds: np.ndarray, n_obs
     blocks = [slice(start, start + size) for start in range(0, continuous.size, size)]
     solved = [_solve_block(z, codes, bounds, n_obs_cont, continuous[b], ordinal[b], names[b])
               for b in blocks]
-    return PolyserialPairs(continuous, ordinal, np.concatenate([r for r, _ in solved]), n_both,
+    return PolyserialPairs(continuous, ordinal, np.concatenate([r for r, _ in solved]),
                            np.hstack([u for _, u in solved]))
 
 
