@@ -51,8 +51,8 @@ from collections.abc import Sequence
 from types import SimpleNamespace
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
@@ -119,7 +119,7 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
     answered = ~np.isnan(x).all(axis=1)
     x = x[answered]
     ordinal = [it not in continuous for it in spec.items]
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         moments = mixed_moments(x, tuple(spec.items), ordinal,
                                 scales=[tuple(scale) if scale else None] * len(ordinal),
                                 collapse_sparse=collapse_sparse, min_count=min_count)
