@@ -236,8 +236,11 @@ def fit_dwls(layout: Layout, moments: OrdinalMoments, correlations: np.ndarray |
         One group, no mean structure, items in ``moments.items`` order,
         every item with a free residual variance (it is replaced by
         ``1 − communality``).
-    moments : OrdinalMoments
-        Thresholds, correlations and their sampling covariance.
+    moments : OrdinalMoments or MixedMoments
+        Thresholds, correlations and their sampling covariance (only
+        ``items``, ``raw_correlations``, ``acov_corr`` and ``n_rows`` are
+        read, so the mixed matrix of :mod:`scalewright.estimate.mixed` fits
+        the same way).
     correlations : ndarray, optional
         The ``p × p`` matrix to fit; ``moments.raw_correlations`` (the
         pairwise estimates, to which the sampling covariance belongs) by
