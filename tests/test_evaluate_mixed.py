@@ -321,3 +321,11 @@ def test_invariance_of_a_mixed_study_says_how_the_items_were_treated(checked):
         "The items are treated as continuous here (robust ML): invariance for models that mix "
         "ordinal and continuous items is not available yet.")
     assert report["invariance"]
+
+
+def test_report_says_in_the_models_section_why_a_mixed_construct_has_no_reliability(checked):
+    from scalewright.report.document import build_document
+    report, _ = checked
+    section = next(s for s in build_document(report).sections if s.id == "model-1")
+    texts = [b["text"] for b in section.blocks if b["type"] == "p"]
+    assert report["models"][0]["reliability_notes"][0] in texts

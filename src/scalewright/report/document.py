@@ -200,6 +200,8 @@ def _model(doc: Document, m: dict, index: int) -> None:
                        "Residual correlations (observed minus implied), lower triangle. Darker "
                        "is larger; hatched cells are negative; outlined cells reach the flag "
                        "threshold.", "heat")
+    for note in m.get("reliability_notes") or ():
+        s.p(note)
     notes = m.get("modification_hint_notes") or {}
     if "modification_hints" in m and not m["modification_hints"]:
         s.p(notes.get("not_computed") or
