@@ -244,3 +244,23 @@ def test_fiml_recovers_population_loadings_under_mcar():
     # the Yuan–Bentler scaled statistic is near df = 9 under normal MCAR data
     # (Monte Carlo error of the mean ≈ 0.3; allow 1)
     assert abs(np.mean(scaled) - 9) < 1.0
+
+
+def test_warm_started_point_estimate_of_a_smaller_model_equals_its_full_fit(hs_holes):
+    # omega if dropped refits the model without one item from the full model's solution
+    # (evaluate_real.fiml_point_estimate); its estimates must be the FIML estimates of
+    # the smaller model fitted from scratch (the full FIML fit is checked against semopy
+    # above), to the point estimate's gradient tolerance: 1e-5 relative
+    from scalewright.evaluate_real import fiml_point_estimate
+    from scalewright.estimate.result import Estimate
+    x, fitted, *_ = hs_holes
+    constructs = {k: tuple(i for i in v if i != "x5") for k, v in holzinger.CONSTRUCTS.items()}
+    smaller = spec_of(constructs)
+    keep = [holzinger.ITEMS.index(i) for i in smaller.items]
+    scratch, _, _ = fiml(smaller, x[:, keep])
+    parent = Estimate(fitted.layout, fitted.theta, None, fitted.record, fitted.n, fitted.loglik,
+                      "fiml")
+    start_cov = np.cov(x[:, keep][~np.isnan(x[:, keep]).any(axis=1)], rowvar=False)
+    warm = fiml_point_estimate(smaller, x[:, keep], "data.csv", parent, start_cov)
+    assert warm.record.converged and warm.layout.params == scratch.layout.params
+    np.testing.assert_allclose(warm.theta, scratch.theta, rtol=1e-5, atol=1e-7)

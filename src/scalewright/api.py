@@ -27,7 +27,7 @@ from scalewright.estimate.normal import complete_data_blocks
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
 from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
-from scalewright.evaluate_real import evaluate_answers, missing_data_summary
+from scalewright.evaluate_real import evaluate_answers, fiml_point_estimate, missing_data_summary
 from scalewright.invariance import invariance_keys
 from scalewright.itemreview import quality_keys
 from scalewright.methods import LISTWISE, MIXED, ORDINAL, ROBUST, choose_method
@@ -212,12 +212,19 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     complete = x[~incomplete] if incomplete.any() else x
     _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
     model = evaluate_answers(spec, x, choice, data.file.name)
+    observed = None
+    if model.estimate.method.endswith("fiml"):
+        observed = saturated_covariance(x, spec.items, data.file.name)
     if np.isnan(x).any():
         def refit(reduced_spec, answers, columns):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name)
 
         def estimates(reduced_spec, answers, columns):
-            return refit(reduced_spec, answers, columns).estimate
+            # omega if dropped needs only the solution: warm-started, no SEs or indices
+            if observed is None:                 # listwise: complete rows only
+                return refit(reduced_spec, answers, columns).estimate
+            return fiml_point_estimate(reduced_spec, answers[:, columns], data.file.name,
+                                       model.estimate, observed[np.ix_(columns, columns)])
     else:
         # complete data: the refits of the refinement path and of omega-if-dropped
         # need only the ML point estimates and normal-theory fit, whose sufficient
@@ -234,9 +241,6 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    observed = None
-    if model.estimate.method.endswith("fiml"):
-        observed = saturated_covariance(x, spec.items, data.file.name)
     model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
     model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model

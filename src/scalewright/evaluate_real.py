@@ -22,12 +22,13 @@ import numpy as np
 from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, fit_fiml,
-                                       missing_patterns, pattern_moments, saturated_em,
-                                       yuan_bentler)
+                                       missing_patterns, pattern_blocks, pattern_moments,
+                                       saturated_em, with_intercepts, yuan_bentler)
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.evaluate import NORMAL_ML, evaluate_normal
+from scalewright.estimate.normal import fit_normal
+from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, carried_start, evaluate_normal
 from scalewright.indices import FitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
@@ -154,6 +155,26 @@ def _full_information(spec, x: np.ndarray, robust: bool, where: str) -> ModelRes
     return ModelResult(spec.name, estimate, fit, std,
                        LABELS[("robust" if robust else "normal", True)],
                        tuple(model_warnings(estimate, std)), {"intercepts": intercepts})
+
+
+def fiml_point_estimate(spec, x: np.ndarray, where: str, start_from: Estimate,
+                        start_cov: np.ndarray) -> Estimate:
+    """FIML point estimates of ``spec`` on ``x`` (NaN = missing), and nothing
+    else: no information matrix, saturated or baseline model, or fit
+    indices.  As :func:`scalewright.evaluate.point_estimate` for missing
+    answers: ``start_from``, the estimate of a larger model fitted to the same
+    rows, gives the start values of the shared parameters (intercepts
+    included), ``start_cov`` (items in ``spec.items`` order) those of the rest;
+    a warm start that fails is retried from the usual start values."""
+    with one_blas_thread():
+        blocks = pattern_blocks(pattern_moments(x, missing_patterns(x, tuple(spec.items), where)))
+        layout = with_intercepts(build_layout(spec, start_cov), np.nanmean(x, axis=0))
+        theta, record, objective = fit_normal(layout, blocks, carried_start(start_from, layout),
+                                              grad_tol=POINT_GRAD_TOL)
+        if not record.converged:
+            theta, record, objective = fit_normal(layout, blocks, grad_tol=POINT_GRAD_TOL)
+        return Estimate(layout, theta, None, record, objective.n, objective.loglik(theta),
+                        "fiml", (), blocks)
 
 
 def missing_data_summary(data: ItemData, items: tuple[str, ...] | None = None) -> dict:
