@@ -211,7 +211,8 @@ def _model(doc: Document, m: dict, index: int) -> None:
 
 #: how the invariance sequence was run, in the order shown (keys of ``invariance_setup``)
 SETUP_LABELS = (
-    ("estimator", "Estimation"), ("missing_handling", "Missing answers"),
+    ("estimator", "Estimation"), ("ordinal_identification", "Identification"),
+    ("missing_handling", "Missing answers"),
     ("standard_errors", "Standard errors"), ("difference_test", "Difference test"),
     ("baseline_model", "Baseline model"), ("srmr", "SRMR"), ("rmsea", "RMSEA"),
     ("search", "Search for partial invariance"),
