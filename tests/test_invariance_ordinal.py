@@ -26,17 +26,20 @@ Outside references:
 from __future__ import annotations
 
 import json
+from pathlib import Path
 from collections import Counter
 
 import numpy as np
 import pandas as pd
 import pytest
 from scipy.linalg import block_diag
-from conftest import make_spec
+from conftest import HS_CONSTRUCTS, HS_ITEMS, make_spec
 
 from scalewright import api
 from scalewright.dwls_difference import adjusted_difference
 from scalewright.errors import StudyError
+from scalewright.invariance import invariance_keys
+from scalewright.itemdata import read_items
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.invariance_ordinal import (MIN_EQUAL_THRESHOLDS, ordinal_invariance,
                                             releasable_constraints, score_tests)
@@ -51,6 +54,9 @@ from scalewright.report.narrative import methods_paragraphs
 from scalewright.report.references import references_used
 from scalewright.report.render import render_html
 from scalewright.specify import build_layout
+from scalewright.studyfile import load_study
+
+ROOT = Path(__file__).resolve().parents[1]
 
 ITEMS = tuple(f"y{i}" for i in range(1, 9))
 SPEC = make_spec({"f1": ITEMS[:4], "f2": ITEMS[4:]})
@@ -153,6 +159,18 @@ def test_jacobian_matches_central_differences(planted_data):
                                for e in np.eye(layout.n_params)])
     # central differences: error O(h²) plus rounding O(1e-16/h)
     np.testing.assert_allclose(jac, numeric, atol=1e-7)
+
+
+def test_marker_scaling_gives_the_same_fit_at_every_step(planted_data):
+    marker = make_spec(SPEC.constructs, identification="marker")
+    for step in STEPS:
+        ours = fit_ordinal_groups(build_ordinal_layout(SPEC, planted_data, step), planted_data)
+        other = fit_ordinal_groups(build_ordinal_layout(marker, planted_data, step),
+                                   planted_data)
+        # algebra: scaling a construct by a marker loading instead of its variance is a
+        # reparameterization (Wu & Estabrook 2016 allow either), so the minimum is the same
+        np.testing.assert_allclose(other.test.chi_square, ours.test.chi_square, rtol=1e-7)
+        assert other.test.df == ours.test.df
 
 
 def test_degrees_of_freedom_by_counting(planted_data):
@@ -324,7 +342,8 @@ def null_runs():
         diff = adjusted_difference(constrained, configural, data)
         tests = score_tests(SPEC, data, constrained, THRESHOLDS, frozenset(),
                             [Param(THRESHOLD, "y1", "1"), Param(THRESHOLD, "y6", "3")])
-        out.append((diff.p_value, diff.test.p_value_adjusted, [t.chi_square for t in tests]))
+        out.append((diff.p_value, diff.to_dict()["p_value_adjusted"],
+                    [t.chi_square for t in tests]))
     return out
 
 
@@ -439,3 +458,38 @@ def test_the_report_shows_the_ordinal_steps_and_cites_the_identification(checked
     references = references_used(checked)
     assert any(r.startswith("Wu, H., & Estabrook, R. (2016)") for r in references)
     assert any(r.startswith("Satorra, A. (2000)") for r in references)
+
+
+# --------------------------------------------------------------------------- known items
+
+def test_holzinger_quintiles_release_the_intercepts_of_x3_and_x7(hs_x, hs_data):
+    from test_dwls import _quantile_categories
+
+    x = _quantile_categories(hs_x, 5)
+    index = np.where(hs_data["school"] == "Pasteur", 0, 1)
+    data = ordinal_group_moments(("Pasteur", "Grant-White"), x, index, HS_ITEMS)
+    result = ordinal_invariance(make_spec(HS_CONSTRUCTS), data)
+    released = [(r.step, r.test.param) for r in result.released]
+    # the commonly reported partial scalar model of these data frees the intercepts of x3
+    # and x7 [from memory]; the continuous route finds the same two (test_invariance.py)
+    assert released == [(INTERCEPTS, Param("intercept", "x3", "x3")),
+                        (INTERCEPTS, Param("intercept", "x7", "x7"))]
+
+
+def test_demo_planted_item_is_found_when_the_items_are_treated_as_ordinal(tmp_path):
+    from scalewright.demo import population
+
+    text = (ROOT / "models" / "teacher-climate.yaml").read_text(encoding="utf-8")
+    (tmp_path / "tc.yaml").write_text(text.replace("  method: auto", "  method: ordinal"),
+                                      encoding="utf-8")
+    (tmp_path / "teacher-climate.csv").write_bytes(
+        (ROOT / "models" / "teacher-climate.csv").read_bytes())
+    study = load_study(tmp_path / "tc.yaml")
+    out = invariance_keys(study, read_items(study), next(m for m in study.models if m.first))
+    released = [(r["step"], r["item"]) for r in out["released"]]
+    # src/scalewright/demo/population.py shifts the latent response of NONINVARIANT_ITEM
+    # upwards in one phase: under Wu & Estabrook's (2016) identification that is its
+    # latent-response intercept
+    assert released == [(INTERCEPTS, population.NONINVARIANT_ITEM)]
+    entry = out["released"][0]
+    assert entry["estimates"]["secondary"] > entry["estimates"]["primary"] == 0.0

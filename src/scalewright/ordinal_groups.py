@@ -56,7 +56,7 @@ class OrdinalGroupMoments:
     labels: tuple[str, ...]
     ns: tuple[int, ...]
     moments: tuple[OrdinalMoments, ...]
-    notes: tuple[str, ...]          # what was merged, sparse categories left as they are
+    notes: tuple[str, ...]          # merges, sparse categories left as they are, smoothing
 
     @property
     def items(self) -> tuple[str, ...]:
@@ -132,6 +132,9 @@ def ordinal_group_moments(labels, values: np.ndarray, index: np.ndarray, items,
         except StudyError as err:
             raise StudyError(f"{place}: in group '{label}' (grouping column '{column}'): "
                              f"{err}") from None
+    notes += [f"In group '{label}': {m.smoothing_note} The model was fitted to the pairwise "
+              "estimates as they are; the smoothed matrix gave only start values."
+              for label, m in zip(labels, moments) if m.smoothed]
     ns = tuple(int(n) for n in np.bincount(index, minlength=len(labels)))
     return OrdinalGroupMoments(labels, ns, tuple(moments), tuple(notes))
 

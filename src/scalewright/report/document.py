@@ -245,7 +245,8 @@ def _invariance(doc: Document) -> None:
     if decisions:
         s.h3("The decision at each step")
         s.blocks.append({"type": "dl", "items": [
-            {"term": str(step.get("step", "")), "text": text, "missing": False}
+            {"term": str(step.get("label") or step.get("step", "")), "text": text,
+             "missing": False}
             for step, text in decisions if text]})
     released = r.get("released") or []
     if released:
