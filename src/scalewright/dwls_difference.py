@@ -48,8 +48,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.estimate.dwls import DwlsTest
 from scalewright.multigroup import carry_start
 from scalewright.multigroup_ordinal import (OrdinalGroupFit, minimise, sample_statistics,
@@ -109,7 +109,7 @@ def adjusted_difference(restricted: OrdinalGroupFit, general: OrdinalGroupFit,
         return DwlsDifference(DwlsTest(t_d, df, float("nan"), float("nan")), 0.0)
     s, w, gammas = sample_statistics(data)
     target = s - restricted.residuals          # model 0's implied moments
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         theta1, _ = minimise(general.layout, target, w, data.n,
                              carry_start(restricted, general.layout))
         m1, jac1 = stacked_jacobian(general.layout, theta1)

@@ -75,9 +75,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import stats
-from threadpoolctl import threadpool_limits
 
 from scalewright import multigroup
+from scalewright.blas import one_blas_thread
 from scalewright.dwls_difference import LIMITATION, METHOD, DwlsDifference, adjusted_difference
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
@@ -208,7 +208,7 @@ def score_tests(spec, data: OrdinalGroupMoments, constrained: OrdinalGroupFit, s
                      for c in candidates], dtype=np.intp)          # K × (G − 1)
     _, w, gammas = sample_statistics(data)
     e, j0, h0_inv = constrained.residuals, constrained.jacobian, constrained.h_inv
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         _, jac = stacked_jacobian(full, carry_start(constrained, full))
         wd = w[:, None] * jac[:, rows.ravel()]
         h = wd.T @ e

@@ -100,8 +100,8 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.errors import StudyError
 from scalewright.estimate.dwls import DwlsTest
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
@@ -456,7 +456,7 @@ def fit_ordinal_groups(layout: OrdinalLayout, data: OrdinalGroupMoments,
     thread), with sandwich standard errors, the corrected tests and the fit
     indices of the module docstring."""
     s, w, gammas = sample_statistics(data)
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         theta, record = minimise(layout, s, w, data.n, layout.start if start is None else start)
         m, jac = stacked_jacobian(layout, theta)
         e = s - m
