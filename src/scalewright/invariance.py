@@ -624,17 +624,17 @@ def invariance_keys(study, data, spec, method=None) -> dict:
     ``method`` is the study's :class:`~scalewright.methods.MethodChoice`
     (chosen here when not given).  Robust ML gives scaled statistics and
     scaled difference tests; missing answers are handled by full-information
-    ML unless the method says listwise.  The ordinal method's thresholds are
-    not part of the invariance check yet: its items are then analysed as
-    continuous with robust ML, and the setup says so.
+    ML unless the method says listwise.  The ordinal method goes to the
+    thresholds-based sequence of :mod:`scalewright.invariance_ordinal`.
     """
     method = choose_method(study, data) if method is None else method
+    if method.estimator == ORDINAL:
+        # imported here: the ordinal sequence builds on this module's decisions
+        from scalewright.invariance_ordinal import ordinal_invariance_keys
+        return ordinal_invariance_keys(study, data, spec, method)
     grouped = split_groups(study, data, spec.items)
     full_information = grouped.has_missing and method.missing_handling != LISTWISE
-    robust = method.estimator in (ROBUST, ORDINAL)
-    note = ("The items are treated as continuous here (robust ML): invariance of thresholds "
-            "for ordinal items is not available yet." if method.estimator == ORDINAL else "")
     wording = {name: item.wording for name, item in study.items.items()}
     return measurement_invariance(spec, grouped.moments(full_information),
                                   dropped=grouped.dropped(full_information),
-                                  wording=wording, robust=robust, method_note=note).to_dict()
+                                  wording=wording, robust=method.estimator == ROBUST).to_dict()

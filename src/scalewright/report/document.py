@@ -213,7 +213,8 @@ def _model(doc: Document, m: dict, index: int) -> None:
 
 #: how the invariance sequence was run, in the order shown (keys of ``invariance_setup``)
 SETUP_LABELS = (
-    ("estimator", "Estimation"), ("missing_handling", "Missing answers"),
+    ("estimator", "Estimation"), ("ordinal_identification", "Identification"),
+    ("missing_handling", "Missing answers"),
     ("standard_errors", "Standard errors"), ("difference_test", "Difference test"),
     ("baseline_model", "Baseline model"), ("srmr", "SRMR"), ("rmsea", "RMSEA"),
     ("search", "Search for partial invariance"),
@@ -246,7 +247,8 @@ def _invariance(doc: Document) -> None:
     if decisions:
         s.h3("The decision at each step")
         s.blocks.append({"type": "dl", "items": [
-            {"term": str(step.get("step", "")), "text": text, "missing": False}
+            {"term": str(step.get("label") or step.get("step", "")), "text": text,
+             "missing": False}
             for step, text in decisions if text]})
     released = r.get("released") or []
     if released:

@@ -439,11 +439,18 @@ def _invariance_methods(report: dict) -> str | None:
             + f" was examined in the steps {_plain_list([str(s.get('step')) for s in steps])}, "
             "each judged by the change in CFI, RMSEA and SRMR against the criteria of Cheung "
             "and Rensvold (2002) and Chen (2007) and by the chi-square difference test.")
+    ordinal = bool(setup.get("ordinal_identification"))
+    if ordinal:
+        text += (" The items were treated as ordinal: each group's thresholds and polychoric "
+                 "correlations were fitted together, identified as Wu and Estabrook (2016) "
+                 "propose (theta parameterization), with mean-and-variance adjusted difference "
+                 "tests (Satorra, 2000).")
     released = len(report.get("released") or ())
     if released:
         text += (f" {_number(released).capitalize()} equality constraint"
-                 f"{' was' if released == 1 else 's were'} released where score tests pointed "
-                 "to a difference (partial invariance).")
+                 f"{' was' if released == 1 else 's were'} released where score tests"
+                 + (" (Satorra, 1989)" if ordinal else "") + " pointed to a difference "
+                 "(partial invariance).")
     if report.get("latent_means"):
         text += (" Latent means were then compared between groups, with standardized "
                  "differences after Hancock (2001).")

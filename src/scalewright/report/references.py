@@ -98,6 +98,12 @@ CITATIONS = {
     "saris": "Saris, W. E., Satorra, A., & van der Veen, W. M. (2009). Testing structural "
              "equation models or detection of misspecifications? Structural Equation "
              "Modeling, 16, 561–582.",
+    "satorra1989": "Satorra, A. (1989). Alternative test criteria in covariance structure "
+                   "analysis: A unified approach. Psychometrika, 54, 131–151.",
+    "satorra2000": "Satorra, A. (2000). Scaled and adjusted restricted tests in multi-sample "
+                   "analysis of moment structures. In R. D. H. Heijmans, D. S. G. Pollock, & "
+                   "A. Satorra (Eds.), Innovations in multivariate statistical analysis "
+                   "(pp. 233–247). Kluwer.",
     "satorra_bentler1994": "Satorra, A., & Bentler, P. M. (1994). Corrections to test "
                            "statistics and standard errors in covariance structure analysis. "
                            "In A. von Eye & C. C. Clogg (Eds.), Latent variables analysis "
@@ -123,6 +129,9 @@ CITATIONS = {
                     "likelihood factor analysis. Psychometrika, 38, 1–10.",
     "wagenmakers": "Wagenmakers, E.-J., & Farrell, S. (2004). AIC model selection using Akaike "
                    "weights. Psychonomic Bulletin & Review, 11, 192–196.",
+    "wu_estabrook": "Wu, H., & Estabrook, R. (2016). Identification of confirmatory factor "
+                    "analysis models of different levels of invariance for ordered categorical "
+                    "outcomes. Psychometrika, 81, 1014–1045.",
     "yuan_bentler": "Yuan, K.-H., & Bentler, P. M. (2000). Three likelihood-based methods for "
                     "mean and covariance structure analysis with nonnormal missing data. "
                     "Sociological Methodology, 30, 165–200.",
@@ -207,6 +216,8 @@ def references_used(report: dict) -> list[str]:
     keys |= cited_in((report.get("method") or {}).get("reasons", ()))
     if report.get("invariance"):
         keys |= {"cheung_rensvold", "chen"}
+    if (report.get("invariance_setup") or {}).get("ordinal_identification"):
+        keys |= {"wu_estabrook", "satorra2000", "satorra1989"}
     if report.get("latent_means"):
         keys.add("hancock2001")
     return sorted((CITATIONS[k] for k in keys), key=str.casefold)

@@ -670,7 +670,8 @@ def invariance_table(report: dict) -> Table:
         fit = s.get("fit") or {}
         delta = s.get("delta") or {}
         test = s.get("difference_test") or {}
-        step = str(s.get("step", "")) + (" (partial)" if s.get("partial") else "")
+        step = str(s.get("label") or s.get("step", "")) + (" (partial)" if s.get("partial")
+                                                           else "")
         rows.append((_h(step), _c(dec(fit.get("chi_square"), 2)),
                      _c(str(fit.get("df", DASH))), _c(coef(fit.get("cfi"))),
                      _c(coef(fit.get("rmsea"))), _c(coef(fit.get("srmr"))),
