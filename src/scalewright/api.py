@@ -217,7 +217,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         observed = saturated_covariance(x, spec.items, data.file.name)
     if np.isnan(x).any():
         def refit(reduced_spec, answers, columns):
-            return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name)
+            return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
+                                    start_from=model.estimate)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
@@ -233,7 +234,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
 
         def refit(reduced_spec, answers, columns):
             return evaluate_moments(reduced_spec,
-                                    moments_subset(moments, spec.items, reduced_spec.items))
+                                    moments_subset(moments, spec.items, reduced_spec.items),
+                                    start_from=model.estimate)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices

@@ -11,7 +11,6 @@ from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.normal import Block, complete_data_blocks, fit_normal
 from scalewright.estimate.result import Estimate, invert_information
-from scalewright.layout import Layout
 from scalewright.indices import fit_indices, independence_chi_square, saturated_loglik
 from scalewright.modelresult import ModelResult
 from scalewright.specify import build_layout
@@ -30,14 +29,20 @@ def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
         return evaluate_moments(spec, complete_data_blocks(x)[0])
 
 
-def evaluate_moments(spec, block: Block) -> ModelResult:
+def evaluate_moments(spec, block: Block, start_from: Estimate | None = None) -> ModelResult:
     """Normal-theory ML for one model from the sample moments of complete
     data (the sufficient statistics): ``block.cov`` (÷n), ``block.mean``,
-    ``block.n``, items in ``spec.items`` order."""
+    ``block.n``, items in ``spec.items`` order.  ``start_from``, the estimate
+    of a related model, gives the start values of the parameters both name
+    alike (:meth:`Estimate.start_for`); a warm start that does not converge
+    is retried from the usual start values."""
     with one_blas_thread():
         blocks = (block,)
         layout = build_layout(spec, block.cov)
-        theta, record, objective = fit_normal(layout, blocks)
+        theta, record, objective = fit_normal(
+            layout, blocks, None if start_from is None else start_from.start_for(layout))
+        if not record.converged and start_from is not None:
+            theta, record, objective = fit_normal(layout, blocks)
         _, _, info = objective.value_grad_info(theta)
         acov, unidentified = invert_information(info, objective.n)
         loglik = objective.loglik(theta)
@@ -78,24 +83,12 @@ def point_estimate(spec, block: Block, start_from: Estimate | None = None) -> Es
     with one_blas_thread():
         blocks = (block,)
         layout = build_layout(spec, block.cov)
-        start = None if start_from is None else carried_start(start_from, layout)
+        start = None if start_from is None else start_from.start_for(layout)
         theta, record, objective = fit_normal(layout, blocks, start, grad_tol=POINT_GRAD_TOL)
         if not record.converged and start is not None:
             theta, record, objective = fit_normal(layout, blocks, grad_tol=POINT_GRAD_TOL)
         return Estimate(layout, theta, None, record, objective.n, objective.loglik(theta), "ml",
                         (), blocks)
-
-
-def carried_start(source: Estimate, target: Layout) -> np.ndarray:
-    """Start values for ``target``: the estimate in ``source`` of every
-    parameter both layouts name alike, the target's own start values for
-    the rest."""
-    where = {param: k for k, param in enumerate(source.layout.params)}
-    out = target.start.copy()
-    for k, param in enumerate(target.params):
-        if param in where:
-            out[k] = source.theta[where[param]]
-    return out
 
 
 def estimate_columns(spec, x: np.ndarray, columns) -> Estimate:

@@ -27,8 +27,8 @@ from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, 
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.estimate.normal import fit_normal
-from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, carried_start, evaluate_normal
+from scalewright.estimate.normal import complete_data_blocks, fit_normal
+from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, evaluate_moments
 from scalewright.indices import FitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
@@ -99,10 +99,12 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
     return evaluate_answers(spec, x, choice, data.file.name)
 
 
-def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> ModelResult:
+def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
+                     start_from: Estimate | None = None) -> ModelResult:
     """:func:`evaluate_with` on the answer matrix of the model's items
     (columns in ``spec.items`` order, NaN = missing); ``where`` names the
-    data file in messages."""
+    data file in messages; ``start_from``, the estimate of a related model,
+    gives the start values of the parameters both name alike (refits)."""
     if choice.estimator in (ORDINAL, MIXED):
         raise ValueError("the ordinal and mixed routes have their own evaluation; "
                          "evaluate_answers fits normal-theory and robust ML only")
@@ -110,13 +112,13 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str) -> M
     with one_blas_thread():
         incomplete = np.isnan(x).any(axis=1)
         if choice.missing_handling == FULL_INFORMATION and incomplete.any():
-            return _full_information(spec, x, robust, where)
-        return _complete(spec, x[~incomplete] if incomplete.any() else x, robust)
+            return _full_information(spec, x, robust, where, start_from)
+        return _complete(spec, x[~incomplete] if incomplete.any() else x, robust, start_from)
 
 
-def _complete(spec, x: np.ndarray, robust: bool) -> ModelResult:
+def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None) -> ModelResult:
     """Complete rows: normal-theory ML, then the robust corrections if asked."""
-    result = evaluate_normal(spec, x)
+    result = evaluate_moments(spec, complete_data_blocks(x)[0], start_from)
     est = result.estimate
     if not robust or est.acov is None:
         return result
@@ -127,11 +129,12 @@ def _complete(spec, x: np.ndarray, robust: bool) -> ModelResult:
     return replace(result, estimate=estimate, fit=fit, estimator=LABELS[("robust", False)])
 
 
-def _full_information(spec, x: np.ndarray, robust: bool, where: str) -> ModelResult:
+def _full_information(spec, x: np.ndarray, robust: bool, where: str,
+                      start_from: Estimate | None) -> ModelResult:
     patterns = missing_patterns(x, tuple(spec.items), where)
     moments = pattern_moments(x, patterns)
     saturated = saturated_em(moments)
-    fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated)
+    fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated, start_from)
     layout, theta, n = fitted.layout, fitted.theta, fitted.n
     info = fiml_information(layout, theta, x, patterns, moments)
     acov, unidentified = invert_information(info.observed, n)
@@ -169,7 +172,7 @@ def fiml_point_estimate(spec, x: np.ndarray, where: str, start_from: Estimate,
     with one_blas_thread():
         blocks = pattern_blocks(pattern_moments(x, missing_patterns(x, tuple(spec.items), where)))
         layout = with_intercepts(build_layout(spec, start_cov), np.nanmean(x, axis=0))
-        theta, record, objective = fit_normal(layout, blocks, carried_start(start_from, layout),
+        theta, record, objective = fit_normal(layout, blocks, start_from.start_for(layout),
                                               grad_tol=POINT_GRAD_TOL)
         if not record.converged:
             theta, record, objective = fit_normal(layout, blocks, grad_tol=POINT_GRAD_TOL)

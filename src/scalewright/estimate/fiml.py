@@ -363,11 +363,18 @@ class FimlFit:
 
 
 def fit_fiml(layout: Layout, values: np.ndarray, moments: PatternMoments,
-             saturated: Saturated) -> FimlFit:
+             saturated: Saturated, start_from=None) -> FimlFit:
     """FIML estimates of ``layout`` (built without a mean structure) on
-    ``values`` (NaN = missing, columns in ``layout.items`` order)."""
+    ``values`` (NaN = missing, columns in ``layout.items`` order).
+    ``start_from``, the estimate of a related model, gives the start values
+    of the parameters both name alike; a warm start that does not converge
+    is retried from the usual start values."""
     model = with_intercepts(layout, saturated.mean)
-    theta, record, objective = fit_normal(model, pattern_blocks(moments))
+    blocks = pattern_blocks(moments)
+    start = None if start_from is None else start_from.start_for(model)
+    theta, record, objective = fit_normal(model, blocks, start)
+    if not record.converged and start is not None:
+        theta, record, objective = fit_normal(model, blocks)
     baseline_loglik, _, _ = independence_fiml(values)
     return FimlFit(model, theta, record, objective, objective.loglik(theta), saturated,
                    baseline_loglik)

@@ -34,6 +34,17 @@ class Estimate:
     def matrices(self, group: int = 0) -> Matrices:
         return self.layout.patterns[group].matrices(self.theta)
 
+    def start_for(self, target: Layout) -> np.ndarray:
+        """Start values for a related layout (a refit without an item, say):
+        this estimate of every parameter both layouts name alike, the
+        target's own start values for the rest."""
+        where = {param: k for k, param in enumerate(self.layout.params)}
+        out = target.start.copy()
+        for k, param in enumerate(target.params):
+            if param in where:
+                out[k] = self.theta[where[param]]
+        return out
+
     @property
     def se(self) -> np.ndarray:
         """Standard errors (NaN when the information matrix is singular)."""
