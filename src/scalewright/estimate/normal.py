@@ -118,9 +118,10 @@ class NormalFit:
     determinant is ``|Σ_oo|``.  One batched Cholesky factorisation then
     serves every missing-data pattern.
 
-    The inverses of the last ``θ`` whose value was asked for are kept: the
+    The inverses of the last ``θ`` whose value was asked for are kept (the
     line search asks for the value at the point the next iteration then
-    needs the gradient and information of.
+    needs the gradient and information of), and so are the last gradient and
+    information.  Callers must not modify the arrays they are given.
     """
 
     layout: Layout
@@ -165,7 +166,17 @@ class NormalFit:
         return -0.5 * n_log2pi - self.n * self.value(theta)
 
     def value_grad_info(self, theta: np.ndarray):
-        """Objective, its gradient and the expected information (per case)."""
+        """Objective, its gradient and the expected information (per case);
+        the last result is kept, since the optimiser's last evaluation is at
+        the point where the standard errors then need the information."""
+        key = theta.tobytes()
+        if self._last.get("vgi_key") != key:
+            total, grad, info = self._value_grad_info(theta)
+            grad.flags.writeable = info.flags.writeable = False    # shared with later callers
+            self._last.update(vgi_key=key, vgi=(total, grad, info))
+        return self._last["vgi"]
+
+    def _value_grad_info(self, theta: np.ndarray):
         q = self.layout.n_params
         grad = np.zeros(q)
         info = np.zeros((q, q))
