@@ -190,9 +190,10 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
     scaled = corr[np.ix_(index, index)] / np.outer(lam, lam)
     counts = incidence.sum(axis=0)
     mean_ratio = incidence.T @ scaled @ incidence / np.outer(counts, counts)
+    clipped = np.clip(mean_ratio, -0.9, 0.9).tolist()
     for x in range(len(names)):
         for y in range(x):
-            out.correlation[(names[x], names[y])] = float(np.clip(mean_ratio[x, y], -0.9, 0.9))
+            out.correlation[(names[x], names[y])] = clipped[x][y]
     _shrink_to_positive_definite(out, names)
     for h, cs in spec.higher_order.items():
         # paths: one-factor loadings of the constructs' correlation matrix
