@@ -77,9 +77,9 @@ def point_estimate(spec, block: Block, start_from: Estimate | None = None) -> Es
     start values of the parameters the two share, so the refit begins near
     its solution.  A warm start that fails to converge is retried from the
     usual start values.  The refit stops at a largest gradient element of
-    :data:`POINT_GRAD_TOL` (the full fits: 1e-9), which leaves the estimates
+    :data:`POINT_GRAD_TOL` (the full fits: 1e-8), which leaves the estimates
     some 1e-7 from the optimum, far below the three decimals a coefficient
-    derived from them is shown with, and saves two of six iterations."""
+    derived from them is shown with, and saves an iteration."""
     with one_blas_thread():
         blocks = (block,)
         layout = build_layout(spec, block.cov)

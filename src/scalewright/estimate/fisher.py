@@ -57,7 +57,7 @@ class OptimizerRecord:
 def fisher_scoring(theta0: np.ndarray,
                    value: Callable[[np.ndarray], float],
                    value_grad_info: Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]],
-                   *, max_iter: int = 500, grad_tol: float = 1e-9, step_tol: float = 1e-11
+                   *, max_iter: int = 500, grad_tol: float = 1e-8, step_tol: float = 1e-11
                    ) -> tuple[np.ndarray, OptimizerRecord]:
     """Minimise ``value`` by Fisher scoring.
 

@@ -321,9 +321,15 @@ def _add_block(info: np.ndarray, params: np.ndarray, cell_info: np.ndarray) -> N
 
 
 def fit_normal(layout: Layout, blocks: tuple[Block, ...], start: np.ndarray | None = None,
-               grad_tol: float = 1e-9) -> tuple[np.ndarray, OptimizerRecord, NormalFit]:
+               grad_tol: float = 1e-8) -> tuple[np.ndarray, OptimizerRecord, NormalFit]:
     """Maximum-likelihood estimates of the layout's parameters (converged when
-    the largest gradient element of ``f = −ℓ/N`` is below ``grad_tol``)."""
+    the largest gradient element of ``f = −ℓ/N`` is below ``grad_tol``).
+
+    At ``grad_tol = 1e-8`` a parameter with per-case information ``i`` is
+    within about ``1e-8 / i`` of the optimum, which is ``1e-8 √(N/i)`` of its
+    standard error ``1/√(N i)``: below 1e-5 of a standard error up to a
+    million cases, and the log-likelihood, quadratic near the optimum, is
+    exact to rounding."""
     objective = NormalFit(layout, blocks)
     theta0 = layout.start if start is None else start
     theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info,
