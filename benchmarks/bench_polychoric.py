@@ -22,10 +22,11 @@ replacement.
 
 import argparse
 import time
-import types
 
 import numpy as np
 from threadpoolctl import threadpool_limits
+
+from common import semopy_polycorr
 
 from scalewright.estimate.polychoric import ordinal_moments
 
@@ -54,15 +55,7 @@ def time_scalewright(data: np.ndarray, threads) -> float:
 
 
 def time_semopy_per_pair(data: np.ndarray, n_pairs: int) -> float:
-    from scipy.stats._qmvnt import _bvn
-    from semopy import polycorr
-
-    polycorr.mvn = types.SimpleNamespace(
-        mvnun=lambda lower, upper, means, cov: (
-            _bvn(np.asarray(lower, float) - means, np.asarray(upper, float) - means, np.asarray(cov)),
-            0,
-        )
-    )
+    polycorr, _ = semopy_polycorr()
     complete = np.where(np.isnan(data), 3.0, data)
     rng = np.random.default_rng(7)
     p = data.shape[1]

@@ -27,6 +27,7 @@ from threadpoolctl import threadpool_info
 LOADING_RANGE = (0.5, 0.8)     # standardized primary loadings, drawn uniformly
 CONSTRUCT_CORRELATION = 0.3    # every pair of constructs
 MINOR_LOADING = 0.15           # unmodelled cross-loading of each construct's first item
+FIVE_POINT_CUTS = (-1.5, -0.5, 0.5, 1.5)   # normal → answers 1–5, roughly bell-shaped
 
 
 # --------------------------------------------------------------------------- simulation
@@ -87,12 +88,12 @@ def five_point_chunks(pop: Population, n_rows: int, seed: int, chunk: int = 100_
                       ) -> Iterator[np.ndarray]:
     """Answers 1–5 in blocks of ``chunk`` rows (uint8), cut from normal rows.
 
-    The cut points −1.5, −0.5, 0.5, 1.5 give a symmetric, roughly bell-shaped
-    distribution over the five categories.
+    The cut points ``FIVE_POINT_CUTS`` (−1.5, −0.5, 0.5, 1.5) give a
+    symmetric, roughly bell-shaped distribution over the five categories.
     """
     rng = np.random.default_rng(seed)
     chol = np.linalg.cholesky(pop.covariance).T.astype(np.float32)
-    cuts = np.array([-1.5, -0.5, 0.5, 1.5], dtype=np.float32)
+    cuts = np.array(FIVE_POINT_CUTS, dtype=np.float32)
     for start in range(0, n_rows, chunk):
         rows = min(chunk, n_rows - start)
         latent = rng.standard_normal((rows, len(pop.items)), dtype=np.float32) @ chol
@@ -298,6 +299,43 @@ def _semopy_child(description, frame, options, threads, repeat, budget, results)
             results.put((seconds, time.process_time() - start_cpu,
                          float(semopy.stats.calc_chi2(model)[0])))
     results.put(None)
+
+
+def semopy_polycorr() -> tuple[object, str]:
+    """semopy's ``polycorr`` module made to run on the installed scipy, and a
+    sentence for the printout saying how.
+
+    semopy 2.3.11 integrates normal densities with ``scipy.stats.mvn.mvnun``,
+    which scipy 1.17 removed.  When it is missing, a stand-in is put in its
+    place: a one-dimensional probability (the polyserial likelihood) as the
+    difference of two ``scipy.stats.norm.cdf`` values, the stand-in of
+    ``tests/test_polyserial.py``; a two-dimensional rectangle (the polychoric
+    likelihood) by scipy's compiled bivariate routine ``scipy.stats._qmvnt._bvn``
+    (Genz's algorithm, as the removed function used), so that semopy is not
+    slowed by a pure-Python replacement.  Everything else is semopy's code.
+    """
+    import scipy
+    from scipy import stats
+    from semopy import polycorr
+
+    if hasattr(getattr(stats, "mvn", None), "mvnun"):
+        return polycorr, "semopy runs as shipped (scipy.stats.mvn.mvnun is present)."
+    from scipy.stats._qmvnt import _bvn
+
+    def mvnun(lower, upper, means, cov):
+        if len(lower) == 1:
+            sd = np.sqrt(np.ravel(cov)[0])
+            return (stats.norm.cdf(upper[0], means[0], sd)
+                    - stats.norm.cdf(lower[0], means[0], sd), 0)
+        return _bvn(np.asarray(lower, float) - means, np.asarray(upper, float) - means,
+                    np.asarray(cov)), 0
+
+    polycorr.mvn = SimpleNamespace(mvnun=mvnun)
+    return polycorr, (
+        f"semopy calls scipy.stats.mvn.mvnun, which scipy {scipy.__version__} no longer has; it "
+        "ran with a stand-in: one-dimensional probabilities (polyserial) from scipy.stats.norm.cdf, "
+        "as in tests/test_polyserial.py, two-dimensional ones (polychoric) from scipy's compiled "
+        "bivariate routine scipy.stats._qmvnt._bvn.")
 
 
 # --------------------------------------------------------------------------- machine

@@ -25,6 +25,7 @@ import pandas as pd
 import pytest
 from conftest import make_spec
 from numpy.testing import assert_allclose
+from scipy import stats
 from test_dwls import _semopy_dwls
 
 import scalewright
@@ -111,6 +112,44 @@ def test_sparse_category_of_an_ordinal_item_is_reported_and_merged_on_request():
     assert "Item 'o2': categories with fewer than 5 answers were merged into a neighbouring " \
            "category: 5 (3 answers) into 4." in out["ordinal_notes"]
     assert len(out["thresholds"]["o2"]) == 3 and len(out["thresholds"]["o1"]) == 4
+
+
+def test_collapsed_category_is_analysed_as_the_same_answers_recoded_by_hand():
+    # o2's middle category 2 keeps three answers; its lower neighbour (≈ 7 % of the
+    # answers) has fewer than its upper one, so it is merged down into 1
+    x = _population_sample(np.random.default_rng(19), 400, missing=0.03)
+    twos = np.flatnonzero(x[:, 1] == 2)
+    x[twos[3:], 1] = 3
+    spec = make_spec({"A": ("o1", "o2", "o3", "o4"), "B": ("c1", "c2", "c3", "c4")})
+    continuous = ("c1", "c2", "c3", "c4")
+    merged = evaluate_mixed(spec, x, ITEMS, continuous, scale=(1, 5), collapse_sparse=True)
+    out = merged.to_dict()
+    assert merged.converged
+    assert ("Item 'o2': categories with fewer than 5 answers were merged into a neighbouring "
+            "category: 2 (3 answers) into 1." in out["ordinal_notes"])
+    # the same merge written here with numpy, fitted without collapsing
+    by_hand = x.copy()
+    by_hand[by_hand[:, 1] == 2, 1] = 1
+    plain = evaluate_mixed(spec, by_hand, ITEMS, continuous).to_dict()
+    for item in ("o1", "o2", "o3", "o4"):
+        # Olsson (1979, eq. 8): τ_c = Φ⁻¹(proportion answering ≤ c) of the recoded answers
+        seen = by_hand[~np.isnan(by_hand[:, ITEMS.index(item)]), ITEMS.index(item)]
+        cumulative = [np.mean(seen <= c) for c in np.unique(seen)[:-1]]
+        assert_allclose(out["thresholds"][item], stats.norm.ppf(cumulative), rtol=1e-12)
+    assert_allclose(out["correlations_mixed"]["correlations"],
+                    plain["correlations_mixed"]["correlations"], rtol=0, atol=1e-12)
+    [ours], [theirs] = out["reliability_ordinal"], plain["reliability_ordinal"]
+    for key in ("ordinal_alpha", "omega_total", "omega_construct", "omega_total_observed"):
+        assert_allclose(ours[key], theirs[key], rtol=1e-9, err_msg=key)
+    # omega_total_observed: the true-score variance over the sample variance of the sum of
+    # category ranks 0, 1, … (Green & Yang 2009), the ranks of the recoded answers
+    # computed here with numpy, over the rows that answered all four ordinal items
+    a = by_hand[:, [0, 1, 4, 5]]
+    a = a[~np.isnan(a).any(axis=1)]
+    ranks = np.column_stack([np.unique(a[:, j], return_inverse=True)[1] for j in range(4)])
+    assert_allclose(ours["omega_total_observed"],
+                    ours["omega_total"] * ours["implied_total_variance"]
+                    / np.var(ranks.sum(axis=1), ddof=1), rtol=1e-12)
 
 
 # --------------------------------------------------------------------------

@@ -189,6 +189,88 @@ def test_collapsing_sparse_categories_fits_and_says_what_was_merged():
     assert res.converged
 
 
+#: (item column, sparse category, where its other answers are moved, the category it is
+#: then merged into): the highest category merged down into its neighbour, and a middle
+#: one merged down because its lower neighbour (~8 % of answers) has fewer than its upper
+DOWNWARD_MERGES = [(2, 5.0, 4.0, 4.0), (1, 2.0, 3.0, 1.0)]
+
+
+@pytest.mark.parametrize("column, sparse, moved, into", DOWNWARD_MERGES)
+def test_collapsed_category_is_analysed_as_the_same_answers_recoded_by_hand(column, sparse, moved,
+                                                                             into):
+    x = _answers(np.random.default_rng(11), 400, missing=0.03)
+    hits = np.flatnonzero(x[:, column] == sparse)
+    kept = 3
+    x[hits[kept:], column] = moved
+    spec = make_spec({"A": ITEMS[:4], "B": ITEMS[4:]})
+    merged = evaluate_ordinal(spec, x, ITEMS, scales=(1, 5), collapse_sparse=True).to_dict()
+    assert (f"Item '{ITEMS[column]}': categories with fewer than 5 answers were merged into a "
+            f"neighbouring category: {sparse:g} ({kept} answers) into {into:g}."
+            in merged["ordinal_notes"])
+    # the same merge written here with numpy, fitted without collapsing
+    by_hand = x.copy()
+    by_hand[by_hand[:, column] == sparse, column] = into
+    plain = evaluate_ordinal(spec, by_hand, ITEMS).to_dict()
+    for item in ITEMS:
+        # Olsson (1979, eq. 8): τ_c = Φ⁻¹(proportion answering ≤ c) of the recoded answers
+        seen = by_hand[~np.isnan(by_hand[:, ITEMS.index(item)]), ITEMS.index(item)]
+        cumulative = [np.mean(seen <= c) for c in np.unique(seen)[:-1]]
+        assert_allclose(merged["thresholds"][item], stats.norm.ppf(cumulative), rtol=1e-12)
+    assert_allclose(merged["polychoric"]["correlations"], plain["polychoric"]["correlations"],
+                    rtol=0, atol=1e-12)
+    for ours, theirs in zip(merged["reliability_ordinal"], plain["reliability_ordinal"]):
+        for key in ("ordinal_alpha", "omega_total", "omega_construct", "omega_total_observed"):
+            assert_allclose(ours[key], theirs[key], rtol=1e-9, err_msg=key)
+    # omega_total_observed: the true-score variance over the sample variance of the sum of
+    # category ranks 0, 1, … (Green & Yang 2009), the ranks of the recoded answers
+    # computed here with numpy, over the rows that answered the construct's four items
+    a = by_hand[:, :4]
+    a = a[~np.isnan(a).any(axis=1)]
+    ranks = np.column_stack([np.unique(a[:, j], return_inverse=True)[1] for j in range(4)])
+    first = merged["reliability_ordinal"][0]
+    assert_allclose(first["omega_total_observed"],
+                    first["omega_total"] * first["implied_total_variance"]
+                    / np.var(ranks.sum(axis=1), ddof=1), rtol=1e-12)
+
+
+COLLAPSING_STUDY = """\
+study: collapsed categories
+data:
+  file: answers.csv
+items:
+  scale: [1, 5]
+  collapse_sparse: true
+estimation:
+  method: ordinal
+models:
+  two:
+    constructs:
+      A: [q1, q2, q3, q4]
+      B: [q5, q6, q7, q8]
+"""
+
+
+def test_refinement_path_of_a_collapsing_study_sees_the_merged_categories(tmp_path):
+    import pandas as pd
+
+    import scalewright
+
+    x = _answers(np.random.default_rng(11), 400, missing=0.03)
+    twos = np.flatnonzero(x[:, 1] == 2)
+    x[twos[3:], 1] = 3                     # q2's category 2 keeps three answers: merged into 1
+    pd.DataFrame(x, columns=ITEMS).to_csv(tmp_path / "answers.csv", index=False)
+    (tmp_path / "study.yaml").write_text(COLLAPSING_STUDY)
+    model = scalewright.check(tmp_path / "study.yaml").to_dict()["models"][0]
+    assert any(n.endswith("2 (3 answers) into 1.") for n in model["ordinal_notes"])
+    # Cronbach's (1951) alpha, k/(k−1) (1 − Σ var_i / var(Σ x_i)), of the recoded answers
+    # (numpy here) in the rows that answered every item of the model
+    by_hand = x.copy()
+    by_hand[by_hand[:, 1] == 2, 1] = 1
+    a = by_hand[~np.isnan(by_hand).any(axis=1), :4]
+    alpha = 4 / 3 * (1 - a.var(axis=0, ddof=1).sum() / a.sum(axis=1).var(ddof=1))
+    assert_allclose(model["refinement"]["steps"][0]["reliability"]["A"], alpha, rtol=1e-12)
+
+
 def test_item_with_too_many_values_names_the_item():
     x = _answers(np.random.default_rng(4), 300, missing=0.0)
     x[:, 5] = np.tile(np.arange(1.0, 13.0), 25)

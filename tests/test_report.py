@@ -441,7 +441,7 @@ def test_methods_paragraph_names_the_invariance_steps_and_the_released_constrain
     assert ("partial invariance" in text) == bool(report["released"])
 
 
-_CITED = re.compile(r"([A-ZÖ][a-zö]+)(?:'s)?(?: and [A-Z][a-z]+)?(?:,? et al\.)?,? \(?(\d{4})\)?")
+_CITED = re.compile(r"([A-ZÖ][a-zéö]+)(?:'s)?(?: and [A-Z][a-z]+)?(?:,? et al\.)?,? \(?(\d{4})\)?")
 
 
 def _listed(author: str, year: str, references: list[str]) -> bool:
@@ -645,6 +645,132 @@ def test_reliability_and_validity_notes_go_under_their_tables():
             assert n["message"] in notes
             validity_notes += 1
     assert validity_notes
+
+
+KINDS_STUDY = """\
+study: items of two kinds
+data:
+  file: answers.csv
+items:
+  collapse_sparse: true
+estimation:
+  method: ordinal
+models:
+  kinds:
+    first: true
+    constructs:
+      ordinal: [a1, a2, a3, a4]
+      continuous: [b1, b2, b3]
+      both: [m1, m2, m3]
+  ordinal only:
+    constructs:
+      ordinal: [a1, a2, a3, a4]
+"""
+
+
+@pytest.fixture(scope="module")
+def kinds_report(tmp_path_factory) -> dict:
+    """The result dict of a study whose a- and m1/m2-items are five-point answers and
+    whose b-items and m3 are continuous scores: the mixed route for 'kinds' (a construct
+    of each kind and one mixing them), the ordinal route for 'ordinal only'; a1 has a
+    sparse category, merged on request."""
+    import pandas as pd
+
+    folder = tmp_path_factory.mktemp("kinds")
+    rng = np.random.default_rng(606)
+    lam = np.zeros((10, 3))
+    lam[:4, 0], lam[4:7, 1], lam[7:, 2] = [.7, .6, .75, .65], [.7, .8, .6], [.65, .7, .75]
+    phi = np.array([[1, .3, .4], [.3, 1, .35], [.4, .35, 1]])
+    sigma = lam @ phi @ lam.T
+    np.fill_diagonal(sigma, 1.0)
+    latent = rng.standard_normal((400, 10)) @ np.linalg.cholesky(sigma).T
+    x = 50 + 10 * latent
+    ordinal = [0, 1, 2, 3, 7, 8]
+    x[:, ordinal] = (latent[:, ordinal, None] > np.array([-1.5, -0.6, 0.3, 1.2])).sum(axis=2) + 1
+    fives = np.flatnonzero(x[:, 0] == 5)
+    x[fives[2:], 0] = 4                      # a1's category 5 keeps two answers
+    x[rng.random(x.shape) < 0.03] = np.nan
+    names = ["a1", "a2", "a3", "a4", "b1", "b2", "b3", "m1", "m2", "m3"]
+    pd.DataFrame(x, columns=names).to_csv(folder / "answers.csv", index=False)
+    (folder / "study.yaml").write_text(KINDS_STUDY)
+    return api.check(folder / "study.yaml").to_dict()
+
+
+def _figure(html: str, caption: str) -> str:
+    """The HTML of the numbered table whose caption starts with ``caption``."""
+    end = html.index(caption)
+    start = html.rindex("<figure", 0, end)
+    return html[start:html.index("</figure>", end)]
+
+
+def test_ordinal_notes_are_prose_in_the_models_section(kinds_report):
+    html = render_html(kinds_report)
+    models = kinds_report["models"]
+    assert [m["estimator"].split(" (")[1].split(";")[0] for m in models] == [
+        "polychoric, polyserial and Pearson correlations", "polychoric correlations"]
+    for index, m in enumerate(models, start=1):
+        section = _section(html, f"model-{index}")
+        paragraphs = [htmllib.unescape(p) for p in re.findall(r"<p>(.*?)</p>", section, re.S)]
+        assert m["ordinal_notes"] and all(note in paragraphs for note in m["ordinal_notes"])
+        assert any(note.startswith("Item 'a1': categories with fewer than 5 answers were merged")
+                   for note in m["ordinal_notes"])
+
+
+def test_reliability_by_item_kind_is_tabled_in_the_models_section(kinds_report):
+    html = render_html(kinds_report)
+    doc = build_document(kinds_report)
+    seen = set()
+    for index, m in enumerate(kinds_report["models"], start=1):
+        section = _section(html, f"model-{index}")
+        for key, caption, columns in (
+                ("reliability_ordinal", "Reliability of the constructs measured by ordinal items",
+                 ("ordinal_alpha", "omega_total", "omega_total_observed")),
+                ("reliability_continuous",
+                 "Reliability of the constructs measured by continuous items",
+                 ("alpha_standardized", "omega_total"))):
+            caption = f"{caption} in ‘{m['name']}’"
+            if not m.get(key):
+                assert caption not in html
+                continue
+            seen.add(key)
+            figure = _figure(section, htmllib.escape(caption, quote=False))
+            table = _table(doc, caption)
+            for row, r in zip(table.rows, m[key], strict=True):
+                # the coefficients of the JSON, in APA style, in this table of the HTML
+                shown = [apa(r[c], 2) for c in columns]
+                assert row[0].text == r["construct"] and all(v in figure for v in shown)
+                assert [c.text for c in row if c.text in shown] == shown
+                omega = next(c for c in row if c.text == apa(r["omega_total"], 2))
+                # Nunnally & Bernstein (1994): .70 as the minimum for research use
+                assert omega.mark == ("✓" if r["omega_total"] >= RELIABILITY_MINIMUM else "✗")
+            for note in (n["message"] for r in m[key] for n in r["notes"]):
+                assert note in table.notes
+    assert seen == {"reliability_ordinal", "reliability_continuous"}
+    rows = {r["number"]: r for r in checklist_rows(kinds_report)}
+    assert rows[27]["status"] == "partly shown" and "categorical omega" in rows[27]["where"]
+
+
+def test_every_author_cited_in_the_ordinal_notes_is_in_the_reference_list(kinds_report):
+    cited = _CITED.findall(" ".join(n for m in kinds_report["models"]
+                                    for n in m["ordinal_notes"]))
+    references = references_used(kinds_report)
+    assert ("Spisic", "1997") in cited and ("Muthén", "2010") in cited
+    for author, year in cited:
+        assert _listed(author, year, references), (author, year)
+    for author, year in (("Zumbo", "2007"), ("Green", "2009"), ("McDonald", "1999"),
+                         ("Cronbach", "1951"), ("Nunnally", "1994")):    # the tables' notes
+        assert _listed(author, year, references), (author, year)
+
+
+def test_ordinal_notes_and_reliability_rows_are_escaped(kinds_report):
+    report = copy.deepcopy(kinds_report)
+    m = report["models"][0]
+    m["ordinal_notes"].append(f"Item '{HOSTILE}' note")
+    m["reliability_ordinal"][0]["construct"] = HOSTILE
+    m["reliability_continuous"][0]["notes"].append({"message": HOSTILE})
+    html = render_html(report)
+    assert "<script" not in html.lower() and _outline(html).forbidden == []
+    assert html.count("&lt;script&gt;alert(1)&lt;/script&gt;") >= 3
 
 
 def test_fornell_larcker_rows_are_marked_by_the_convention():

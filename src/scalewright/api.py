@@ -24,6 +24,7 @@ from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
+from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
 from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
@@ -205,7 +206,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                  if choice.estimator == ORDINAL else
                  evaluate_mixed(spec, x, spec.items, choice.continuous_items, study.scale,
                                 study.collapse_sparse))
-        complete = x[~np.isnan(x).any(axis=1)]
+        analysed = _merged_sparse_categories(study, spec, choice, x)
+        complete = analysed[~np.isnan(analysed).any(axis=1)]
         model.extra.update(quality_keys(model, study, complete))
         return model
     incomplete = np.isnan(x).any(axis=1)
@@ -246,6 +248,22 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
     model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
+
+
+def _merged_sparse_categories(study: Study, spec, choice, x: np.ndarray) -> np.ndarray:
+    """The answers of an ordinal or mixed model with sparse categories merged as
+    its moments merged them (the model file's ``collapse_sparse``, by the same
+    function on the same answers), so that the refinement path's refits and
+    alphas see the categories the model was fitted to; ``x`` itself if
+    nothing is merged."""
+    if not study.collapse_sparse:
+        return x
+    continuous = set(choice.continuous_items)
+    columns = [j for j, item in enumerate(spec.items) if item not in continuous]
+    merged = x.copy()
+    merged[:, columns], _ = collapse_sparse_columns(
+        x[:, columns], [spec.items[j] for j in columns], scales=[study.scale] * len(columns))
+    return merged
 
 
 def _check_sample_covariance(study: Study, spec, x: np.ndarray) -> None:

@@ -48,7 +48,6 @@ McDonald, R. P. (1999). Test theory: a unified treatment. Erlbaum.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from types import SimpleNamespace
 
 import numpy as np
 
@@ -65,7 +64,11 @@ from scalewright.evaluate_ordinal import (
 from scalewright.layout import CONSTRUCT, Layout, Matrices
 from scalewright.modelresult import ModelResult
 from scalewright.omega import omega_total
-from scalewright.ordinal_reliability import categorical_omega, ordinal_alpha
+from scalewright.ordinal_reliability import (
+    categorical_omega,
+    observed_sum_variance,
+    ordinal_alpha,
+)
 from scalewright.reliability import cronbach_alpha
 from scalewright.specify import build_layout
 from scalewright.standardize import Standardized, standardize
@@ -130,16 +133,14 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         mats = estimate.matrices()
         std = standardize(mats)
         indices = ordinal_fit_indices(fit)
-        reliability = mixed_reliability(layout, mats, std, moments, x)
+        reliability = mixed_reliability(layout, mats, std, moments)
     warnings = model_warnings(estimate, std)
     if moments.smoothed:
         warnings.append(moments.smoothing_note + " The model itself was fitted to the pairwise "
                         "estimates as they are (DWLS never inverts the matrix); the smoothed "
                         "matrix gave only the start values.")
-    ordinal_columns = x[:, np.flatnonzero(ordinal)]
     sparse = [] if collapse_sparse else sparse_category_notes(
-        SimpleNamespace(items=moments.ordinal_items, categories=moments.categories),
-        ordinal_columns, min_count)
+        moments.ordinal_items, moments.categories, moments.codes, min_count)
     extra = {
         "thresholds": {it: t.tolist() for it, t in zip(moments.ordinal_items, moments.thresholds)},
         "missing_handling": "pairwise",
@@ -182,21 +183,22 @@ def _notes(moments: MixedMoments, x: np.ndarray, empty_rows: int) -> list[str]:
     return notes
 
 
-def mixed_reliability(layout: Layout, mats: Matrices, std: Standardized, moments: MixedMoments,
-                      x: np.ndarray) -> dict:
+def mixed_reliability(layout: Layout, mats: Matrices, std: Standardized,
+                      moments: MixedMoments) -> dict:
     """``reliability_ordinal``, ``reliability_continuous`` and ``reliability_notes``
     of every first-order construct (rules in the module docstring).
 
     For an all-ordinal construct the observed sum-score variance of
     categorical omega's ``omega_total_observed`` is that of the category
-    ranks (0, 1, …) summed over its items, from the rows that answered all
-    of them, as on the ordinal route.  Θ is already standardized because
+    ranks (0, 1, …, of the categories as analysed, after any collapsing)
+    summed over its items, from the rows that answered all of them, as on
+    the ordinal route.  Θ is already standardized because
     ``diag Σ = 1``.
     """
     row = {it: i for i, it in enumerate(layout.items)}
     is_ordinal = dict(zip(moments.items, moments.ordinal))
     thresholds = dict(zip(moments.ordinal_items, moments.thresholds))
-    categories = dict(zip(moments.ordinal_items, moments.categories))
+    code_column = {it: k for k, it in enumerate(moments.ordinal_items)}
     all_thresholds = [thresholds.get(it, np.empty(0)).tolist() for it in layout.items]
     out = {"reliability_ordinal": [], "reliability_continuous": [], "reliability_notes": []}
     for f, (factor, kind) in enumerate(zip(layout.factors, layout.kinds)):
@@ -207,13 +209,11 @@ def mixed_reliability(layout: Layout, mats: Matrices, std: Standardized, moments
         corr = moments.raw_correlations[np.ix_(rows, rows)]
         kinds = {is_ordinal[it] for it in its}
         if kinds == {True}:
-            ranks = np.column_stack([np.searchsorted(categories[it], x[:, row[it]]) for it in its])
-            complete = ~np.isnan(x[:, rows]).any(axis=1)
-            sums = ranks[complete].sum(axis=1)
+            codes = moments.codes[:, [code_column[it] for it in its]]
             omega = categorical_omega(
                 std.loadings, std.latent_correlations, mats.residuals, all_thresholds, rows, f,
                 item_names=its, construct=factor,
-                observed_sum_variance=float(np.var(sums, ddof=1)) if sums.size > 1 else None)
+                observed_sum_variance=observed_sum_variance(codes))
             out["reliability_ordinal"].append(
                 {"ordinal_alpha": ordinal_alpha(corr) if len(rows) > 1 else None,
                  **omega.to_dict()})

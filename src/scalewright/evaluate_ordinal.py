@@ -63,7 +63,11 @@ from scalewright.indices import (
 )
 from scalewright.layout import CONSTRUCT, Layout, Matrices
 from scalewright.modelresult import ModelResult
-from scalewright.ordinal_reliability import categorical_omega, ordinal_alpha
+from scalewright.ordinal_reliability import (
+    categorical_omega,
+    observed_sum_variance,
+    ordinal_alpha,
+)
 from scalewright.specify import build_layout
 from scalewright.standardize import Standardized, standardize
 
@@ -187,7 +191,7 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
         mats = estimate.matrices()
         std = standardize(mats)
         indices = ordinal_fit_indices(fit)
-        reliability = ordinal_reliability(layout, mats, std, moments, x)
+        reliability = ordinal_reliability(layout, mats, std, moments)
     warnings = model_warnings(estimate, std)
     if moments.smoothed:
         warnings.append(moments.smoothing_note + " The model itself was fitted to the pairwise "
@@ -197,7 +201,8 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
         "thresholds": {it: t.tolist() for it, t in zip(moments.items, moments.thresholds)},
         "missing_handling": "pairwise",
         "ordinal_notes": _notes(moments, x, int((~answered).sum()))
-        + ([] if collapse_sparse else sparse_category_notes(moments, x, min_count)),
+        + ([] if collapse_sparse else sparse_category_notes(moments.items, moments.categories,
+                                                            moments.codes, min_count)),
         "polychoric": {"items": list(moments.items),
                        "correlations": moments.raw_correlations.tolist(),
                        "correlation_se": moments.correlation_se.tolist(),
@@ -241,12 +246,15 @@ def _notes(moments: OrdinalMoments, x: np.ndarray, empty_rows: int) -> list[str]
     return notes
 
 
-def sparse_category_notes(moments: OrdinalMoments, x: np.ndarray, min_count: int) -> list[str]:
+def sparse_category_notes(items: Sequence[str], categories: Sequence[np.ndarray],
+                          codes: np.ndarray, min_count: int) -> list[str]:
     """One sentence per item with a category used fewer than ``min_count``
-    times (five: common practice, no source), offering to merge it."""
+    times (five: common practice, no source), offering to merge it.
+    ``categories`` and ``codes`` are those of the moments (the categories
+    as analysed, :attr:`OrdinalMoments.codes`)."""
     out = []
-    for j, (item, cats) in enumerate(zip(moments.items, moments.categories)):
-        counts = np.sum(x[:, j][:, None] == cats[None, :], axis=0)
+    for j, (item, cats) in enumerate(zip(items, categories)):
+        counts = np.bincount(codes[codes[:, j] >= 0, j], minlength=cats.size)
         sparse = np.flatnonzero(counts < min_count)
         if sparse.size:
             listed = ", ".join(f"{cats[k]:g} ({counts[k]} answer{'' if counts[k] == 1 else 's'})"
@@ -259,7 +267,7 @@ def sparse_category_notes(moments: OrdinalMoments, x: np.ndarray, min_count: int
 
 
 def ordinal_reliability(layout: Layout, mats: Matrices, std: Standardized,
-                        moments: OrdinalMoments, x: np.ndarray) -> list[dict]:
+                        moments: OrdinalMoments) -> list[dict]:
     """Ordinal alpha (Zumbo, Gadermann & Zeisser 2007) and categorical omega
     (Green & Yang 2009) of every first-order construct.
 
@@ -268,28 +276,22 @@ def ordinal_reliability(layout: Layout, mats: Matrices, std: Standardized,
     correlations, residual covariances ``Θ``, which are already standardized
     because ``diag Σ = 1``) and the thresholds.  The observed sum-score
     variance for ``omega_total_observed`` is that of the category ranks
-    (0, 1, …) summed over the construct's items, from the rows that answered
-    all of them.
+    (0, 1, …, of the categories as analysed, after any collapsing) summed
+    over the construct's items, from the rows that answered all of them
+    (:func:`~scalewright.ordinal_reliability.observed_sum_variance`).
     """
     row = {it: i for i, it in enumerate(layout.items)}
-    ranks = np.full(x.shape, np.nan)
-    for j, cats in enumerate(moments.categories):
-        seen = ~np.isnan(x[:, j])
-        ranks[seen, j] = np.searchsorted(cats, x[seen, j])
     out = []
     for f, (factor, kind) in enumerate(zip(layout.factors, layout.kinds)):
         if kind != CONSTRUCT:
             continue
         its = [it for it in layout.items if layout.primary.get(it) == factor]
         rows = [row[it] for it in its]
-        sums = ranks[:, rows]
-        sums = sums[~np.isnan(sums).any(axis=1)].sum(axis=1)
         alpha = ordinal_alpha(moments.raw_correlations[np.ix_(rows, rows)]) \
             if len(rows) > 1 else None
         omega = categorical_omega(
             std.loadings, std.latent_correlations, mats.residuals,
             [t.tolist() for t in moments.thresholds], rows, f, item_names=its,
-            construct=factor,
-            observed_sum_variance=float(np.var(sums, ddof=1)) if sums.size > 1 else None)
+            construct=factor, observed_sum_variance=observed_sum_variance(moments.codes[:, rows]))
         out.append({"ordinal_alpha": alpha, **omega.to_dict()})
     return out

@@ -91,6 +91,23 @@ def ordinal_score_covariance(thresholds: np.ndarray, latent_corr: np.ndarray) ->
     return np.sum(np.where(present, joint - product, 0.0), axis=(2, 3))
 
 
+def observed_sum_variance(codes: np.ndarray) -> float | None:
+    """Sample variance (÷ n − 1) of the observed ordinal sum score.
+
+    Each item scores the rank 0, 1, …, K − 1 of its category *as analysed*
+    (``codes`` of :class:`~scalewright.estimate.polychoric.OrdinalMoments`),
+    which is the number of thresholds its latent response exceeds, the item
+    score of categorical omega (Green & Yang 2009); a category merged into
+    a neighbour scores as that neighbour.  The sum is taken over the rows
+    that answered every item (code −1 marks a missing answer).
+
+    Returns None with fewer than two such rows.
+    """
+    codes = np.asarray(codes)
+    sums = codes[(codes >= 0).all(axis=1)].sum(axis=1)
+    return float(np.var(sums, ddof=1)) if sums.size > 1 else None
+
+
 @dataclass(frozen=True)
 class CategoricalOmegaResult(Record):
     """Categorical omega of one construct's observed ordinal sum score.

@@ -68,7 +68,7 @@ import numpy as np
 from scalewright.errors import ScalewrightWarning, StudyError
 from scalewright.estimate.polychoric import (
     MIN_PAIR_ROWS,
-    collapse_sparse_categories,
+    collapse_sparse_columns,
     ordinal_moments,
     smooth_correlations,
 )
@@ -93,6 +93,10 @@ class MixedMoments:
         Whether each item is ordinal (else continuous).
     categories, thresholds : tuples of ndarray
         Answer values and thresholds of the ordinal items, in item order.
+    codes : ndarray of int (n, number of ordinal items)
+        The category of every ordinal answer as analysed, after any
+        collapsing (as ``OrdinalMoments.codes``: position in its
+        ``categories``, -1 for a missing answer).
     means, sds : ndarray
         Mean and ÷ n standard deviation of the continuous items, in item order.
     correlations : ndarray (p, p)
@@ -116,6 +120,7 @@ class MixedMoments:
     items: tuple[str, ...]
     ordinal: tuple[bool, ...]
     categories: tuple[np.ndarray, ...]
+    codes: np.ndarray = field(repr=False)
     thresholds: tuple[np.ndarray, ...]
     means: np.ndarray
     sds: np.ndarray
@@ -217,15 +222,12 @@ def mixed_moments(data: np.ndarray, items, ordinal, *, scales=None, collapse_spa
     o_idx, c_idx = np.flatnonzero(ordinal), np.flatnonzero(~ordinal)
     names_o, names_c = [items[j] for j in o_idx], [items[j] for j in c_idx]
 
-    columns, notes = [], []
-    for j in o_idx:
-        x, note = (collapse_sparse_categories(data[:, j], min_count, item=items[j],
-                                              scale=scales[j]) if collapse_sparse
-                   else (data[:, j], ""))
-        columns.append(x)
-        notes.append(note)
-    part = _ordinal_part(np.column_stack(columns) if columns else np.empty((n, 0)), names_o,
-                         None if collapse_sparse else [scales[j] for j in o_idx])
+    answers, notes = data[:, o_idx], ()
+    if collapse_sparse:
+        answers, notes = collapse_sparse_columns(answers, names_o,
+                                                 scales=[scales[j] for j in o_idx],
+                                                 min_count=min_count)
+    part = _ordinal_part(answers, names_o, None if collapse_sparse else [scales[j] for j in o_idx])
     n_thresholds = sum(tau.size for tau in part.thresholds)
     margins = continuous_margins(data[:, c_idx], names_c)
 
@@ -250,8 +252,9 @@ def mixed_moments(data: np.ndarray, items, ordinal, *, scales=None, collapse_spa
     if mixed.any():
         cont = np.repeat(np.arange(c_idx.size), o_idx.size)
         ordi = np.tile(np.arange(o_idx.size), c_idx.size)
-        pairs = polyserial_pairs(margins.z, part.codes, part.bounds, margins.n_obs, cont, ordi,
-                                 names_c, names_o)
+        k_max = part.bounds.shape[1] - 1
+        pairs = polyserial_pairs(margins.z, np.where(part.codes < 0, k_max, part.codes),
+                                 part.bounds, margins.n_obs, cont, ordi, names_c, names_o)
         c_item = np.where(ordinal[jj], ll, jj)[mixed]
         o_item = np.where(ordinal[jj], jj, ll)[mixed]
         pos = rank[c_item] * o_idx.size + rank[o_item]
@@ -268,15 +271,16 @@ def mixed_moments(data: np.ndarray, items, ordinal, *, scales=None, collapse_spa
         warnings.warn(note, ScalewrightWarning, stacklevel=2)
     return MixedMoments(
         items=items, ordinal=tuple(bool(o) for o in ordinal), categories=part.categories,
-        thresholds=part.thresholds, means=margins.mean, sds=margins.sd, correlations=smoothed,
-        raw_correlations=raw, n_rows=n, n_pairs=n_pairs, acov=influence.T @ influence / n ** 2,
-        influence=influence, smoothed=bool(note), smoothing_note=note,
-        collapse_notes=tuple(nt for nt in notes if nt))
+        codes=part.codes, thresholds=part.thresholds, means=margins.mean, sds=margins.sd,
+        correlations=smoothed, raw_correlations=raw, n_rows=n, n_pairs=n_pairs,
+        acov=influence.T @ influence / n ** 2, influence=influence, smoothed=bool(note),
+        smoothing_note=note, collapse_notes=notes)
 
 
 @dataclass(frozen=True)
 class _OrdinalPart:
-    """The ordinal items' share of the moments, with what the polyserial pairs need."""
+    """The ordinal items' share of the moments, with what the polyserial pairs need
+    (``codes`` as ``OrdinalMoments.codes``, -1 for a missing answer)."""
 
     categories: tuple
     thresholds: tuple
@@ -288,7 +292,7 @@ class _OrdinalPart:
 
 def _ordinal_part(x: np.ndarray, names, scales) -> _OrdinalPart:
     """Thresholds, polychoric correlations and influence of the ordinal columns,
-    with their category codes (``k_max`` for missing) and padded bounds.
+    with their category codes and padded bounds.
 
     The polychoric module's own smoothing note is dropped here: it is about
     the ordinal block only, and the whole mixed matrix is smoothed (and
@@ -305,16 +309,12 @@ def _ordinal_part(x: np.ndarray, names, scales) -> _OrdinalPart:
         if str(w.message) != moments.smoothing_note:
             warnings.warn(w.message, stacklevel=3)
     k_max = max(c.size for c in moments.categories)
-    codes = np.full(x.shape, k_max, dtype=np.intp)
-    seen = ~np.isnan(x)
-    for j, cats in enumerate(moments.categories):
-        codes[seen[:, j], j] = np.searchsorted(cats, x[seen[:, j], j])
     bounds = np.full((len(names), k_max + 1), np.inf)
     bounds[:, 0] = -np.inf
     for j, tau in enumerate(moments.thresholds):
         bounds[j, 1:tau.size + 1] = tau
-    return _OrdinalPart(moments.categories, moments.thresholds, codes, bounds, moments.influence,
-                        moments.raw_correlations)
+    return _OrdinalPart(moments.categories, moments.thresholds, moments.codes, bounds,
+                        moments.influence, moments.raw_correlations)
 
 
 def _triu_position(m: int) -> np.ndarray:

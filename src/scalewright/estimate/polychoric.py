@@ -70,6 +70,12 @@ class OrdinalMoments:
         Item names, in column order.
     categories : tuple of numpy.ndarray
         The answer values of each item, ascending (after any collapsing).
+    codes : numpy.ndarray of int, shape (n, p)
+        The category of every answer as analysed: its position 0 .. K_j - 1
+        in ``categories[j]`` after any collapsing, -1 for a missing answer.
+        Whatever later reads an item's categories (sum-score ranks, category
+        counts) reads these, not the raw answers, in which a merged
+        category still has its own value.
     thresholds : tuple of numpy.ndarray
         tau_j,c = Phi^-1(proportion of answers at or below category c) for
         c = 1 .. K_j - 1 (K_j categories give K_j - 1 thresholds).
@@ -106,6 +112,7 @@ class OrdinalMoments:
 
     items: tuple[str, ...]
     categories: tuple[np.ndarray, ...]
+    codes: np.ndarray = field(repr=False)
     thresholds: tuple[np.ndarray, ...]
     correlations: np.ndarray
     raw_correlations: np.ndarray
@@ -290,6 +297,41 @@ def collapse_sparse_categories(
     return recoded, note
 
 
+def collapse_sparse_columns(
+    data: np.ndarray, items, *, scales=None, min_count: int = 5
+) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Every column of ``data`` through :func:`collapse_sparse_categories`.
+
+    The one place where the model file's ``collapse_sparse: true`` recodes
+    answers, so that the moments and everything fitted or computed from the
+    same answers afterwards see the same categories.
+
+    Parameters
+    ----------
+    data : numpy.ndarray, shape (n, p)
+        Whole-number answer codes of ordinal items, NaN for missing.
+    items : sequence of str
+        The p item names.
+    scales : sequence of (int, int) or None, optional
+        Declared response range of each item (None for an item without one).
+    min_count : int
+        See ``collapse_sparse_categories``.
+
+    Returns
+    -------
+    recoded : numpy.ndarray, shape (n, p)
+        A new array: merged answers take their neighbour's value.
+    notes : tuple of str
+        One sentence per item whose categories were merged.
+    """
+    data = np.asarray(data, dtype=float)
+    scales = [None] * data.shape[1] if scales is None else list(scales)
+    merged = [collapse_sparse_categories(data[:, j], min_count, item=name, scale=scales[j])
+              for j, name in enumerate(items)]
+    recoded = np.column_stack([x for x, _ in merged]) if merged else data.copy()
+    return recoded, tuple(note for _, note in merged if note)
+
+
 def ordinal_moments(
     data: np.ndarray,
     items: tuple[str, ...],
@@ -377,23 +419,18 @@ def ordinal_moments(
     n, p = data.shape
     scales = [None] * p if scales is None else list(scales)
 
-    notes = []
-    columns = []
-    for j, name in enumerate(items):
-        x = data[:, j]
-        if collapse_sparse:
-            x, note = collapse_sparse_categories(x, min_count, item=name, scale=scales[j])
-            notes.append(note)
-        columns.append(x)
+    notes = ()
+    if collapse_sparse:
+        data, notes = collapse_sparse_columns(data, items, scales=scales, min_count=min_count)
     cats, taus = zip(
         *(
-            thresholds(x, item=name, scale=None if collapse_sparse else scale)
-            for x, name, scale in zip(columns, items, scales)
+            thresholds(data[:, j], item=name, scale=None if collapse_sparse else scales[j])
+            for j, name in enumerate(items)
         )
     )
 
     k_max = max(c.size for c in cats)
-    codes = np.stack([_codes(x, c, k_max) for x, c in zip(columns, cats)], axis=1)
+    codes = np.stack([_codes(data[:, j], c, k_max) for j, c in enumerate(cats)], axis=1)
     tables, n_pairs = _pair_tables(codes, k_max)
     jj, ll = np.triu_indices(p, 1)
     _require_pair_rows(n_pairs[jj, ll], jj, ll, items)
@@ -415,6 +452,7 @@ def ordinal_moments(
     return OrdinalMoments(
         items=items,
         categories=tuple(cats),
+        codes=np.where(codes == k_max, -1, codes),
         thresholds=tuple(taus),
         correlations=smoothed_corr,
         raw_correlations=raw,
@@ -424,7 +462,7 @@ def ordinal_moments(
         influence=influence,
         smoothed=bool(note),
         smoothing_note=note,
-        collapse_notes=tuple(nt for nt in notes if nt),
+        collapse_notes=notes,
     )
 
 

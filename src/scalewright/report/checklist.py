@@ -54,6 +54,7 @@ def checklist_rows(report: dict) -> list[dict]:
     missing = data.get("missing")
     polychoric = [m["name"] for m in models if m.get("polychoric")]
     mixed = [m["name"] for m in models if m.get("correlations_mixed")]
+    by_kind = bool(keys & {"reliability_ordinal", "reliability_continuous"})
     reasons = (report.get("method") or {}).get("reasons")
     out = [
         _user(1, "Rationale for the proposed structure", rationale, design,
@@ -139,9 +140,12 @@ def checklist_rows(report: dict) -> list[dict]:
                                      if any(t.get("df") == 0 for t in
                                             comparison.get("nested_tests", ())) else "")),
         _row(27, "Reliability of every scored subscale: omega and alpha with an interval",
-             SHOWN if "reliability" in keys else NOT_COMPUTED,
+             SHOWN if "reliability" in keys else PARTLY if by_kind else NOT_COMPUTED,
              f"{per_model}: alpha and omega with 95% intervals, H, and the item analysis"
-             if "reliability" in keys else "not computed in this run"),
+             if "reliability" in keys else
+             f"{per_model}: ordinal alpha and categorical omega, or alpha and omega of the "
+             "standardized items, by the kind of each construct's items; no intervals"
+             if by_kind else "not computed in this run"),
         _row(28, "Evidence that subscales are distinct",
              SHOWN if "validity" in keys else NOT_COMPUTED,
              f"{per_model}: AVE, Fornell–Larcker comparison and HTMT" if "validity" in keys

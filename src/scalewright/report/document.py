@@ -43,6 +43,8 @@ _GROUP = {
     "residuals": "Item parameters", "residual_covariances": "Item parameters",
     "thresholds": "Item parameters",
     "reliability": "Reliability and distinctness", "item_analysis": "Reliability and distinctness",
+    "reliability_ordinal": "Reliability and distinctness",
+    "reliability_continuous": "Reliability and distinctness",
     "validity": "Reliability and distinctness", "fornell_larcker": "Reliability and distinctness",
     "htmt": "Reliability and distinctness", "bifactor": "Reliability and distinctness",
     "higher_order": "Reliability and distinctness",
@@ -179,6 +181,8 @@ def _model(doc: Document, m: dict, index: int) -> None:
         + (f" after {opt['iterations']} iterations" if opt.get("iterations") is not None else "")
         + f"; N = {count(m.get('n_used'))}; {m['fit'].get('df')} degrees of freedom. "
         + " ".join(m.get("identification", ())))
+    for note in m.get("ordinal_notes") or ():
+        s.p(note)
     if m.get("warnings"):
         s.blocks.append({"type": "warnings", "items": list(m["warnings"])})
     doc.figure(s, path_diagram(m, f"fig-m{index}"),

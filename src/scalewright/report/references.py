@@ -17,6 +17,8 @@ CITATIONS = {
     "arbuckle": "Arbuckle, J. L. (1996). Full information estimation in the presence of "
                 "incomplete data. In G. A. Marcoulides & R. E. Schumacker (Eds.), Advanced "
                 "structural equation modeling (pp. 243–277). Erlbaum.",
+    "asparouhov_muthen2010": "Asparouhov, T., & Muthén, B. (2010). Simple second order "
+                             "chi-square correction (Technical appendix).",
     "bentler1990": "Bentler, P. M. (1990). Comparative fit indexes in structural models. "
                    "Psychological Bulletin, 107, 238–246.",
     "brosseau": "Brosseau-Liard, P. E., & Savalei, V. (2014). Adjusting incremental fit "
@@ -79,6 +81,10 @@ CITATIONS = {
     "muthen": "Muthén, B. (1984). A general structural equation model with dichotomous, "
               "ordered categorical, and continuous latent variable indicators. Psychometrika, "
               "49, 115–132.",
+    "muthen_du_toit_spisic": "Muthén, B., du Toit, S. H. C., & Spisic, D. (1997). Robust "
+                             "inference using weighted least squares and quadratic estimating "
+                             "equations in latent variable modeling with categorical and "
+                             "continuous outcomes. Unpublished technical report.",
     "nunnally": "Nunnally, J. C., & Bernstein, I. H. (1994). Psychometric theory (3rd ed.). "
                 "McGraw-Hill.",
     "olsson": "Olsson, U. (1979). Maximum likelihood estimation of the polychoric correlation "
@@ -146,7 +152,8 @@ CITATIONS = {
 #: author and year by which a citation is recognised in a sentence the report shows from the dict
 CUES = {
     "arbuckle": ("Arbuckle", 1996), "curran": ("Curran", 1996), "little": ("Little", 1988),
-    "olsson_drasgow_dorans": ("Drasgow", 1982),
+    "olsson_drasgow_dorans": ("Drasgow", 1982), "olsson": ("Olsson", 1979),
+    "muthen_du_toit_spisic": ("Spisic", 1997), "asparouhov_muthen2010": ("Asparouhov", 2010),
     "mardia": ("Mardia", 1970), "mardia1974": ("Mardia", 1974), "rhemtulla": ("Rhemtulla", 2012), "rubin": ("Rubin", 1976),
     "satorra_bentler1994": ("Satorra", 1994), "yuan_bentler": ("Yuan", 2000),
 }
@@ -199,6 +206,10 @@ def references_used(report: dict) -> list[str]:
         keys |= {"olsson", "muthen", "zumbo", "green_yang"}
     if "correlations_mixed" in present:
         keys.add("olsson_drasgow_dorans")
+    if "reliability_ordinal" in present:
+        keys |= {"zumbo", "green_yang", "nunnally"}
+    if "reliability_continuous" in present:
+        keys |= {"cronbach", "mcdonald", "nunnally"}
     if any("chi_square_scaled" in m.get("fit", {}) for m in report.get("models", ())):
         keys |= {"satorra_bentler1994", "brosseau"}
     estimators = _estimators(report)
@@ -214,6 +225,7 @@ def references_used(report: dict) -> list[str]:
     if data.get("missing_handling") in ("full-information", "listwise", "pairwise"):
         keys.add("rubin")
     keys |= cited_in((report.get("method") or {}).get("reasons", ()))
+    keys |= cited_in(n for m in report.get("models", ()) for n in m.get("ordinal_notes") or ())
     if report.get("invariance"):
         keys |= {"cheung_rensvold", "chen"}
     if (report.get("invariance_setup") or {}).get("ordinal_identification"):

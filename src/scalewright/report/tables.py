@@ -338,13 +338,24 @@ def _messages(notes) -> list[str]:
                               for n in notes or ()))
 
 
+def _alone_differs(rows, total: str) -> bool:
+    """Whether any construct's omega due to the construct alone differs, as
+    shown, from its omega ``total`` (a general factor or cross-loadings take a share)."""
+    return any(coef(r.get("omega_construct"), 2) != coef(r.get(total), 2) for r in rows)
+
+
+def _reliability_minimum_note(coefficient: str) -> str:
+    return (f"{MEETS}/{MISSES}: {coefficient} at least / below {coef(RELIABILITY_MINIMUM, 2)}, a "
+            f"common minimum for research use ({RELIABILITY_SOURCE}); decisions about "
+            "individuals need more.")
+
+
 def reliability_table(m: dict, prefix: str) -> Table:
     """Per construct: alpha and omega, each with its 95% interval, and H; the
     part of omega due to the construct alone where a general factor makes it
     differ from omega; the notes the reliability keys carry are the table's notes."""
     rows = []
-    alone = any(coef(r.get("omega_construct"), 2) != coef(r.get("omega"), 2)
-                for r in m["reliability"])
+    alone = _alone_differs(m["reliability"], "omega")
     for r in m["reliability"]:
         omega = r.get("omega")
         rows.append((_h(r["construct"]), _c(count(r.get("n_items"))),
@@ -356,9 +367,7 @@ def reliability_table(m: dict, prefix: str) -> Table:
     notes = [f"Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
              f"omega total from the fitted model (McDonald 1999) with a delta-method interval on "
              f"the logit scale; "
-             f"coefficient H (Hancock & Mueller 2001). {MEETS}/{MISSES}: omega at least / below "
-             f"{coef(RELIABILITY_MINIMUM, 2)}, a common minimum for research use "
-             f"({RELIABILITY_SOURCE}); decisions about individuals need more."]
+             "coefficient H (Hancock & Mueller 2001). " + _reliability_minimum_note("omega")]
     if alone:
         notes.append("Omega, construct alone: the part of omega due to the construct itself, "
                      "without the general factor its items also load on.")
@@ -367,6 +376,69 @@ def reliability_table(m: dict, prefix: str) -> Table:
                  ("Construct", "Items", "Alpha [95% CI]", "Omega [95% CI]")
                  + (("Omega, construct alone",) if alone else ()) + ("H",), tuple(rows),
                  tuple(notes))
+
+
+def ordinal_reliability_table(m: dict, prefix: str) -> Table:
+    """Per construct whose items are all ordinal (``reliability_ordinal``):
+    ordinal alpha; categorical omega, marked at the conventional minimum; the
+    part due to the construct alone where it differs; categorical omega over
+    the observed sum-score variance.  The notes the rows carry are the
+    table's notes."""
+    rows = []
+    alone = _alone_differs(m["reliability_ordinal"], "omega_total")
+    for r in m["reliability_ordinal"]:
+        omega = r.get("omega_total")
+        rows.append((_h(r["construct"]), _c(count(len(r.get("items") or ()))),
+                     _c(coef(r.get("ordinal_alpha"), 2)),
+                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
+                             coef(omega, 2)))
+                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
+                    + (_c(coef(r.get("omega_total_observed"), 2)),))
+    notes = ["Ordinal alpha: alpha of the polychoric correlations (Zumbo, Gadermann & Zeisser "
+             "2007), the reliability of the sum of the items' latent responses, not of the "
+             "observed sum score. Categorical omega: the reliability of the observed sum of "
+             "category scores (0, 1, … per item, merged categories counted as the category "
+             "they were merged into) from the fitted model (Green & Yang 2009); with the "
+             "observed variance, the same true-score variance over the sample variance of the "
+             "sum score of the rows that answered every item of the construct. "
+             + _reliability_minimum_note("categorical omega")]
+    if alone:
+        notes.append("Categorical omega, construct alone: the part due to the construct "
+                     "itself, without the other factors its items load on.")
+    notes += _messages(n for r in m["reliability_ordinal"] for n in r.get("notes") or ())
+    return Table(f"{prefix}-reliability-ordinal",
+                 f"Reliability of the constructs measured by ordinal items in ‘{m['name']}’",
+                 ("Construct", "Items", "Ordinal alpha", "Categorical omega")
+                 + (("Categorical omega, construct alone",) if alone else ())
+                 + ("Categorical omega, observed variance",), tuple(rows), tuple(notes))
+
+
+def continuous_reliability_table(m: dict, prefix: str) -> Table:
+    """Per construct whose items are all continuous in a model fitted to
+    correlations (``reliability_continuous``): alpha of the standardized
+    items and omega, marked at the conventional minimum, with the part due to
+    the construct alone where it differs; the rows' notes are the table's."""
+    rows = []
+    alone = _alone_differs(m["reliability_continuous"], "omega_total")
+    for r in m["reliability_continuous"]:
+        omega = r.get("omega_total")
+        rows.append((_h(r["construct"]), _c(count(len(r.get("items") or ()))),
+                     _c(coef(r.get("alpha_standardized"), 2)),
+                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
+                             coef(omega, 2)))
+                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ()))
+    notes = ["The model was fitted to correlations, so these coefficients are those of the sum "
+             "of standardized item scores: alpha of the items' Pearson correlations (Cronbach "
+             "1951) and omega total from the standardized solution (McDonald 1999). "
+             + _reliability_minimum_note("omega")]
+    if alone:
+        notes.append("Omega, construct alone: the part of omega due to the construct itself, "
+                     "without the other factors its items load on.")
+    notes += _messages(n for r in m["reliability_continuous"] for n in r.get("notes") or ())
+    return Table(f"{prefix}-reliability-continuous",
+                 f"Reliability of the constructs measured by continuous items in ‘{m['name']}’",
+                 ("Construct", "Items", "Alpha, standardized items", "Omega")
+                 + (("Omega, construct alone",) if alone else ()), tuple(rows), tuple(notes))
 
 
 def item_analysis_table(m: dict, prefix: str) -> Table:
@@ -579,6 +651,10 @@ def model_tables(m: dict, index: int, standard_errors: str = "") -> dict[str, Ta
         out["reliability"] = reliability_table(m, prefix)
         if any(r.get("items") for r in m["reliability"]):
             out["item_analysis"] = item_analysis_table(m, prefix)
+    if m.get("reliability_ordinal"):
+        out["reliability_ordinal"] = ordinal_reliability_table(m, prefix)
+    if m.get("reliability_continuous"):
+        out["reliability_continuous"] = continuous_reliability_table(m, prefix)
     if m.get("validity"):
         validity = m["validity"]
         out["validity"] = validity_table(m, prefix)
