@@ -7,6 +7,10 @@
 
 __version__ = "0.1.0"
 
+from scalewright.allocator import keep_arrays_on_heap  # noqa: E402
+
+keep_arrays_on_heap()
+
 from scalewright.errors import (ConvergenceWarning, IdentificationWarning,  # noqa: E402
                                 ImproperSolutionWarning, ScalewrightWarning, StudyError)
 from scalewright.api import CheckResult, check  # noqa: E402
