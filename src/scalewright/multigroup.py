@@ -80,16 +80,16 @@ from scipy import linalg
 from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline_yuan_bentler,
-                                       missing_patterns, pattern_moments, saturated_em,
-                                       saturated_information, saturated_scores_gram,
-                                       yuan_bentler)
+                                       missing_patterns, pattern_jacobian, pattern_moments,
+                                       saturated_em, saturated_information,
+                                       saturated_scores_gram, yuan_bentler)
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
-from scalewright.estimate.robust import RobustML, RobustTest, incidence, robust_fit_indices
+from scalewright.estimate.robust import RobustML, RobustTest, robust_fit_indices
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
                                  saturated_loglik)
 from scalewright.layout import (FACTOR_COV, INTERCEPT, LATENT_MEAN, LOADING, PATH,
-                                RESIDUAL_COV, Cells, Layout, Param, Pattern, cell_derivatives)
+                                RESIDUAL_COV, Cells, Layout, Param, Pattern)
 from scalewright.specify import MARKER, build_layout
 
 CONFIGURAL, METRIC, SCALAR, STRICT = "configural", "metric", "scalar", "strict"
@@ -374,14 +374,6 @@ def fit_multigroup(layout: Layout, moments: GroupMoments,
     return GroupFit(layout, estimate, fit, objective, moments.ns, corrected, indices)
 
 
-def _group_jacobian(pattern: Pattern, theta: np.ndarray, n_params: int) -> np.ndarray:
-    """``Δ_g = ∂(vech Σ_g, μ_g)/∂θ`` of one group from the rank-two cell derivatives."""
-    a, b, d_mu = cell_derivatives(pattern, pattern.matrices(theta))
-    rows, cols = np.tril_indices(pattern.p)
-    d_sigma = a[rows] * b[cols] + b[rows] * a[cols]
-    return np.vstack([d_sigma, d_mu]) @ incidence(pattern, n_params)
-
-
 def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_square: float,
                 df: int) -> RobustML:
     """Scaled statistics and sandwich covariance of a multi-group model.
@@ -428,7 +420,7 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
                                     mats.implied_cov)
         a_blocks.append(weights[g] * a_g)
         b_blocks.append(weights[g] * b_g)
-        deltas.append(_group_jacobian(pattern, theta, layout.n_params))
+        deltas.append(pattern_jacobian(pattern, theta, layout.n_params))
     a_beta, b_beta, delta = linalg.block_diag(*a_blocks), linalg.block_diag(*b_blocks), \
         np.vstack(deltas)
     first = delta.T @ a_beta @ delta

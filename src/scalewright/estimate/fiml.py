@@ -80,7 +80,7 @@ from scalewright.errors import StudyError
 from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
-from scalewright.layout import INTERCEPT, Cells, Layout, Param, cell_derivatives
+from scalewright.layout import INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives
 
 #: rows per chunk when casewise quantities are accumulated
 CHUNK = 4096
@@ -397,14 +397,13 @@ def _reduce_pairs(h: np.ndarray, p: int, axis: int) -> np.ndarray:
     return h1 + h2 * off.reshape(shape)
 
 
-def model_jacobian(layout: Layout, theta: np.ndarray) -> np.ndarray:
-    """``Δ = ∂(vech Σ, μ)/∂θ`` (``p* + p`` by ``q``) from the rank-two cell derivatives."""
-    pattern = layout.patterns[0]
-    mats = pattern.matrices(theta)
-    a, b, d_mu = cell_derivatives(pattern, mats)
-    rows, cols, _ = _vech_index(layout.p)
+def pattern_jacobian(pattern: Pattern, theta: np.ndarray, n_params: int) -> np.ndarray:
+    """``Δ = ∂(vech Σ, μ)/∂θ`` (``p* + p`` by ``q``) of one group's pattern from
+    the rank-two cell derivatives (``q = n_params``, the whole layout's)."""
+    a, b, d_mu = cell_derivatives(pattern, pattern.matrices(theta))
+    rows, cols, _ = _vech_index(pattern.p)
     d_sigma = a[rows] * b[cols] + b[rows] * a[cols]
-    return np.vstack([d_sigma, d_mu]) @ incidence(pattern, layout.n_params)
+    return np.vstack([d_sigma, d_mu]) @ incidence(pattern, n_params)
 
 
 def saturated_information(moments: PatternMoments, mu: np.ndarray, sigma: np.ndarray,
@@ -454,20 +453,20 @@ def saturated_scores_gram(values: np.ndarray, patterns: Patterns, mu: np.ndarray
     return gram / len(rows_used)
 
 
-def _second_order_term(layout: Layout, theta: np.ndarray, grad_sigma: np.ndarray,
-                       grad_mu: np.ndarray) -> np.ndarray:
-    """Hessian of ``φ(θ) = Σ_jk G_jk Σ_jk(θ) + gᵀμ(θ)`` (G, g fixed) by central
-    differences of its analytic gradient ``2aᵀGb + gᵀ∂μ`` per cell.  Σ(θ) and
-    μ(θ) are low-degree polynomials, so the differences are accurate to
-    rounding; the term vanishes at a model that fits exactly."""
-    pattern = layout.patterns[0]
-    inc = incidence(pattern, layout.n_params)
+def _second_order_term(pattern: Pattern, n_params: int, theta: np.ndarray,
+                       grad_sigma: np.ndarray, grad_mu: np.ndarray) -> np.ndarray:
+    """Hessian of ``φ(θ) = Σ_jk G_jk Σ_jk(θ) + gᵀμ(θ)`` (G, g fixed; Σ, μ of
+    ``pattern``) by central differences of its analytic gradient
+    ``2aᵀGb + gᵀ∂μ`` per cell.  Σ(θ) and μ(θ) are low-degree polynomials, so
+    the differences are accurate to rounding; the term vanishes at a model
+    that fits exactly."""
+    inc = incidence(pattern, n_params)
 
     def grad(t):
         a, b, d_mu = cell_derivatives(pattern, pattern.matrices(t))
         return (2.0 * np.einsum("ic,ic->c", a, grad_sigma @ b) + grad_mu @ d_mu) @ inc
 
-    q = layout.n_params
+    q = n_params
     steps = 1e-5 * np.maximum(1.0, np.abs(theta))
     cols = [(grad(theta + e) - grad(theta - e)) / (2 * h)
             for e, h in zip(np.diag(steps), steps)]
@@ -487,19 +486,43 @@ class FimlInformation:
     delta: np.ndarray
 
 
+@dataclass(frozen=True)
+class ObservedInformation:
+    """The observed information per case of ``θ`` from one group's answers."""
+
+    observed: np.ndarray        # Ã_θ = A_θ + Σ_k (∂f/∂β_k) ∂²β_k/∂θ∂θᵀ
+    first_order: np.ndarray     # A_θ = ΔᵀA_βΔ
+    a_beta: np.ndarray
+    delta: np.ndarray
+
+
+def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
+                         moments: PatternMoments) -> ObservedInformation:
+    """The exact Hessian per case of ``f = −ℓ/n`` in ``θ`` for the answers of
+    one group (``pattern``, with intercepts; ``moments`` its missing-data
+    patterns): ``Ã_θ = ΔᵀA_βΔ + Σ_k (∂f/∂β_k) ∂²β_k/∂θ∂θᵀ`` with ``A_β``
+    the observed information of ``β = (vech Σ, μ)`` at the implied moments
+    (module docstring).  ``θ`` may be a multi-group layout's parameter
+    vector: the derivatives are taken with respect to all ``n_params`` of it."""
+    mats = pattern.matrices(theta)
+    a_beta, grad_sigma, grad_mu = saturated_information(moments, mats.implied_mean,
+                                                        mats.implied_cov)
+    delta = pattern_jacobian(pattern, theta, n_params)
+    first = delta.T @ a_beta @ delta
+    observed = first + _second_order_term(pattern, n_params, theta, grad_sigma, grad_mu)
+    return ObservedInformation(observed, first, a_beta, delta)
+
+
 def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
                      patterns: Patterns, moments: PatternMoments) -> FimlInformation:
     """Observed information and casewise-score outer products of a FIML fit
     (``layout`` with intercepts, one group)."""
-    mats = layout.patterns[0].matrices(theta)
-    mu, sigma = mats.implied_mean, mats.implied_cov
-    emb = _embedded_inverses(sigma, moments.masks)
-    a_beta, grad_sigma, grad_mu = saturated_information(moments, mu, sigma, emb)
-    b_beta = saturated_scores_gram(values, patterns, mu, sigma, emb)
-    delta = model_jacobian(layout, theta)
-    first = delta.T @ a_beta @ delta
-    observed = first + _second_order_term(layout, theta, grad_sigma, grad_mu)
-    return FimlInformation(observed, first, delta.T @ b_beta @ delta, a_beta, b_beta, delta)
+    pattern = layout.patterns[0]
+    info = observed_information(pattern, layout.n_params, theta, moments)
+    mats = pattern.matrices(theta)
+    b_beta = saturated_scores_gram(values, patterns, mats.implied_mean, mats.implied_cov)
+    return FimlInformation(info.observed, info.first_order, info.delta.T @ b_beta @ info.delta,
+                           info.a_beta, b_beta, info.delta)
 
 
 def observed_acov(info: FimlInformation, n: int) -> np.ndarray:
