@@ -83,6 +83,7 @@ from scipy import stats
 from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.normal import Block, NormalFit, fit_normal
+from scalewright.estimate.result import invert_information
 from scalewright.groups import split_groups
 from scalewright.methods import LISTWISE, ORDINAL, ROBUST, choose_method
 from scalewright.layout import CONSTRUCT, INTERCEPT, LOADING, PATH, Layout, Param
@@ -244,11 +245,13 @@ def score_tests(spec, moments: GroupMoments, constrained: GroupFit, step: str,
     expected information at the constrained estimates (mapped by
     ``θ_full = T θ``) give every test through the conditional information
     ``I_dd − I_dθ I_θθ⁻¹ I_θd`` (see the module docstring), with
-    ``I_θθ⁻¹ = N acov(θ̂)``.
+    ``I_θθ = Tᵀ I T`` the constrained model's expected information.  It is
+    not read from the fit's covariance, which is the inverse of the observed
+    information with missing answers and the sandwich for a robust fit.  No
+    test when ``I_θθ`` is singular.
     """
     candidates = list(candidates)
-    acov = constrained.estimate.acov
-    if not candidates or acov is None:
+    if not candidates:
         return []
     full = build_multigroup_layout(spec, moments, step, released | frozenset(candidates))
     base = {param: k for k, param in enumerate(constrained.layout.params)}
@@ -261,13 +264,18 @@ def score_tests(spec, moments: GroupMoments, constrained: GroupFit, step: str,
     with threadpool_limits(limits=1, user_api="blas"):
         theta_full = constrained.estimate.theta[column]
         _, grad, info = NormalFit(full, moments.blocks).value_grad_info(theta_full)
-        # A = I_full T: sum the information's columns that map to one constrained parameter
+        # A = I_full T: sum the information's columns that map to one constrained parameter,
+        # and Tᵀ A its rows
         a = np.zeros((len(full.params), len(base)))
         np.add.at(a.T, column, info.T)
+        constrained_info = np.zeros((len(base), len(base)))
+        np.add.at(constrained_info, column, a)
+        inverse, _ = invert_information(constrained_info, 1)
+        if inverse is None:
+            return []
         flat = rows.ravel()
         a_d = a[flat]
-        n = constrained.estimate.n
-        cond = info[np.ix_(flat, flat)] - a_d @ (n * acov) @ a_d.T
+        cond = info[np.ix_(flat, flat)] - a_d @ inverse @ a_d.T
     k, g1 = rows.shape
     blocks = cond.reshape(k, g1, k, g1)[np.arange(k), :, np.arange(k), :]   # K × g1 × g1
     g = grad[rows]                                                          # K × g1
@@ -275,7 +283,7 @@ def score_tests(spec, moments: GroupMoments, constrained: GroupFit, step: str,
     ok = np.all(np.diagonal(blocks, axis1=1, axis2=2) > 1e-8 * scale, axis=1)
     stat = np.full(k, np.nan)
     solved = np.linalg.solve(blocks[ok], g[ok][..., None])[..., 0]
-    stat[ok] = n * np.einsum("ki,ki->k", g[ok], solved)
+    stat[ok] = constrained.estimate.n * np.einsum("ki,ki->k", g[ok], solved)
     p = stats.chi2.sf(stat, g1)
     tested = int(ok.sum())
     return [ScoreTest(c, float(s), g1, float(pv), float(min(1.0, pv * tested)))
