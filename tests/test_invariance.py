@@ -137,6 +137,8 @@ def test_result_converts_to_json_with_the_issue_keys(hs_moments):
                                     wording={"x3": "Lozenges"})
     out = json.loads(json.dumps(result.to_dict()))
     assert [s["step"] for s in out["invariance"]] == ["configural", "metric", "scalar", "strict"]
+    # complete data: the expected information (DEVELOPERS.md, conventions)
+    assert out["invariance_setup"]["standard_errors"] == "expected information"
     for step in out["invariance"][1:]:
         assert set(step) >= {"step", "fit", "delta", "difference_test", "decision"}
         assert set(step["delta"]) == {"cfi", "rmsea", "srmr"}

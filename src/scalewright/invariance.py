@@ -26,7 +26,8 @@ non-invariance or the difference test rejects at ``α``.  For every equality
 constraint the step added, the score (Lagrange multiplier) test of releasing
 it is computed at the constrained estimates: with the released parameter's
 group-specific deviations ``d`` as the candidate parameters, ``g_d`` their
-gradient and ``I`` the expected information (per case) of the model with
+gradient and ``I`` the expected information (per case, also with missing
+answers, where the standard errors use the observed one) of the model with
 both ``θ`` (the constrained parameters) and ``d``,
 
     LM = N g_dᵀ (I_dd − I_dθ I_θθ⁻¹ I_θd)⁻¹ g_d   on G − 1 df
@@ -86,6 +87,7 @@ from scalewright.estimate.normal import Block, NormalFit, fit_normal
 from scalewright.estimate.result import invert_information
 from scalewright.groups import split_groups
 from scalewright.methods import LISTWISE, ORDINAL, ROBUST, choose_method
+from scalewright.modelresult import STANDARD_ERRORS
 from scalewright.layout import CONSTRUCT, INTERCEPT, LOADING, PATH, Layout, Param
 from scalewright.multigroup import (ADDED, INTERCEPTS, LOADINGS, METRIC, RESIDUALS,
                                     SCALAR, SHARED, STEPS, GroupFit, GroupMoments,
@@ -521,7 +523,8 @@ class InvarianceResult:
                 "method_note": self.method_note,
                 "missing_handling": ("full-information ML (every answer given counts)"
                                      if self.full_information else "listwise deletion"),
-                "standard_errors": ("sandwich" if self.robust else "expected information"),
+                "standard_errors": ("sandwich" if self.robust else
+                                    STANDARD_ERRORS["fiml" if self.full_information else "ml"]),
                 "difference_test": ("scaled, Satorra & Bentler (2001; 2010 when the 2001 "
                                     "scaling factor is not positive)" if self.robust else
                                     "likelihood ratio"),

@@ -53,6 +53,10 @@ Fit indices of a multi-group model (conventions):
   residual of group ``g`` over its ``p(p+1)/2 + p`` moments, so that unequal
   intercepts show in SRMR too.
 
+Standard errors (normal theory) come from the expected information for
+complete data and from the observed information with missing answers, as
+in one group (:func:`missing_data_information`).
+
 References
 ----------
 Byrne, B. M., Shavelson, R. J. & Muthén, B. (1989). Testing for the
@@ -80,8 +84,8 @@ from scipy import linalg
 from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline_yuan_bentler,
-                                       missing_patterns, pattern_jacobian, pattern_moments,
-                                       saturated_em, saturated_information,
+                                       missing_patterns, observed_information, pattern_jacobian,
+                                       pattern_moments, saturated_em, saturated_information,
                                        saturated_scores_gram, yuan_bentler)
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
 from scalewright.estimate.robust import RobustML, RobustTest, robust_fit_indices
@@ -141,15 +145,20 @@ class GroupMoments:
     items: tuple[str, ...] = ()           # the columns of ``values``
 
     @cached_property
-    def pattern_parts(self) -> tuple:
-        """Per group: missing-data patterns, their moments and the saturated
-        (EM) fit, which the robust corrections are built from."""
+    def group_patterns(self) -> tuple:
+        """Per group: missing-data patterns and their moments, which the
+        observed information is built from."""
         parts = []
         for x in self.values:
             patterns = missing_patterns(x, self.items, "the data file")
-            moments = pattern_moments(x, patterns)
-            parts.append((patterns, moments, saturated_em(moments)))
+            parts.append((patterns, pattern_moments(x, patterns)))
         return tuple(parts)
+
+    @cached_property
+    def pattern_parts(self) -> tuple:
+        """Per group: missing-data patterns, their moments and the saturated
+        (EM) fit, which the robust corrections are built from."""
+        return tuple((patterns, pm, saturated_em(pm)) for patterns, pm in self.group_patterns)
 
     @cached_property
     def baseline_robust(self) -> RobustTest:
@@ -344,17 +353,22 @@ class GroupFit:
 def fit_multigroup(layout: Layout, moments: GroupMoments,
                    start: np.ndarray | None = None, robust: bool = False) -> GroupFit:
     """Fit a multi-group layout by normal-theory ML (BLAS pinned to one thread)
-    and compute its fit indices under the conventions of this module; with
-    ``robust``, also the scaled statistics, robust fit indices and sandwich
-    standard errors (:func:`robust_test`)."""
+    and compute its fit indices under the conventions of this module.  The
+    standard errors come from the expected information for complete data and
+    from the observed one with missing answers
+    (:func:`missing_data_information`); with ``robust``, the scaled
+    statistics, robust fit indices and sandwich standard errors
+    (:func:`robust_test`) are added and replace them."""
     blocks = moments.blocks
+    observed = moments.full_information and not robust
     with threadpool_limits(limits=1, user_api="blas"):
         theta, record, objective = fit_normal(layout, blocks, start)
-        _, _, info = objective.value_grad_info(theta)
+        info = (missing_data_information(layout, theta, moments) if observed
+                else objective.value_grad_info(theta)[2])
         acov, unidentified = invert_information(info, objective.n)
     loglik = objective.loglik(theta)
-    estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified,
-                        blocks)
+    estimate = Estimate(layout, theta, acov, record, objective.n, loglik,
+                        "fiml" if observed else "ml", unidentified, blocks)
     mats = [estimate.matrices(g) for g in range(len(layout.patterns))]
     covs, ns = list(moments.covs), list(moments.ns)
     fit = fit_indices(loglik=loglik, saturated=moments.saturated_loglik, df=layout.df(),
@@ -372,6 +386,41 @@ def fit_multigroup(layout: Layout, moments: GroupMoments,
                                  groups=len(layout.patterns))
     estimate = replace(estimate, acov=corrected.acov, method="robust ml")
     return GroupFit(layout, estimate, fit, objective, moments.ns, corrected, indices)
+
+
+def missing_data_information(layout: Layout, theta: np.ndarray,
+                             moments: GroupMoments) -> np.ndarray:
+    """The information per case of ``θ`` that normal-theory standard errors
+    use with missing answers (``moments`` by full-information ML).
+
+    The expected information is not consistent under MAR (Kenward &
+    Molenberghs 1998), so the observed one is used, as for one group: the
+    groups are independent, so the Hessian of ``f = −ℓ/N`` is
+    ``Σ_g w_g Ã_g`` with ``w_g = n_g/N`` and
+    ``Ã_g = Δ_gᵀA_gΔ_g + Σ_k (∂f_g/∂β_gk) ∂²β_gk/∂θ∂θᵀ`` the observed
+    information of group ``g``'s answers
+    (:func:`scalewright.estimate.fiml.observed_information`).  A group
+    without a missing answer contributes its expected information
+    ``w_g Δ_gᵀA_gΔ_g`` (``A_g`` at the implied moments), the convention for
+    complete data.
+
+    References
+    ----------
+    Kenward, M. G. & Molenberghs, G. (1998). Likelihood based frequentist
+    inference when data are missing at random. Statistical Science 13, 236–247.
+    """
+    weights = np.asarray(moments.ns, dtype=float) / moments.n
+    total = np.zeros((layout.n_params, layout.n_params))
+    for w, pattern, (patterns, pm) in zip(weights, layout.patterns, moments.group_patterns):
+        if pm.masks.all():
+            mats = pattern.matrices(theta)
+            mu, sigma = mats.implied_mean, mats.implied_cov
+            a_g, _, _ = saturated_information(_implied(pm, mu, sigma), mu, sigma)
+            delta = pattern_jacobian(pattern, theta, layout.n_params)
+            total += w * (delta.T @ a_g @ delta)
+        else:
+            total += w * observed_information(pattern, layout.n_params, theta, pm).observed
+    return 0.5 * (total + total.T)
 
 
 def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_square: float,
