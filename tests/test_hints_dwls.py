@@ -72,12 +72,13 @@ def fit(spec, x):
     return evaluate_ordinal(spec, x, ITEMS, scales=(1, 5))
 
 
-def freed_spec(kind, a, b):
-    """The model with one candidate freed: a loading of item ``a`` on ``b``,
-    or the residual covariance of items ``a`` and ``b``."""
+def freed_spec(kind, a, b, **shape):
+    """The model (with ``shape``: a higher-order or general factor) with one
+    candidate freed: a loading of item ``a`` on ``b``, or the residual
+    covariance of items ``a`` and ``b``."""
     if kind == LOADING:
-        return make_spec(CONSTRUCTS, cross_loadings={b: (a,)})
-    return make_spec(CONSTRUCTS, residual_covariances=[(a, b)])
+        return make_spec(CONSTRUCTS, cross_loadings={b: (a,)}, **shape)
+    return make_spec(CONSTRUCTS, residual_covariances=[(a, b)], **shape)
 
 
 def named(tests, layout, k):
@@ -95,11 +96,11 @@ def planted():
 
 # --------------------------------------------------------------------------- (a) the algebra
 
-def dense_reference(result, kind, a, b, correlations, gamma):
+def dense_reference(result, kind, a, b, correlations, gamma, shape):
     """Plain MI, EPC and generalized MI of one candidate, from the freed model's
     correlations and their central-difference Jacobian (module docstring, (a))."""
     layout = result.estimate.layout
-    big = build_layout(freed_spec(kind, a, b), correlations)
+    big = build_layout(freed_spec(kind, a, b, **shape), correlations)
     theta = result.estimate.start_for(big)
     shared = set(layout.params)
     new = [k for k, prm in enumerate(big.params) if prm not in shared]
@@ -132,15 +133,22 @@ def dense_reference(result, kind, a, b, correlations, gamma):
     return h * h / net, h / net, h * h / (k_row @ gamma @ k_row)
 
 
-def mixed_fit():
-    """Items i5 and i6 continuous, the rest five-point (N = 800, seeded)."""
-    x = draw(np.random.default_rng(3), 800, cross=0.15, continuous=(4, 5))
-    return evaluate_mixed(make_spec(CONSTRUCTS), x, ITEMS, ("i5", "i6"), (1, 5))
+SHAPES = {"first-order": {}, "higher-order": {"higher_order": {"g": ("f1", "f2", "f3")}},
+          "bifactor": {"general": "g"}}
 
 
-@pytest.mark.parametrize("route", ["ordinal", "mixed"])
-def test_indices_match_a_dense_score_test_with_a_numerical_jacobian(planted, route):
-    result = planted[1] if route == "ordinal" else mixed_fit()
+@pytest.mark.parametrize("route, shape", [("ordinal", "first-order"),
+                                          ("ordinal", "higher-order"),
+                                          ("ordinal", "bifactor"), ("mixed", "first-order")])
+def test_indices_match_a_dense_score_test_with_a_numerical_jacobian(planted, route, shape):
+    x, result = planted
+    spec = make_spec(CONSTRUCTS, **SHAPES[shape])
+    if route == "mixed":
+        # items i5 and i6 continuous, the rest five-point (N = 800, seeded)
+        x = draw(np.random.default_rng(3), 800, cross=0.15, continuous=(4, 5))
+        result = evaluate_mixed(spec, x, ITEMS, ("i5", "i6"), (1, 5))
+    elif shape != "first-order":
+        result = fit(spec, x)
     data = result.estimate.dwls_data
     p = len(ITEMS)
     correlations = np.eye(p)
@@ -148,13 +156,15 @@ def test_indices_match_a_dense_score_test_with_a_numerical_jacobian(planted, rou
     correlations[rows, cols] = correlations[cols, rows] = data.r
     tests = dwls_score_tests(result.estimate)
     layout = result.estimate.layout
-    # every item on the two other constructs, every pair of items: 15·2 + 15·14/2
-    assert tests.n_undefined == 0 and len(tests) == 30 + 105
+    # every item on every factor it does not load on, every pair of items: 15·2 + 15·14/2,
+    # and 15 more loadings on the higher-order factor (the candidates of hints.py)
+    assert tests.n_undefined == 0
+    assert len(tests) == 30 + 105 + (15 if shape == "higher-order" else 0)
     chosen = list(np.argsort(-tests.mi)[:3]) + [int(np.argmin(tests.mi))] + [
         int(np.flatnonzero(tests.kind == kind)[-1]) for kind in (LOADING, RESIDUAL_COV)]
     for k in chosen:
         mi, epc, mi_g = dense_reference(result, *named(tests, layout, k), correlations,
-                                        data.gamma)
+                                        data.gamma, SHAPES[shape])
         assert_allclose([tests.mi_unscaled[k], tests.epc[k], tests.mi[k]], [mi, epc, mi_g],
                         rtol=1e-6, atol=1e-9)
 
