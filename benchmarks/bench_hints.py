@@ -23,7 +23,7 @@ from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.normal import NormalFit
 from scalewright.evaluate import evaluate_normal
-from scalewright.hints import _candidates, score_tests
+from scalewright.hints import open_cells, score_tests
 from scalewright.layout import LOADING, RESIDUAL_COV, Cells, Param
 
 N_FACTORS, PER_FACTOR, N_CASES, SEED = 10, 10, 1000, 20240613
@@ -61,7 +61,7 @@ def dense_indices(estimate):
     """MI of every candidate from the full information of the model with all of them free."""
     layout = estimate.layout
     pattern = layout.patterns[0]
-    cand = _candidates(pattern)
+    cand = open_cells(pattern)
     q = layout.n_params
     lam_new = np.column_stack([cand.lam_rows, cand.lam_cols, q + np.arange(len(cand.lam_rows))])
     res_new = np.column_stack([cand.res_rows, cand.res_cols,
@@ -85,7 +85,7 @@ def dense_indices(estimate):
 def refit_seconds(spec, x, estimate, n_sample=5):
     """Seconds to refit with one candidate loading freed, averaged over a few."""
     layout = estimate.layout
-    cand = _candidates(layout.patterns[0])
+    cand = open_cells(layout.patterns[0])
     start = time.perf_counter()
     for i, j in list(zip(cand.lam_rows, cand.lam_cols))[:n_sample]:
         freed = SimpleNamespace(**vars(spec))

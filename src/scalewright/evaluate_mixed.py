@@ -55,7 +55,7 @@ from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
-from scalewright.estimate.result import Estimate
+from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.evaluate_ordinal import (
     evaluate_ordinal,
     ordinal_fit_indices,
@@ -129,7 +129,7 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         layout = build_layout(spec, moments.correlations)
         fit = fit_dwls(layout, moments)
         estimate = Estimate(layout, fit.theta, fit.acov, fit.record, fit.n, float("nan"),
-                            "dwls-mixed", fit.unidentified)
+                            "dwls-mixed", fit.unidentified, dwls_data=DwlsData.of(moments))
         mats = estimate.matrices()
         std = standardize(mats)
         indices = ordinal_fit_indices(fit)

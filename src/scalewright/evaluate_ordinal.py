@@ -53,7 +53,7 @@ from threadpoolctl import threadpool_limits
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.dwls import DwlsFit, fit_dwls
 from scalewright.estimate.polychoric import OrdinalMoments, ordinal_moments
-from scalewright.estimate.result import Estimate
+from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.indices import (
     FitIndices,
     comparative_fit,
@@ -187,7 +187,7 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
         layout = build_layout(spec, moments.correlations)
         fit = fit_dwls(layout, moments)
         estimate = Estimate(layout, fit.theta, fit.acov, fit.record, fit.n, float("nan"),
-                            "dwls", fit.unidentified)
+                            "dwls", fit.unidentified, dwls_data=DwlsData.of(moments))
         mats = estimate.matrices()
         std = standardize(mats)
         indices = ordinal_fit_indices(fit)

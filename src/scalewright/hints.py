@@ -20,6 +20,9 @@ one Fisher-scoring step ``−I⁻¹g`` from the restricted solution in the freed
 model, i.e. the estimate ``c`` would take, to first order.  Both assume the
 model converged (``g_F = 0``).
 
+Fits by DWLS (ordinal and mixed items) have their own tests with the same
+candidates and the same :class:`ScoreTests` in :mod:`scalewright.hints_dwls`.
+
 Speed.  Every candidate's derivative ``∂Σ/∂c`` is of rank two,
 ``a bᵀ + b aᵀ`` (:func:`scalewright.layout.cell_derivatives`): a loading
 ``Λ[i, j]`` has ``a = e_i, b = G[:, j]`` (``G = ΛAΨAᵀ``) and ``∂μ = e_i κ_j``;
@@ -55,6 +58,7 @@ Modeling 16, 561–582.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -68,6 +72,9 @@ from scalewright.layout import LOADING, RESIDUAL_COV, Matrices, Pattern, cell_de
 #: a candidate whose information net of the free parameters is below this
 #: share of its own information is not identified next to them (its index is undefined)
 _NOT_IDENTIFIED = 1e-8
+
+#: how the ML route's indices are computed, as the notes name it
+METHOD = "score tests under normal-theory maximum likelihood (Sörbom 1989)"
 
 CAUTION = (
     "These hints come from the same answers the model was fitted to. Freeing a "
@@ -93,7 +100,11 @@ class ScoreTests:
     item; ``col`` the factor (loading) or the second item (residual
     covariance); ``group`` indexes ``layout.patterns``.  Candidates that are
     not identified next to the free parameters are left out and counted in
-    ``n_undefined``.
+    ``n_undefined``.  ``mi`` is the statistic compared with χ²₁ (and the
+    hint threshold); where it is a scaled version of the plain index, as
+    under DWLS (:mod:`scalewright.hints_dwls`), ``mi_unscaled`` is the plain
+    one.  ``method`` names the tests and ``note`` says what a reader must
+    know about the statistic (None when nothing).
     """
 
     kind: np.ndarray
@@ -104,13 +115,16 @@ class ScoreTests:
     epc: np.ndarray
     std_epc: np.ndarray
     n_undefined: int
+    mi_unscaled: np.ndarray | None = None
+    method: str = METHOD
+    note: str | None = None
 
     def __len__(self):
         return len(self.mi)
 
 
 @dataclass(frozen=True)
-class _Candidates:
+class Candidates:
     """Fixed-at-zero cells of one group: loadings first, then residual covariances."""
 
     lam_rows: np.ndarray
@@ -127,7 +141,7 @@ class _Candidates:
         return len(self.lam_rows) + len(self.res_rows)
 
 
-def _candidates(pattern: Pattern) -> _Candidates:
+def open_cells(pattern: Pattern) -> Candidates:
     """Loadings and residual covariances that are neither free nor fixed at a non-zero value."""
     p, m = pattern.p, pattern.m
     lam_free = np.zeros((p, m), dtype=bool)
@@ -139,7 +153,7 @@ def _candidates(pattern: Pattern) -> _Candidates:
     res_open = ~res_free & (pattern.fixed.residuals == 0.0) & np.tri(p, k=-1, dtype=bool)
     lam_rows, lam_cols = np.nonzero(lam_open)
     res_rows, res_cols = np.nonzero(res_open)
-    return _Candidates(lam_rows, lam_cols, res_rows, res_cols)
+    return Candidates(lam_rows, lam_cols, res_rows, res_cols)
 
 
 def score_tests(estimate: Estimate) -> ScoreTests:
@@ -206,7 +220,7 @@ def _score_tests(estimate: Estimate) -> ScoreTests:
     group = np.concatenate([np.full(len(c), g) for g, (c, *_) in enumerate(parts)])
     row = np.concatenate([c.rows for c, *_ in parts])
     col = np.concatenate([np.concatenate([c.lam_cols, c.res_cols]) for c, *_ in parts])
-    scale = np.concatenate([_standardizer(c, pattern.matrices(estimate.theta))
+    scale = np.concatenate([standardizer(c, pattern.matrices(estimate.theta))
                             for (c, *_), pattern in zip(parts, layout.patterns)])
     return ScoreTests(kind[defined], group[defined], row[defined], col[defined], mi, epc,
                       epc * scale[defined], int(np.count_nonzero(~defined)))
@@ -215,7 +229,7 @@ def _score_tests(estimate: Estimate) -> ScoreTests:
 def _group_scores(objective: NormalFit, g: int, pattern: Pattern, mats: Matrices):
     """Gradient, own information and cross-information with the free
     parameters of one group's candidates, summed over the group's blocks."""
-    cand = _candidates(pattern)
+    cand = open_cells(pattern)
     q, p, n_total = objective.layout.n_params, pattern.p, objective.n
     i_lam, j_lam, i_res, k_res = cand.lam_rows, cand.lam_cols, cand.res_rows, cand.res_cols
     n_lam, rows = len(i_lam), cand.rows
@@ -275,7 +289,7 @@ def _spread(cells: np.ndarray, params: np.ndarray, q: int) -> np.ndarray:
     return out
 
 
-def _standardizer(cand: _Candidates, mats: Matrices) -> np.ndarray:
+def standardizer(cand: Candidates, mats: Matrices) -> np.ndarray:
     """Factor turning an EPC into its completely standardized size (Kaplan 1989)."""
     sd_latent = np.sqrt(np.clip(np.diag(mats.latent_cov), 0.0, None))
     sd_item = np.sqrt(np.diag(mats.implied_cov))
@@ -302,6 +316,7 @@ class Hint:
     epc: float
     std_epc: float | None
     reading: str
+    mi_unscaled: float | None = None   # the plain index where ``mi`` is scaled (DWLS)
 
     def to_dict(self) -> dict:
         out = {"kind": self.kind}
@@ -309,8 +324,10 @@ class Hint:
             out.update(construct=self.construct, item=self.item)
         else:
             out.update(item_a=self.item_a, item_b=self.item_b)
-        out.update(group=self.group, mi=self.mi, epc=self.epc, std_epc=self.std_epc,
-                   reading=self.reading)
+        out.update(group=self.group, mi=self.mi)
+        if self.mi_unscaled is not None:
+            out.update(mi_unscaled=self.mi_unscaled)
+        out.update(epc=self.epc, std_epc=self.std_epc, reading=self.reading)
         return out
 
 
@@ -340,18 +357,21 @@ def hints_in_words(tests: ScoreTests, estimate: Estimate, wording: dict | None =
     for k in order:
         group = layout.groups[tests.group[k]] if several else None
         std = float(tests.std_epc[k]) if np.isfinite(tests.std_epc[k]) else None
+        unscaled = None if tests.mi_unscaled is None else float(tests.mi_unscaled[k])
         item = layout.items[tests.row[k]]
         if tests.kind[k] == LOADING:
             construct = layout.factors[tests.col[k]]
             out.append(Hint(LOADING, construct, item, None, None, group, float(tests.mi[k]),
                             float(tests.epc[k]), std,
-                            _loading_reading(_said(item, wording), construct, std, group)))
+                            _loading_reading(_said(item, wording), construct, std, group),
+                            unscaled))
         else:
             other = layout.items[tests.col[k]]
             a, b = sorted((item, other), key=layout.items.index)
             out.append(Hint(RESIDUAL_COV, None, None, a, b, group, float(tests.mi[k]),
                             float(tests.epc[k]), std,
-                            _pair_reading(_said(a, wording), _said(b, wording), std, group)))
+                            _pair_reading(_said(a, wording), _said(b, wording), std, group),
+                            unscaled))
     return out
 
 
@@ -382,21 +402,26 @@ def _pair_reading(said_a: str, said_b: str, std: float | None, group: str | None
 
 
 def modification_hint_keys(estimate: Estimate, wording: dict | None = None,
-                           threshold: float = 10.0, tests: ScoreTests | None = None) -> dict:
+                           threshold: float = 10.0, tests: ScoreTests | None = None,
+                           compute: Callable[[Estimate], ScoreTests] = score_tests) -> dict:
     """The JSON keys ``modification_hints`` (list of hint dicts, strongest
-    first) and ``modification_hint_notes`` (threshold, counts, caution) of
-    one model; ``tests`` are computed unless given."""
+    first) and ``modification_hint_notes`` (threshold, counts, caution, the
+    tests' ``method`` and, where there is one, their ``statistic`` note) of
+    one model; ``tests`` are computed by ``compute`` unless given (a
+    ``ValueError`` from it becomes the note ``not_computed``)."""
     notes = {"threshold": float(threshold), "caution": CAUTION, "judging": JUDGE_BY_CHANGE}
     if tests is None:
         try:
-            tests = score_tests(estimate)
+            tests = compute(estimate)
         except ValueError as exc:
             notes.update(candidates=0, listed=0,
                          not_computed=f"No hints: {exc}. See the model's warnings.")
             return {"modification_hints": [], "modification_hint_notes": notes}
     hints = hints_in_words(tests, estimate, wording, threshold)
     notes.update(candidates=len(tests) + tests.n_undefined, listed=len(hints),
-                 undefined=tests.n_undefined)
+                 undefined=tests.n_undefined, method=tests.method)
+    if tests.note:
+        notes["statistic"] = tests.note
     if not estimate.record.converged:
         notes["not_converged"] = ("The estimation did not converge, so these indices are "
                                   "computed at a point that is not the estimate; do not act on them.")

@@ -31,7 +31,9 @@ parameter's copies outside the reference group,
 
 on ``G − 1`` df: ``h = Kε`` to first order with ``ε`` the sampling error of
 the estimates (covariance ``Γ``), so LM is asymptotically χ² whatever the
-weight ``W`` — the robust form a diagonal weight needs.  The constraint with
+weight ``W`` — the robust form a diagonal weight needs
+(:mod:`scalewright.estimate.generalized_score`, shared with the modification
+hints of single-group DWLS fits).  The constraint with
 the smallest p-value is released if that p-value, Bonferroni-adjusted for
 the number of constraints tested, is below ``α``; the model is refitted and
 the search repeats until the step holds and the difference test does not
@@ -79,6 +81,7 @@ from scipy import stats
 from scalewright import multigroup
 from scalewright.blas import one_blas_thread
 from scalewright.dwls_difference import LIMITATION, METHOD, DwlsDifference, adjusted_difference
+from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
                                     ScoreTest, conventions, latent_comparison, releasable)
@@ -207,26 +210,12 @@ def score_tests(spec, data: OrdinalGroupMoments, constrained: OrdinalGroupFit, s
     rows = np.array([[position[replace(c, group=label)] for label in data.labels[1:]]
                      for c in candidates], dtype=np.intp)          # K × (G − 1)
     _, w, gammas = sample_statistics(data)
-    e, j0, h0_inv = constrained.residuals, constrained.jacobian, constrained.h_inv
+    g1 = rows.shape[1]
     with one_blas_thread():
         _, jac = stacked_jacobian(full, carry_start(constrained, full))
-        wd = w[:, None] * jac[:, rows.ravel()]
-        h = wd.T @ e
-        kt = wd - (w[:, None] * j0) @ (h0_inv @ (j0.T @ wd))       # Kᵀ, r × K(G − 1)
-        cov = np.zeros((kt.shape[1], kt.shape[1]))
-        start = 0
-        for gamma in gammas:
-            block = kt[start:start + gamma.shape[0]]
-            start += gamma.shape[0]
-            cov += block.T @ gamma @ block
-    k, g1 = rows.shape
-    blocks = cov.reshape(k, g1, k, g1)[np.arange(k), :, np.arange(k), :]   # K × g1 × g1
-    hk = h.reshape(k, g1)
-    scale = np.einsum("kii->ki", blocks)
-    ok = np.all(scale > 1e-12 * max(float(scale.max()), 1e-300), axis=1)
-    stat = np.full(k, np.nan)
-    solved = np.linalg.solve(blocks[ok], hk[ok][..., None])[..., 0]
-    stat[ok] = np.einsum("ki,ki->k", hk[ok], solved)
+        tests = dense_score_statistics(w, constrained.residuals, constrained.jacobian,
+                                       constrained.h_inv, jac[:, rows.ravel()], gammas, g1)
+    stat, ok = tests.statistic, tests.defined
     p = stats.chi2.sf(stat, g1)
     tested = int(ok.sum())
     return [ScoreTest(c, float(s), g1, float(pv), float(min(1.0, pv * tested)))

@@ -49,7 +49,8 @@ import pandas as pd
 
 from scalewright.errors import StudyError
 from scalewright.evaluate import refit_columns
-from scalewright.hints import ScoreTests, modification_hint_keys, score_tests
+from scalewright.hints import ScoreTests, modification_hint_keys
+from scalewright.hints_dwls import score_tests_for
 from scalewright.layout import CONSTRUCT, GENERAL, LOADING, RESIDUAL_COV
 from scalewright.modelresult import ModelResult
 from scalewright.reliability import cronbach_alpha
@@ -119,7 +120,8 @@ def review_items(result: ModelResult, tests: ScoreTests | None,
     result : ModelResult
         The fitted model (its standardized solution, first group).
     tests : ScoreTests or None
-        Its modification indices (:func:`scalewright.hints.score_tests`);
+        Its modification indices (:func:`scalewright.hints_dwls.score_tests_for`:
+        under ML or DWLS, as the model was fitted);
         ``None`` when they could not be computed, and then only estimated
         loadings and residual covariances are reviewed.
     settings : Settings
@@ -324,7 +326,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
 
 def _state(spec, result: ModelResult, cov: np.ndarray, column: dict, settings: Settings) -> _State:
     try:
-        tests = score_tests(result.estimate)
+        tests = score_tests_for(result.estimate)
     except ValueError:
         tests = None
     return _State(spec, result, _alphas(spec, cov, column), review_items(result, tests, settings))
@@ -439,7 +441,7 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     Parameters
     ----------
     model_result : ModelResult
-        One rival model fitted by :func:`scalewright.evaluate.evaluate_normal`.
+        One rival model, fitted by any route (the hints follow its estimator).
     study : Study
         The study (item wording, thresholds, the model's specification).
     x : ndarray, n × p
@@ -463,10 +465,11 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     estimate = model_result.estimate
     wording = {name: item.wording for name, item in study.items.items()}
     try:
-        tests = score_tests(estimate)
+        tests = score_tests_for(estimate)
     except ValueError:
         tests = None
-    out = modification_hint_keys(estimate, wording, settings.hint_threshold, tests=tests)
+    out = modification_hint_keys(estimate, wording, settings.hint_threshold, tests=tests,
+                                 compute=score_tests_for)
     try:
         out["residual_correlations"] = residual_correlations(
             estimate, threshold=settings.residual_threshold, observed_cov=observed_cov).to_dict()

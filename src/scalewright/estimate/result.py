@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.linalg import lapack
@@ -12,13 +12,34 @@ from scalewright.layout import Layout, Matrices
 
 
 @dataclass(frozen=True)
+class DwlsData:
+    """What a DWLS fit was fitted to: the ``p* = p(p−1)/2`` correlations
+    ``r`` (``np.triu_indices(p, 1)`` order) and their sampling covariance
+    ``Γ`` (of ``r`` itself, not of ``√N r``), from which the weights
+    ``W = diag(Γ)⁻¹`` follow (see :mod:`scalewright.estimate.dwls`)."""
+
+    r: np.ndarray
+    gamma: np.ndarray = field(repr=False)
+
+    @classmethod
+    def of(cls, moments) -> "DwlsData":
+        """From an :class:`~scalewright.estimate.polychoric.OrdinalMoments` or
+        :class:`~scalewright.estimate.mixed.MixedMoments`: the pairwise
+        estimates DWLS fits (``raw_correlations``) and ``acov_corr``."""
+        rows, cols = np.triu_indices(len(moments.items), 1)
+        return cls(moments.raw_correlations[rows, cols], moments.acov_corr)
+
+
+@dataclass(frozen=True)
 class Estimate:
     """Estimates of one layout on one data set.
 
     ``acov`` is the asymptotic covariance matrix of ``theta`` (``None`` when
     the information matrix is singular); ``unidentified`` lists the indices
     of parameters involved in the singularity; ``blocks`` are the data
-    moments the model was fitted to (see :mod:`scalewright.estimate.normal`).
+    moments the model was fitted to (see :mod:`scalewright.estimate.normal`);
+    ``dwls_data`` are the correlations a DWLS estimate was fitted to (``None``
+    for the likelihood routes).  Score tests read whichever is present.
     """
 
     layout: Layout
@@ -30,6 +51,7 @@ class Estimate:
     method: str
     unidentified: tuple[int, ...] = ()
     blocks: tuple = ()
+    dwls_data: DwlsData | None = None
 
     def matrices(self, group: int = 0) -> Matrices:
         return self.layout.patterns[group].matrices(self.theta)

@@ -419,6 +419,12 @@ def methods_paragraphs(report: dict) -> list[str]:
         extra.append("Local misfit was examined through residual correlations and modification "
                      "indices (Sörbom, 1989) with expected parameter changes; no model was "
                      "changed because of them.")
+        if any("DWLS" in str((m.get("modification_hint_notes") or {}).get("method"))
+               for m in report.get("models", ())):
+            extra.append("For the models fitted by DWLS, the modification indices are "
+                         "generalized score statistics (Satorra, 1989), which are chi-square "
+                         "with one degree of freedom under the model whatever the weight "
+                         "matrix; the plain indices are not.")
     out.append(" ".join(extra))
     invariance = _invariance_methods(report)
     if invariance:

@@ -200,6 +200,9 @@ def references_used(report: dict) -> list[str]:
         keys |= {"fornell_larcker", "henseler"}
     if "modification_hints" in present:
         keys |= {"sorbom", "maccallum", "saris"}
+        if any("Satorra 1989" in str((m.get("modification_hint_notes") or {}).get("method"))
+               for m in report.get("models", ())):
+            keys.add("satorra1989")
     if "bifactor" in present or "higher_order" in present:
         keys |= {"rodriguez", "schmid_leiman"}
     if "thresholds" in present:

@@ -557,7 +557,8 @@ def hints_table(m: dict, prefix: str) -> Table:
             "here." if len(hints) > MAX_HINT_ROWS else None)
     return Table(f"{prefix}-hints", f"Modification hints for ‘{m['name']}’, strongest first",
                  ("Parameter", "Kind", "MI", "EPC", "Std. EPC", "Reading"), tuple(rows),
-                 tuple(n for n in (notes.get("caution"), notes.get("judging"), more) if n),
+                 tuple(n for n in (notes.get("statistic"), notes.get("caution"),
+                                   notes.get("judging"), more) if n),
                  left=2)
 
 
