@@ -306,3 +306,10 @@ def fit_dwls(layout: Layout, moments: OrdinalMoments, correlations: np.ndarray |
     baseline = DwlsTest(float(r @ (w * r)), r.size, base_t1, base_t2)
     return DwlsFit(layout, theta, acov, record, n, test, baseline, e, model.estimated,
                    tuple(int(model.free[k]) for k in unidentified))
+
+
+def correlation_jacobian(layout: Layout, theta: np.ndarray) -> np.ndarray:
+    """``Δ = ∂ρ/∂φ`` (``p* × q``, ``np.triu_indices(p, 1)`` order) of
+    ``layout`` at the full parameter vector ``theta``, for the parameters
+    DWLS estimates (all but the residual variances)."""
+    return _DeltaModel(layout).jacobians(theta)[0]
