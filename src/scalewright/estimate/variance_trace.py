@@ -106,8 +106,8 @@ class VarianceTrace:
         """The sentence for the report when a subsample was used, else ``None``."""
         if not self.subsample:
             return None
-        return (f"The mean-and-variance adjusted statistic's degrees of freedom come from "
-                f"tr((UΓ)²) computed on a seeded random subsample of {self.rows:,} of the "
+        return (f"The mean-and-variance adjusted statistic and its degrees of freedom rest on "
+                f"tr((UΓ)²), computed on a seeded random subsample of {self.rows:,} of the "
                 f"{self.n:,} rows: the exact computation for {p} items would cost about "
                 f"{self.exact_cost:.1e} floating-point operations, over the budget of "
                 f"{FLOP_BUDGET:.0e}. The standard errors, the scaled statistic and the robust "
