@@ -24,6 +24,7 @@ from scalewright.compare import compare_models, dwls_difference_row
 from scalewright.nested_dwls import DWLS_DIFFERENCE, DwlsModel, nested_dwls_test
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.estimate.polychoric import ordinal_moments
+from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
 from scalewright.report.tables import nested_table
 from scalewright.specify import build_layout
@@ -197,6 +198,24 @@ def test_comparison_rows_use_the_dwls_difference_whatever_the_model_order(hs_x):
     table = nested_table({"comparison": {"nested_tests": rows[:1]}})
     assert table.columns[2] == "Test" and table.rows[0][2].text == DWLS_DIFFERENCE
     assert any("Asparouhov & Muthén 2006" in note for note in table.notes)
+
+
+def test_mixed_route_pairs_get_the_same_test(hs_x):
+    # three continuous tests kept as they are, six cut into five categories:
+    # DWLS on the mixed correlation matrix, whose joint sampling covariance is Γ
+    x = hs_x.copy()
+    x[:, 3:] = _quantile_categories(hs_x[:, 3:], 5)
+    results = {s.name: evaluate_mixed(s, x, HS_ITEMS, ("x1", "x2", "x3")) for s in (PLAIN, CROSS)}
+    restricted, general = results["plain"].fitted, results["cross"].fitted
+    (row,) = compare_models((PLAIN, CROSS), [r.to_dict() for r in results.values()],
+                            {name: r.fitted for name, r in results.items()})[
+        "comparison"]["nested_tests"]
+    assert row["test"] == DWLS_DIFFERENCE and row["note"] is None
+    t_d, eig, t1, t2 = dense_difference(PLAIN, CROSS, restricted, general, restricted.moments)
+    # the same algebra as on the ordinal route (test_difference_matches_dense_m_gamma)
+    assert row["chi_square_unadjusted"] == pytest.approx(t_d, rel=1e-10)
+    assert row["scaling_factor"] == pytest.approx(t1, rel=1e-9)      # d = 1: t₁/d
+    assert eig[0] > 0 and np.max(np.abs(eig[1:])) < 1e-10 * eig[0]
 
 
 def test_a_pair_that_is_not_nested_is_reported_not_tested(hs_moments):

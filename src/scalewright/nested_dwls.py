@@ -1,5 +1,6 @@
 """Difference test for two nested rival models fitted by DWLS (one group) to
-the same polychoric correlations (Asparouhov & Muthén 2006; Satorra 2000).
+the same polychoric (or mixed polychoric/polyserial/Pearson) correlations
+(Asparouhov & Muthén 2006; Satorra 2000).
 
 The difference of two mean-and-variance adjusted statistics is not χ²
 distributed, and neither is the difference of the raw ones.  With model 0
@@ -83,6 +84,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from scalewright.estimate.dwls import DwlsFit, DwlsTest, correlation_jacobian, fit_dwls
+from scalewright.estimate.mixed import MixedMoments
 from scalewright.estimate.polychoric import OrdinalMoments
 
 DWLS_DIFFERENCE = ("DWLS difference, scaled and shifted (Satorra 2000; Asparouhov & Muthén "
@@ -98,15 +100,16 @@ RANK_TOLERANCE = 1e-10
 
 @dataclass(frozen=True)
 class DwlsModel:
-    """A DWLS fit with the polychoric moments it was fitted to, kept for the
-    difference test.  The casewise influence matrix (N × r) is dropped: the
-    test needs only the correlations and their sampling covariance."""
+    """A DWLS fit with the moments it was fitted to (ordinal or mixed), kept
+    for the difference test.  The casewise influence matrix (N × r) is
+    dropped: the test needs only the correlations and their sampling
+    covariance."""
 
     fit: DwlsFit
-    moments: OrdinalMoments
+    moments: OrdinalMoments | MixedMoments
 
     @classmethod
-    def of(cls, fit: DwlsFit, moments: OrdinalMoments) -> "DwlsModel":
+    def of(cls, fit: DwlsFit, moments: OrdinalMoments | MixedMoments) -> "DwlsModel":
         return cls(fit, replace(moments, influence=moments.influence[:0]))
 
 
