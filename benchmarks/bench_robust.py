@@ -2,8 +2,9 @@
 skewed items) and compare with semopy's robust (sandwich) standard errors.
 
 Ours: the ML fit, the sandwich standard errors, the mean-scaled statistic,
-the mean-and-variance adjusted statistic (whose tr((UΓ)²) needs the
-chunked Gram of the whitened case contributions, the dominant cost) and the
+the mean-and-variance adjusted statistic (whose tr((UΓ)²), exact on all
+rows, comes from the chunked Gram of the whitened pair products, the
+dominant cost; see scalewright.estimate.variance_trace) and the
 baseline's scaling factor for the robust CFI/TLI.  Peak memory is reported
 from the process's maximum resident size.
 
@@ -96,8 +97,11 @@ def main():
           f"{t_scaled:.1f} s; fit + sandwich + scaled + adjusted {t_adjusted:.1f} s; "
           f"everything incl. baseline and robust indices {total:.1f} s; peak memory "
           f"{peak:.2f} GiB")
+    rows = robust.test.variance_rows
     print(f"  scaling factor {robust.test.scaling_factor:.4f}, adjusted df "
-          f"{robust.test.df_adjusted:.2f}, robust CFI {indices['cfi_robust']:.4f}")
+          f"{robust.test.df_adjusted:.2f} (tr((UΓ)²) from "
+          f"{'all rows' if rows is None else f'a subsample of {rows:,} rows'}), "
+          f"robust CFI {indices['cfi_robust']:.4f}")
     n_sub = args.semopy_rows
     fit_s, sandwich_s = semopy_times(x[:n_sub], items, constructs)
     extrapolated = fit_s + sandwich_s * N_ROWS / n_sub

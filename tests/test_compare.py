@@ -24,8 +24,9 @@ from scipy import special, stats
 
 from conftest import HS_CONSTRUCTS, HS_ITEMS, make_spec, simulate_cfa
 from scalewright.compare import (DECLARED, DROPPED_PATHS, HIGHER_IN_BIFACTOR, HIGHER_ORDER,
-                                 MERGED_CONSTRUCTS, bic_weights, chi_square_difference,
-                                 compare_models, detect_nesting, nested_pairs)
+                                 LIKELIHOOD_RATIO, MERGED_CONSTRUCTS, SCALED_DIFFERENCE,
+                                 bic_weights, chi_square_difference, compare_models,
+                                 detect_nesting, nested_pairs)
 from scalewright.evaluate import evaluate_normal
 
 ONE = {"g": HS_ITEMS}
@@ -159,7 +160,7 @@ def test_dropped_cross_loading_difference_matches_semopy_chi_squares(hs_data, hs
     cross = make_spec(HS_CONSTRUCTS, name="cross", cross_loadings={"visual": ("x9",)})
     (test,) = compare_models([plain, cross], [_fit(plain, hs_x), _fit(cross, hs_x)])[
         "comparison"]["nested_tests"]
-    assert test["df"] == 1
+    assert test["df"] == 1 and test["test"] == LIKELIHOOD_RATIO
     assert test["chi_square"] == pytest.approx(expected, rel=1e-4)
     assert test["note"] is None
 
@@ -179,7 +180,7 @@ def test_scaled_difference_reproduces_the_published_worked_comparisons(
     out = chi_square_difference(fit(*restricted), fit(*general))
     # the inputs are published to 3 decimals; c_d carries their rounding
     # error magnified by df/Δdf, hence the absolute tolerances
-    assert out["scaled"] and out["df"] == df
+    assert out["scaled"] and out["df"] == df and out["test"] == SCALED_DIFFERENCE
     assert out["scaling_factor"] == pytest.approx(c_d, abs=2e-3)
     assert out["chi_square"] == pytest.approx(t_d, abs=2e-2)
 
@@ -276,16 +277,12 @@ def test_rows_mark_the_first_specified_model(hs_x):
     assert rows[1]["chi_square"] == pytest.approx(85.3057, abs=1e-3)
 
 
-def test_ordinal_difference_uses_the_unadjusted_statistics():
-    # Satorra & Bentler (2001) on the raw statistics: the reported (adjusted)
-    # chi-square of a DWLS fit must not be scaled a second time; the worked rows
-    # of references.md (weak vs configural: c_d 1.154, T_d 8.319 on 7 df) with the
-    # raw T = T_scaled · c
-    from scalewright.compare import chi_square_difference
-    weak = {"df": 76, "chi_square": 1.0, "chi_square_unadjusted": 90.371 * 1.115,
-            "scaling_factor": 1.115}
-    configural = {"df": 69, "chi_square": 2.0, "chi_square_unadjusted": 82.052 * 1.111,
+def test_ordinal_fits_are_not_compared_by_their_statistics_alone():
+    # a DWLS fit's statistics do not give its difference test (Asparouhov &
+    # Muthén 2006 need both fits; tests/test_nested_dwls.py); the old
+    # mean-scaled stand-in on the unadjusted statistics is gone
+    weak = {"df": 76, "chi_square": 1.0, "chi_square_unadjusted": 100.8, "scaling_factor": 1.115}
+    configural = {"df": 69, "chi_square": 2.0, "chi_square_unadjusted": 91.2,
                   "scaling_factor": 1.111}
-    row = chi_square_difference(weak, configural)
-    assert row["scaling_factor"] == pytest.approx(1.154, abs=5e-4)
-    assert row["chi_square"] == pytest.approx(8.319, abs=5e-3)
+    with pytest.raises(ValueError, match="dwls_difference_row"):
+        chi_square_difference(weak, configural)

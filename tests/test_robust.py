@@ -107,8 +107,19 @@ def duplication(p):
     return d
 
 
+def exact_jacobian(fun, theta, h=1e-2):
+    """Central differences with one Richardson step: exact up to rounding
+    (~1e-14 here) for functions that are polynomials of degree ≤ 4 along each
+    coordinate, as Σ(θ) = ΛΨΛᵀ + Θ is (degree ≤ 2 along one coordinate)."""
+    def central(step):
+        return numeric_jacobian(fun, theta, step)
+    return (4 * central(h / 2) - central(h)) / 3
+
+
 def dense_traces(layout, theta, x):
-    """tr(UΓ) and tr((UΓ)²) from the textbook matrices (Satorra & Bentler 1994)."""
+    """tr(UΓ) and tr((UΓ)²) from the textbook matrices (Satorra & Bentler
+    1994): the dense p* × p* Γ̂ of vech(c_i c_iᵀ), W = ½Dᵀ(V⊗V)D and
+    U = W − WΔ(ΔᵀWΔ)⁻¹ΔᵀW."""
     n, p = x.shape
     rows, cols = np.tril_indices(p)
     c = x - x.mean(axis=0)
@@ -117,7 +128,7 @@ def dense_traces(layout, theta, x):
     v = np.linalg.inv(implied_cov(layout, theta))
     dup = duplication(p)
     w = 0.5 * dup.T @ np.kron(v, v) @ dup
-    delta = numeric_jacobian(lambda t: implied_cov(layout, t)[rows, cols], theta)
+    delta = exact_jacobian(lambda t: implied_cov(layout, t)[rows, cols], theta)
     u = w - w @ delta @ np.linalg.inv(delta.T @ w @ delta) @ delta.T @ w
     ug = u @ gamma
     return np.trace(ug), np.trace(ug @ ug)
@@ -126,17 +137,16 @@ def dense_traces(layout, theta, x):
 def test_scaling_traces_match_dense_textbook_formula(hs):
     x, layout, theta, chi2, robust = hs
     trace, trace2 = dense_traces(layout, theta, x)
-    # algebraic identity; the only error is the numerical Jacobian of the reference (~1e-9)
-    assert robust.test.trace == pytest.approx(trace, rel=1e-6)
-    assert robust.test.trace_squared == pytest.approx(trace2, rel=1e-6)
+    # algebraic identity (exact Jacobian in the reference): rounding only
+    assert robust.test.trace == pytest.approx(trace, rel=1e-10)
+    assert robust.test.trace_squared == pytest.approx(trace2, rel=1e-10)
 
 
-def test_casewise_trace_equals_gram_trace(hs):
+def test_without_adjustment_the_variance_trace_is_not_computed(hs):
     x, layout, theta, chi2, robust = hs
     cheap = robust_ml(layout, theta, x, chi2, adjusted=False).test
-    # two algebraically equal routes to tr(UΓ): rounding only
-    assert cheap.trace == pytest.approx(robust.test.trace, rel=1e-10)
-    assert np.isnan(cheap.trace_squared)
+    assert cheap.trace == robust.test.trace       # the same casewise computation
+    assert np.isnan(cheap.trace_squared) and np.isnan(cheap.df_adjusted)
 
 
 def test_scaled_statistic_on_holzinger_matches_recalled_value(hs):
@@ -227,10 +237,10 @@ def test_robust_se_match_empirical_sd_with_skewed_items():
 
 
 def test_variance_trace_from_a_subsample_is_close_to_the_full_sample_one(monkeypatch):
-    # the adjusted df from a seeded subsample of the cases estimates the same
-    # tr((UΓ)²); theory: a sample moment of the subsample, relative error ~1/√m
+    # beyond the stated budget tr((UΓ)²) comes from a seeded subsample and the
+    # result says so; theory: a sample moment of the subsample, relative error ~1/√m
     from types import SimpleNamespace
-    import scalewright.estimate.robust as robust
+    import scalewright.estimate.variance_trace as variance_trace
     from scalewright.evaluate import evaluate_normal
     rng = np.random.default_rng(8)
     n = 40_000
@@ -244,8 +254,24 @@ def test_variance_trace_from_a_subsample_is_close_to_the_full_sample_one(monkeyp
                            items=tuple(f"i{k}" for k in range(1, 7)))
     fit = evaluate_normal(spec, x)
     est = fit.estimate
-    full = robust.robust_ml(est.layout, est.theta, x, fit.fit.chi_square).test
-    monkeypatch.setattr(robust, "GRAM_MAX_ROWS", 20_000)
-    sub = robust.robust_ml(est.layout, est.theta, x, fit.fit.chi_square).test
-    assert sub.trace == pytest.approx(full.trace, rel=1e-10)     # always the full sample
-    assert sub.trace_squared == pytest.approx(full.trace_squared, rel=0.1)
+    full = robust_ml(est.layout, est.theta, x, fit.fit.chi_square)
+    assert full.test.variance_rows is None and full.notes == ()
+    assert full.test.to_dict()["adjusted_subsample_rows"] is None
+    # a budget that admits about 20,000 rows (the Gram route is linear in the rows)
+    monkeypatch.setattr(variance_trace, "FLOP_BUDGET",
+                        variance_trace.route_costs(20_000, 6, est.layout.n_params)["gram"])
+    sub = robust_ml(est.layout, est.theta, x, fit.fit.chi_square)
+    assert sub.test.variance_rows == 20_000
+    assert sub.test.to_dict()["adjusted_subsample_rows"] == 20_000
+    (note,) = sub.notes
+    assert "seeded random subsample of 20,000 of the 40,000 rows" in note
+    assert sub.test.trace == pytest.approx(full.test.trace, rel=1e-10)   # always every row
+    assert sub.test.trace_squared == pytest.approx(full.test.trace_squared, rel=0.1)
+    again = robust_ml(est.layout, est.theta, x, fit.fit.chi_square)
+    assert again.test.trace_squared == sub.test.trace_squared           # seeded
+    # the model's JSON and its warnings (shown in the report) say so
+    from scalewright.evaluate_real import evaluate_answers
+    from scalewright.methods import MethodChoice
+    result = evaluate_answers(spec, x, MethodChoice("robust", "none", ()), "t.csv").to_dict()
+    assert result["fit"]["adjusted_subsample_rows"] == 20_000
+    assert note in result["warnings"]

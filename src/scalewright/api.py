@@ -22,6 +22,7 @@ from scalewright import __version__
 from scalewright.errors import StudyError
 from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
+from scalewright.nested_dwls import DwlsModel
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
 from scalewright.estimate.polychoric import collapse_sparse_columns
@@ -134,7 +135,9 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
         for category, text in classified_warnings(model.estimate, model.std):
             warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
     extra = {"method": choice.to_dict()}
-    extra.update(compare_models(study.models, [m.to_dict() for m in models]))
+    extra.update(compare_models(study.models, [m.to_dict() for m in models],
+                                {m.name: m.fitted for m in models
+                                 if isinstance(m.fitted, DwlsModel)}))
     if study.groups is not None:
         spec = next((m for m in study.models if m.first), study.models[0])
         extra.update(_invariance(study, data, spec, choice))

@@ -53,8 +53,19 @@ unidentified); a general numerical check exists (Bentler & Satorra 2010) and
 is not made here.  A declared pair that the detection does not confirm is
 tested as declared, and the test says so.
 
+Which difference test
+---------------------
+Plain ML: the likelihood-ratio difference (Steiger, Shapiro & Browne 1985);
+robust ML (fits with a scaling factor): the Satorra & Bentler (2001) scaled
+difference; DWLS (ordinal items): the difference test of Satorra (2000) and
+Asparouhov & Muthén (2006), scaled and shifted on the difference in df
+(:mod:`scalewright.nested_dwls`), which needs the two fits themselves,
+not only their statistics.  Each test row names the test it used.
+
 References
 ----------
+Asparouhov, T. & Muthén, B. (2006). Robust chi square difference testing
+with mean and variance adjusted test statistics. Technical note 10.
 Bentler, P. M. & Satorra, A. (2010). Testing model nesting and equivalence.
 Psychological Methods 15, 111–123.
 Raftery, A. E. (1995). Bayesian model selection in social research.
@@ -77,10 +88,12 @@ Psychometrika 64, 113–128.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 from scipy import stats
+
+from scalewright.nested_dwls import DWLS_DIFFERENCE, DwlsModel, nested_dwls_test
 
 DECLARED = "declared"
 DROPPED_PATHS = "dropped paths"
@@ -95,6 +108,12 @@ ROW_FIT_KEYS = ("chi_square", "df", "p_value", "cfi", "tli", "rmsea", "rmsea_ci9
 
 #: a negative chi-square difference smaller than this (relative) is rounding
 _NEGATIVE_TOLERANCE = 1e-6
+_STOPPED_EARLY = ("the restricted model fits better than the general one, which is "
+                  "impossible at the optimum: one of the two fits probably stopped early")
+
+#: the test each nested-test row names (key ``test``)
+LIKELIHOOD_RATIO = "likelihood-ratio difference (Steiger, Shapiro & Browne 1985)"
+SCALED_DIFFERENCE = "scaled difference (Satorra & Bentler 2001)"
 
 
 @dataclass(frozen=True)
@@ -262,7 +281,7 @@ def nested_pairs(specs: Sequence) -> list[Nesting]:
 
 
 def chi_square_difference(restricted_fit: dict, general_fit: dict) -> dict:
-    """Likelihood-ratio (chi-square) difference test of a nested pair.
+    """Likelihood-ratio (chi-square) difference test of a nested pair fitted by ML.
 
     Plain ML: ``T_d = T_R − T_G`` on ``df_R − df_G`` degrees of freedom
     (Steiger, Shapiro & Browne 1985).  When both fits carry a mean-scaled
@@ -272,37 +291,34 @@ def chi_square_difference(restricted_fit: dict, general_fit: dict) -> dict:
     .. math:: c_d = (d_R c_R − d_G c_G) / (d_R − d_G), \\qquad
               T_d = (T_R − T_G) / c_d
 
-    with ``T`` the unscaled statistics and ``c`` the scaling factors (for
-    DWLS fits the unadjusted statistic and its mean scaling, an approximation:
-    the difference test of Asparouhov & Muthén (2006) is not made).  When
+    with ``T`` the unscaled statistics and ``c`` the scaling factors.  When
     ``c_d ≤ 0`` the 2001 statistic is undefined; the 2010 correction needs
-    a refit and is not made here (the row says so).
+    a refit and is not made here (the row says so).  DWLS fits are compared
+    by :func:`dwls_difference_row` (their statistics alone do not suffice).
 
     Returns
     -------
     dict
         ``chi_square``, ``df``, ``p_value`` (``None`` when not computed),
-        ``scaled`` (bool), ``scaling_factor`` (``c_d`` or ``None``) and
-        ``note`` (``None`` or one sentence).
+        ``scaled`` (bool), ``scaling_factor`` (``c_d`` or ``None``), ``test``
+        (:data:`LIKELIHOOD_RATIO` or :data:`SCALED_DIFFERENCE`) and ``note``
+        (``None`` or one sentence).
+
+    Raises
+    ------
+    ValueError
+        For fits of the ordinal (DWLS) route.
     """
+    if _is_dwls(restricted_fit) or _is_dwls(general_fit):
+        raise ValueError("DWLS fits are compared by dwls_difference_row")
     df = int(restricted_fit["df"]) - int(general_fit["df"])
-    # the difference is taken on the unscaled statistics; an ordinal (DWLS) fit
-    # reports its adjusted statistic as chi_square and keeps the raw one apart
-    t_r, t_g = (float(f.get("chi_square_unadjusted", f["chi_square"]))
-                for f in (restricted_fit, general_fit))
-    out = {"chi_square": None, "df": df, "p_value": None, "scaled": False,
-           "scaling_factor": None, "note": None}
-    if df < 0:
-        out["note"] = ("the model said to be restricted has fewer degrees of freedom than the "
-                       "other, so it cannot be nested in it; check 'nested_in'")
-        return out
-    if df == 0:
-        out["note"] = ("the two models have the same degrees of freedom: they are equivalent "
-                       "here (same fit), so there is nothing to test")
-        out["chi_square"] = t_r - t_g
-        return out
+    t_r, t_g = float(restricted_fit["chi_square"]), float(general_fit["chi_square"])
     c_r, c_g = restricted_fit.get("scaling_factor"), general_fit.get("scaling_factor")
-    if c_r is not None and c_g is not None:
+    scaled = c_r is not None and c_g is not None
+    out = _untestable(df, t_r, t_g, SCALED_DIFFERENCE if scaled else LIKELIHOOD_RATIO)
+    if out["note"] is not None:
+        return out
+    if scaled:
         c_d = (restricted_fit["df"] * c_r - general_fit["df"] * c_g) / df
         out.update(scaled=True, scaling_factor=float(c_d))
         if c_d <= 0:
@@ -313,11 +329,57 @@ def chi_square_difference(restricted_fit: dict, general_fit: dict) -> dict:
     else:
         diff = t_r - t_g
     if diff < -_NEGATIVE_TOLERANCE * max(1.0, t_r):
-        out["note"] = ("the restricted model fits better than the general one, which is "
-                       "impossible at the optimum: one of the two fits probably stopped early")
+        out["note"] = _STOPPED_EARLY
         return out
     diff = max(diff, 0.0)
     out.update(chi_square=float(diff), p_value=float(stats.chi2.sf(diff, df)))
+    return out
+
+
+def _is_dwls(fit: dict) -> bool:
+    """A fit of the ordinal route: it keeps its unadjusted statistic apart."""
+    return "chi_square_unadjusted" in fit
+
+
+def _untestable(df: int, t_r: float, t_g: float, test: str) -> dict:
+    """The row before testing; its ``note`` is set when ``df`` rules the test out."""
+    out = {"chi_square": None, "df": df, "p_value": None, "scaled": False,
+           "scaling_factor": None, "test": test, "note": None}
+    if df < 0:
+        out["note"] = ("the model said to be restricted has fewer degrees of freedom than the "
+                       "other, so it cannot be nested in it; check 'nested_in'")
+    elif df == 0:
+        out["note"] = ("the two models have the same degrees of freedom: they are equivalent "
+                       "here (same fit), so there is nothing to test")
+        out["chi_square"] = t_r - t_g
+    return out
+
+
+def dwls_difference_row(restricted: DwlsModel, general: DwlsModel, restricted_name: str,
+                        general_name: str) -> dict:
+    """The Asparouhov & Muthén (2006) difference test of a nested pair fitted
+    by DWLS (:func:`scalewright.nested_dwls.nested_dwls_test`), as a
+    comparison row: ``chi_square`` is the scaled-and-shifted difference on
+    ``df`` = the difference in degrees of freedom, ``chi_square_unadjusted``
+    is ``T_d = T_R − T_G``, ``scaling_factor`` is ``tr(MΓ)/df``,
+    ``shift_scale`` and ``shift`` are ``a`` and ``b``.
+    """
+    df = restricted.fit.test.df - general.fit.test.df
+    t_r, t_g = restricted.fit.test.chi_square, general.fit.test.chi_square
+    out = _untestable(df, t_r, t_g, DWLS_DIFFERENCE)
+    if out["note"] is not None:
+        return out
+    if t_r - t_g < -_NEGATIVE_TOLERANCE * max(1.0, t_r):
+        out["note"] = _STOPPED_EARLY
+        return out
+    found = nested_dwls_test(restricted, general)
+    if not found.nested:
+        out["note"] = (f"'{general_name}' does not reproduce the correlations implied by "
+                       f"'{restricted_name}' (largest difference {found.reproduction_gap:.2g}): "
+                       "the two are not nested, or that refit stopped early, and the test does "
+                       "not apply")
+        return out
+    out.update(found.to_dict())
     return out
 
 
@@ -347,7 +409,8 @@ def _comparable(model: dict) -> tuple:
     return (frozenset(model.get("items", ())), model.get("n_used"))
 
 
-def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
+def compare_models(specs: Sequence, models: Sequence[dict],
+                   dwls_models: Mapping[str, DwlsModel] | None = None) -> dict:
     """Rival models side by side.
 
     Parameters
@@ -356,6 +419,9 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
         The models as written in the model file (for nesting and ``first``).
     models : sequence of dict
         ``ModelResult.to_dict()`` of the same models (matched by ``name``).
+    dwls_models : mapping of name to DwlsModel, optional
+        The fits of the ordinal route (``ModelResult.fitted``), which the
+        DWLS difference test needs; a DWLS pair without them is not tested.
 
     Returns
     -------
@@ -370,7 +436,9 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
         first such model (others get ``None``).  Each nested test holds
         ``restricted``, ``general``, ``chi_square``, ``df``, ``p_value``,
         ``how_detected``, ``kind``, ``boundary``, ``scaled``,
-        ``scaling_factor`` and ``note``.
+        ``scaling_factor``, ``test`` (which difference test) and ``note``;
+        a DWLS test also ``chi_square_unadjusted``, ``shift_scale`` and
+        ``shift`` (:func:`dwls_difference_row`).
     """
     by_name = {m["name"]: m for m in models}
     spec_of = {s.name: s for s in specs}
@@ -395,16 +463,24 @@ def compare_models(specs: Sequence, models: Sequence[dict]) -> dict:
         test = {"restricted": nest.restricted, "general": nest.general,
                 "how_detected": nest.how_detected, "kind": nest.kind,
                 "boundary": nest.boundary}
+        df = int(r["fit"]["df"]) - int(g["fit"]["df"])
+        not_tested = dict(chi_square=None, df=df, p_value=None, scaled=False,
+                          scaling_factor=None, test=None)
+        dwls = _is_dwls(r["fit"]) or _is_dwls(g["fit"])
+        fitted = dwls_models or {}
         if not (r["converged"] and g["converged"]):
             failed = nest.restricted if not r["converged"] else nest.general
-            test.update(chi_square=None, df=int(r["fit"]["df"]) - int(g["fit"]["df"]),
-                        p_value=None, scaled=False, scaling_factor=None,
-                        note=f"not tested: model '{failed}' did not converge")
+            test.update(not_tested, note=f"not tested: model '{failed}' did not converge")
         elif r.get("n_used") != g.get("n_used"):
-            test.update(chi_square=None, df=int(r["fit"]["df"]) - int(g["fit"]["df"]),
-                        p_value=None, scaled=False, scaling_factor=None,
+            test.update(not_tested,
                         note=f"not tested: the models used different numbers of rows "
                              f"({r.get('n_used')} and {g.get('n_used')})")
+        elif dwls and not (nest.restricted in fitted and nest.general in fitted):
+            test.update(not_tested, note="not tested: the DWLS difference test needs the two "
+                                         "fitted models, not only their statistics")
+        elif dwls:
+            test.update(dwls_difference_row(fitted[nest.restricted], fitted[nest.general],
+                                            nest.restricted, nest.general))
         else:
             test.update(chi_square_difference(r["fit"], g["fit"]))
             if nest.boundary and test["p_value"] is not None:

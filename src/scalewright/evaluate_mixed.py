@@ -53,6 +53,7 @@ import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
+from scalewright.nested_dwls import DwlsModel
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
 from scalewright.estimate.result import DwlsData, Estimate
@@ -148,7 +149,8 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         "correlations_mixed": moments.to_dict(),
         **reliability,
     }
-    return ModelResult(spec.name, estimate, indices, std, MIXED_DWLS, tuple(warnings), extra)
+    return ModelResult(spec.name, estimate, indices, std, MIXED_DWLS, tuple(warnings), extra,
+                       fitted=DwlsModel.of(fit, moments))   # for the DWLS difference test
 
 
 def _notes(moments: MixedMoments, x: np.ndarray, empty_rows: int) -> list[str]:

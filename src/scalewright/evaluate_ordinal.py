@@ -51,6 +51,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from scalewright.diagnostics import model_warnings
+from scalewright.nested_dwls import DwlsModel
 from scalewright.estimate.dwls import DwlsFit, fit_dwls
 from scalewright.estimate.polychoric import OrdinalMoments, ordinal_moments
 from scalewright.estimate.result import DwlsData, Estimate
@@ -210,7 +211,8 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
                        "smoothed": moments.smoothed},
         "reliability_ordinal": reliability,
     }
-    return ModelResult(spec.name, estimate, indices, std, ORDINAL_DWLS, tuple(warnings), extra)
+    return ModelResult(spec.name, estimate, indices, std, ORDINAL_DWLS, tuple(warnings), extra,
+                       fitted=DwlsModel.of(fit, moments))   # for the DWLS difference test
 
 
 def _scales_for(items, scales):

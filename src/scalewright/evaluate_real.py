@@ -51,7 +51,8 @@ LABELS = {
 class RobustFitIndices(FitIndices):
     """:class:`FitIndices` plus the robust statistics and indices
     (JSON keys ``chi_square_scaled``, ``scaling_factor``, ``cfi_robust``,
-    ``tli_robust``, ``rmsea_robust``, ``rmsea_robust_ci90`` …)."""
+    ``tli_robust``, ``rmsea_robust``, ``rmsea_robust_ci90``,
+    ``adjusted_subsample_rows`` …)."""
 
     chi_square_scaled: float | None
     scaling_factor: float | None
@@ -63,6 +64,7 @@ class RobustFitIndices(FitIndices):
     tli_robust: float | None
     rmsea_robust: float | None
     rmsea_robust_ci90: tuple
+    adjusted_subsample_rows: int | None
 
     @classmethod
     def extend(cls, fit: FitIndices, model: RobustTest, baseline: RobustTest, n: int):
@@ -126,7 +128,8 @@ def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None) ->
     fit = RobustFitIndices.extend(result.fit, corrected.test, baseline_test(x, est.layout.items),
                                   est.n)
     estimate = replace(est, acov=corrected.acov, method="robust-ml")
-    return replace(result, estimate=estimate, fit=fit, estimator=LABELS[("robust", False)])
+    return replace(result, estimate=estimate, fit=fit, estimator=LABELS[("robust", False)],
+                   warnings=result.warnings + corrected.notes)
 
 
 def _full_information(spec, x: np.ndarray, robust: bool, where: str,

@@ -39,6 +39,10 @@ class ModelResult:
     estimator: str
     warnings: tuple[str, ...]
     extra: dict = field(default_factory=dict)   # keys added by later stages (reliability, hints…)
+    #: the estimator's own objects that a later stage needs and the JSON does not
+    #: carry: the ordinal route's :class:`~scalewright.nested_dwls.DwlsModel`
+    #: for the DWLS difference test; ``None`` otherwise
+    fitted: object = field(default=None, repr=False, compare=False)
 
     @property
     def converged(self) -> bool:

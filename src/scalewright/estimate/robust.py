@@ -33,13 +33,11 @@ Neither trace needs ``Γ`` or ``U``.  Write ``Γ̂ = (1/N) Σ e_i e_iᵀ`` with
 
 with ``E_i = c_i c_iᵀ − S``, and ``½ tr((VE_i)²) = ½ (c_iᵀVc_i)² − c_iᵀVSVc_i
 + ½ tr((VS)²)``: a casewise norm, ``O(N p²)``.  The variance term
-``tr((UΓ)²)`` is a sum of squared *pairwise* products and has no casewise
-form; it is accumulated in chunks of cases as the Gram matrix of the whitened
-case contributions ``f_i = vechʷ(L ᵀE_i L)/√2`` (``V = L Lᵀ``, off-diagonal
-elements weighted by √2), ``Γ_W = (1/N) Σ f_i f_iᵀ``: then with the
-whitened derivatives ``Δ̃`` (``Δ̃ᵀΔ̃ = I``) and ``P = Δ̃ I⁻¹ Δ̃ᵀ``,
-``tr((UΓ)²) = ‖(1 − P) Γ_W (1 − P)‖²_F``.  The raw fourth-moment matrix
-and ``U`` are never formed.
+``tr((UΓ)²)`` is a sum over *pairs* of cases and has no casewise form;
+:mod:`scalewright.estimate.variance_trace` computes it exactly from the
+casewise scores and the pairwise products of the whitened cases (or their
+Gram matrix, whichever is cheaper), without the raw fourth-moment matrix or
+``U``.
 
 Robust fit indices use the scaling factors ``c`` (model) and ``c_B``
 (baseline): Brosseau-Liard, Savalei & Li (2012) for RMSEA and Brosseau-Liard
@@ -68,11 +66,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, stats
 
+from scalewright.estimate.variance_trace import variance_trace
 from scalewright.indices import comparative_fit, rmsea, rmsea_interval
 from scalewright.layout import (RESIDUAL_COV, Cells, Layout, Matrices, Param, Pattern,
                                 cell_derivatives)
 
-#: cases per chunk: a chunk of whitened contributions for 50 items is 1275 columns
+#: cases per chunk of the casewise scores and norms
 CHUNK = 8192
 
 
@@ -81,13 +80,16 @@ class RobustTest:
     """Scaled and adjusted versions of the likelihood-ratio statistic ``T``.
 
     ``trace`` and ``trace_squared`` are ``tr(UΓ)`` and ``tr((UΓ)²)``;
-    ``scaling_factor`` is ``c = tr(UΓ)/df``.
+    ``scaling_factor`` is ``c = tr(UΓ)/df``.  ``variance_rows`` is the size
+    of the seeded random subsample ``tr((UΓ)²)`` came from, ``None`` when it
+    used every row (JSON ``adjusted_subsample_rows``).
     """
 
     chi_square: float
     df: int
     trace: float
     trace_squared: float
+    variance_rows: int | None = None
 
     @property
     def scaling_factor(self) -> float:
@@ -115,15 +117,18 @@ class RobustTest:
             "df_adjusted": _num(self.df_adjusted),
             "p_value_adjusted": _num(stats.chi2.sf(adjusted, self.df_adjusted))
             if self.df > 0 else None,
+            "adjusted_subsample_rows": self.variance_rows,
         }
 
 
 @dataclass(frozen=True)
 class RobustML:
-    """Sandwich covariance of θ̂ and the robust test of one model."""
+    """Sandwich covariance of θ̂ and the robust test of one model; ``notes``
+    are sentences the report must carry (a subsampled variance trace)."""
 
     acov: np.ndarray
     test: RobustTest
+    notes: tuple[str, ...] = ()
 
     @property
     def se(self) -> np.ndarray:
@@ -199,9 +204,10 @@ def robust_ml(layout: Layout, theta: np.ndarray, x: np.ndarray, chi_square: floa
         The ML statistic ``T = 2(ℓ_sat − ℓ)``.
     adjusted : bool
         Also compute ``tr((UΓ)²)`` for the mean-and-variance adjusted
-        statistic (``O(N p⁴)`` work, see the module docstring; beyond
-        :data:`GRAM_MAX_ROWS` cases from a seeded subsample); when False,
-        ``trace_squared`` is NaN.
+        statistic (:func:`scalewright.estimate.variance_trace.variance_trace`:
+        exact on every row up to its stated budget, beyond it from a seeded
+        subsample, which ``notes`` then says); when False, ``trace_squared``
+        is NaN.
 
     Returns
     -------
@@ -224,34 +230,14 @@ def robust_ml(layout: Layout, theta: np.ndarray, x: np.ndarray, chi_square: floa
     meat = score_cross_products(layout, theta, x, mean, s) / n
     acov = info_inv @ meat @ info_inv / n
     trace = _mean_case_norm(x, mean, v, s) - float(np.sum(info_inv * meat))
-    trace_squared = float("nan")
+    trace_squared, rows, notes = float("nan"), None, ()
     if adjusted:
-        rows = _gram_rows(n)
-        gram_trace, trace_squared = _projected_gram_traces(x[rows] if rows is not None else x,
-                                                           mean, v, s, a, b, inc, info_inv)
-        if rows is None:
-            trace = gram_trace
+        variance = variance_trace(x, mean, s, v, a, b, inc, info)
+        trace_squared = variance.value
+        if variance.subsample:
+            rows, notes = variance.rows, (variance.note(p),)
     return RobustML(acov, RobustTest(float(chi_square), layout.df(), float(trace),
-                                     float(trace_squared)))
-
-
-#: above this many cases, ``tr((UΓ)²)`` is estimated from a seeded random subsample
-GRAM_MAX_ROWS = 200_000
-
-
-def _gram_rows(n: int) -> np.ndarray | None:
-    """Rows for the ``O(N p⁴)`` variance trace: all of them, or for very large
-    samples a seeded random subsample of :data:`GRAM_MAX_ROWS` cases.
-
-    ``tr((UΓ)²)`` only sets the adjusted degrees of freedom; estimated from
-    200,000 cases its relative sampling error is of order 1/√200,000 times the
-    kurtosis spread, far below what matters for the adjusted test, while the
-    full-sample cost at 1,000,000 × 50 is minutes.  ``tr(UΓ)``, the sandwich
-    and the scaled statistic always use every case.
-    """
-    if n <= GRAM_MAX_ROWS:
-        return None
-    return np.sort(np.random.default_rng(n).choice(n, GRAM_MAX_ROWS, replace=False))
+                                     float(trace_squared), rows), notes)
 
 
 def _mean_case_norm(x, mean, v, s) -> float:
@@ -266,43 +252,6 @@ def _mean_case_norm(x, mean, v, s) -> float:
         r = np.einsum("ij,ij->i", c @ vsv, c)
         total += float(np.sum(0.5 * q * q - r))
     return total / len(x) + 0.5 * float(np.sum(vs * vs.T))
-
-
-def whitened_vech(m: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
-    """``vechʷ(M)/√2`` of the last two axes: lower-triangle elements, the
-    off-diagonal ones times √2, all divided by √2, so that
-    ``vechʷ(X)·vechʷ(Y)/2 = ½ tr(XY)`` for symmetric ``X, Y``."""
-    weight = np.where(rows == cols, np.sqrt(0.5), 1.0)
-    return m[..., rows, cols] * weight
-
-
-def _projected_gram_traces(x, mean, v, s, a, b, inc, info_inv):
-    """``tr(UΓ)`` and ``tr((UΓ)²)`` from the Gram matrix of whitened case contributions."""
-    p = x.shape[1]
-    low = np.linalg.cholesky(v)                 # V = L Lᵀ; whitened case y = Lᵀc
-    rows, cols = np.tril_indices(p)
-    at, bt = low.T @ a, low.T @ b
-    d_cells = (at[rows] * bt[cols] + bt[rows] * at[cols]) * \
-        np.where(rows == cols, np.sqrt(0.5), 1.0)[:, None]
-    delta = d_cells @ inc                       # p* × q, Δ̃ᵀΔ̃ = I
-    f_mean = whitened_vech(low.T @ s @ low, rows, cols)
-    gram = np.zeros((len(rows), len(rows)))
-    for start in range(0, len(x), CHUNK):
-        y = (x[start:start + CHUNK] - mean) @ low
-        f = y[:, rows] * y[:, cols] * np.where(rows == cols, np.sqrt(0.5), 1.0)
-        gram += f.T @ f
-    gram = gram / len(x) - np.outer(f_mean, f_mean)
-    k = _complement_sandwich(gram, delta, info_inv)
-    return float(np.trace(k)), float(np.sum(k * k))
-
-
-def _complement_sandwich(gram, delta, info_inv):
-    """``(1 − P) Γ (1 − P)`` with ``P = Δ I⁻¹ Δᵀ``, from thin products only."""
-    gd = gram @ delta                           # p* × q
-    proj_g = delta @ (info_inv @ gd.T)          # P Γ
-    dgd = delta.T @ gd
-    pgp = delta @ (info_inv @ dgd @ info_inv) @ delta.T
-    return gram - proj_g - proj_g.T + pgp
 
 
 def independence_layout(items: tuple[str, ...], variances: np.ndarray,

@@ -394,8 +394,14 @@ def methods_paragraphs(report: dict) -> list[str]:
                 "BIC-based model weights (Raftery, 1995; Wagenmakers & Farrell, 2004)")
         if report["comparison"].get("nested_tests"):
             fit += ", and nested models by chi-square difference tests"
-            if any(t.get("scaled") for t in report["comparison"]["nested_tests"]):
+            used = " ".join(str(t.get("test")) for t in report["comparison"]["nested_tests"])
+            if "Satorra" in used:
                 fit += " scaled as proposed by Satorra and Bentler (2001)"
+            if "DWLS" in used:
+                fit += (" (for the DWLS fits, the difference test of Satorra (2000) and "
+                        "Asparouhov and Muthén (2006), scaled and shifted to the mean and variance "
+                        "of chi-square on the difference in degrees of freedom as in Asparouhov "
+                        "and Muthén (2010))")
         fit += "."
     out.append(fit)
     extra = ["Item distributions were described by skewness and excess kurtosis, and "

@@ -17,6 +17,9 @@ CITATIONS = {
     "arbuckle": "Arbuckle, J. L. (1996). Full information estimation in the presence of "
                 "incomplete data. In G. A. Marcoulides & R. E. Schumacker (Eds.), Advanced "
                 "structural equation modeling (pp. 243–277). Erlbaum.",
+    "asparouhov_muthen2006": "Asparouhov, T., & Muthén, B. (2006). Robust chi square "
+                             "difference testing with mean and variance adjusted test "
+                             "statistics (Technical note No. 10).",
     "asparouhov_muthen2010": "Asparouhov, T., & Muthén, B. (2010). Simple second order "
                              "chi-square correction (Technical appendix).",
     "bentler1990": "Bentler, P. M. (1990). Comparative fit indexes in structural models. "
@@ -188,8 +191,11 @@ def references_used(report: dict) -> list[str]:
         tests = comparison.get("nested_tests", ())
         if tests:
             keys.add("steiger_shapiro_browne")
-        if any(t.get("scaled") for t in tests):
+        used = " ".join(str(t.get("test")) for t in tests)
+        if "Satorra" in used:
             keys.add("satorra_bentler2001")
+        if "DWLS" in used:
+            keys |= {"satorra2000", "asparouhov_muthen2006", "asparouhov_muthen2010"}
         if any(t.get("boundary") for t in tests):
             keys.add("self_liang")
         if any(t.get("kind") == "higher-order in bifactor" for t in tests):

@@ -211,21 +211,36 @@ def comparison_table(report: dict) -> Table:
 
 
 def nested_table(report: dict) -> Table:
-    """Chi-square difference tests between nested models."""
+    """Chi-square difference tests between nested models, each naming its test."""
     rows = []
-    for t in report["comparison"]["nested_tests"]:
+    tests = report["comparison"]["nested_tests"]
+    for t in tests:
         rows.append((_h(t["restricted"]), Cell(t["general"], css="text"),
+                     Cell(t.get("test") or DASH, css="text"),
                      _c(dec(t.get("chi_square"), 2)), _c(str(t.get("df"))),
                      _c(pval(t.get("p_value"))),
                      Cell(f"{t['how_detected']}." + (f" Note: {t['note']}." if t.get("note") else ""),
                           css="text prose")))
-    notes = ("Δχ² is the restricted model's chi-square minus the general model's, on the "
-             "difference in degrees of freedom (Steiger, Shapiro & Browne 1985); a small p says "
-             "the restrictions cost more fit than chance would explain. A large p does not show "
-             "that the restricted model is right.",)
+    used = " ".join(str(t.get("test")) for t in tests)
+    notes = []
+    if "Steiger" in used:
+        notes.append("Likelihood-ratio difference: Δχ² is the restricted model's chi-square minus "
+                     "the general model's, on the difference in degrees of freedom (Steiger, "
+                     "Shapiro & Browne 1985).")
+    if "Satorra" in used:
+        notes.append("Scaled difference: the difference of the unscaled chi-squares divided by "
+                     "the scaling factor of the difference (Satorra & Bentler 2001).")
+    if "DWLS" in used:
+        notes.append("DWLS difference: the difference of the two unadjusted DWLS statistics, "
+                     "whose distribution (a weighted sum of one-df chi-squares) is matched in "
+                     "mean and variance to chi-square on Δdf by a scale and a shift (Satorra "
+                     "2000; Asparouhov & Muthén 2006; Asparouhov & Muthén 2010).")
+    notes.append("A small p says the restrictions cost more fit than chance would explain. A "
+                 "large p does not show that the restricted model is right.")
     return Table("nested-tests", "Chi-square difference tests between nested models",
-                 ("Restricted model", "General model", "Δχ²", "Δdf", "p", "How the nesting is known"),
-                 tuple(rows), notes, left=2)
+                 ("Restricted model", "General model", "Test", "Δχ²", "Δdf", "p",
+                  "How the nesting is known"),
+                 tuple(rows), tuple(notes), left=3)
 
 
 # --------------------------------------------------------------------------- one model
