@@ -19,6 +19,14 @@ accepted, releases included), as the continuous route does
   thresholds and latent-response intercepts, those for residual variances
   to unique variances.
 
+Items with two answer categories (yes/no) join the steps as
+:mod:`scalewright.multigroup_ordinal` sets out: their threshold is made
+equal together with their loading, the intercepts step sets their
+intercept to 0, and their unique variances are 1 throughout; a model of
+such items only runs configural → thresholds and loadings → intercepts
+(:func:`~scalewright.multigroup_ordinal.steps_for`), the skipped steps
+being listed with the reason.
+
 Partial invariance.  A step is searched when a convention signals
 non-invariance or the difference test rejects at ``α``.  For every equality
 constraint the step added, the generalized score test of releasing it
@@ -42,7 +50,9 @@ reject, no constraint stands out, or a fifth of the step's constraints
 item keeps at least two equal thresholds (its intercept and unique variance
 outside the reference group are identified by them; Wu & Estabrook 2016),
 and each construct at least two equal loadings and intercepts (Steenkamp &
-Baumgartner 1998).
+Baumgartner 1998).  A two-category item's threshold is not a candidate (on
+its own it is not identified once its intercept is free), nor its unique
+variance (fixed in every group).
 
 Latent comparisons.  Latent means are identified once thresholds, loadings
 and latent-response intercepts are equal (Wu & Estabrook 2016): they come
