@@ -422,13 +422,21 @@ def test_a_group_too_small_for_polychoric_correlations_is_named_with_its_size(tm
         api.check(path)
 
 
-def test_two_category_items_are_refused_with_the_reason(tmp_path):
+def test_a_two_category_item_among_five_category_items_joins_the_sequence(tmp_path):
     frame = answers_frame(np.random.default_rng(10))
     frame["y4"] = np.where(frame["y4"] >= 3, 2.0, 1.0)
     path = write_study(tmp_path, frame, scale="")
-    with pytest.raises(StudyError, match=r"'y4' has only two answer categories in the group "
-                       r"comparison.*Wu & Estabrook \(2016\)"):
-        api.check(path)
+    out = api.check(path).to_dict()
+    steps = out["invariance"]
+    # mixed items: every step adds a constraint for the five-category items, so all five run
+    assert [s["step"] for s in steps] == list(STEPS)
+    assert out["invariance_setup"]["two_category_items"] == ["y4"]
+    assert out["invariance_setup"]["skipped_steps"] == []
+    # counting (tests/test_invariance_binary.py writes the parameters out): y4's threshold and
+    # loading join the loadings step, the thresholds step adds (5 − 3) df per other item
+    assert steps[1]["difference_test"]["df"] == 7 * 2
+    assert steps[2]["two_category_items"]["adds"].startswith("equal thresholds and equal "
+                                                             "loadings together")
 
 
 # --------------------------------------------------------------------------- the whole check

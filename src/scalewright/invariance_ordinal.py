@@ -19,6 +19,14 @@ accepted, releases included), as the continuous route does
   thresholds and latent-response intercepts, those for residual variances
   to unique variances.
 
+Items with two answer categories (yes/no) join the steps as
+:mod:`scalewright.multigroup_ordinal` sets out: their threshold is made
+equal together with their loading, the intercepts step sets their
+intercept to 0, and their unique variances are 1 throughout; a model of
+such items only runs configural → thresholds and loadings → intercepts
+(:func:`~scalewright.multigroup_ordinal.steps_for`), the skipped steps
+being listed with the reason.
+
 Partial invariance.  A step is searched when a convention signals
 non-invariance or the difference test rejects at ``α``.  For every equality
 constraint the step added, the generalized score test of releasing it
@@ -42,7 +50,9 @@ reject, no constraint stands out, or a fifth of the step's constraints
 item keeps at least two equal thresholds (its intercept and unique variance
 outside the reference group are identified by them; Wu & Estabrook 2016),
 and each construct at least two equal loadings and intercepts (Steenkamp &
-Baumgartner 1998).
+Baumgartner 1998).  A two-category item's threshold is not a candidate (on
+its own it is not identified once its intercept is free), nor its unique
+variance (fixed in every group).
 
 Latent comparisons.  Latent means are identified once thresholds, loadings
 and latent-response intercepts are equal (Wu & Estabrook 2016): they come
@@ -88,11 +98,12 @@ from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention,
 from scalewright.layout import INTERCEPT, LOADING, PATH, RESIDUAL_COV, Param
 from scalewright.methods import LISTWISE
 from scalewright.multigroup import carry_start
-from scalewright.multigroup_ordinal import (IDENTIFICATION, INTERCEPTS, LABELS,
-                                            LOADINGS, SHARED, STEPS, THRESHOLD, THRESHOLDS,
-                                            UNIQUE, OrdinalGroupFit, build_ordinal_layout,
+from scalewright.multigroup_ordinal import (BINARY_ADDS, BINARY_IDENTIFICATION, IDENTIFICATION,
+                                            INTERCEPTS, LABELS, LOADINGS, SHARED, STEPS,
+                                            THRESHOLD, THRESHOLDS, UNIQUE, OrdinalGroupFit,
+                                            binary_items, build_ordinal_layout,
                                             fit_ordinal_groups, parameter_class,
-                                            sample_statistics, stacked_jacobian)
+                                            sample_statistics, stacked_jacobian, steps_for)
 from scalewright.ordinal_groups import OrdinalGroupMoments, ordinal_group_moments
 
 #: each item keeps this many equal thresholds (Wu & Estabrook 2016: its intercept and
@@ -133,8 +144,9 @@ class OrdinalComparison:
         what = LABELS[step].capitalize()
         if not self.testable:
             return (f"{what}: the step adds no degrees of freedom, so it cannot be tested; the "
-                    "model is equivalent to the one before it (with three answer categories, "
-                    "equal thresholds are not testable: Wu & Estabrook 2016).")
+                    "model is equivalent to the one before it (equal thresholds are not "
+                    "testable for items with three answer categories, nor on their own for "
+                    "items with two: Wu & Estabrook 2016).")
         met = [c.source for c in self.conventions if c.met]
         unmet = [c.source for c in self.conventions if not c.met]
         verdict = ("hold by every convention" if not unmet else
@@ -170,12 +182,18 @@ def compare(step: str, fit: OrdinalGroupFit, previous: OrdinalGroupFit,
 
 def constraints(layout, step: str, released: frozenset) -> list[Param]:
     """The equality constraints the step adds that are still in force, in
-    shared form (for intercepts and unique variances, one per item)."""
+    shared form (for intercepts and unique variances, one per item).  A
+    two-category item's threshold, made equal with its loading, is not
+    listed (released alone it would not be identified), nor its unique
+    variance, which no step frees (:mod:`scalewright.multigroup_ordinal`)."""
     if step in (THRESHOLDS, LOADINGS):
         return [q for q in layout.params if q.group is None and parameter_class(q) == step
-                and q not in released]
+                and q not in released and not (q.kind == THRESHOLD
+                                               and q.a in layout.binary_items)]
     kind = INTERCEPT if step == INTERCEPTS else RESIDUAL_COV
-    return [q for q in (Param(kind, item, item) for item in layout.items) if q not in released]
+    items = [item for item in layout.items
+             if not (step == UNIQUE and item in layout.binary_items)]
+    return [q for q in (Param(kind, item, item) for item in items) if q not in released]
 
 
 def releasable_constraints(layout, step: str, released: frozenset) -> list[Param]:
@@ -339,6 +357,8 @@ class OrdinalInvarianceResult:
         """The keys of :meth:`scalewright.invariance.InvarianceResult.to_dict`,
         with ordinal steps, plus ``label`` per step and the identification."""
         labels, latent = self.data.labels, self.latent
+        binary = binary_items(self.data)
+        fitted = {s.step for s in self.steps}
         return {
             "invariance_setup": {
                 "model": self.model, "groups": list(labels), "reference": labels[0],
@@ -356,7 +376,15 @@ class OrdinalInvarianceResult:
                 "standard_errors": "sandwich",
                 "difference_test": METHOD,
                 "identification": self.identification,
-                "ordinal_identification": IDENTIFICATION,
+                "ordinal_identification": IDENTIFICATION
+                + ("; " + BINARY_IDENTIFICATION[0].lower() + BINARY_IDENTIFICATION[1:]
+                   if binary else ""),
+                "two_category_items": list(binary),
+                "skipped_steps": [{"step": step, "label": LABELS[step],
+                                   "reason": "every item has two answer categories, and "
+                                             "for them this step adds " + BINARY_ADDS[step]}
+                                  for step in STEPS if step not in fitted
+                                  and step not in steps_for(self.data)],
                 "parameterization": "theta",
                 "baseline_model": "independence within each group: polychoric correlations 0, "
                                   "thresholds free in every group (the same for every step)",
@@ -380,7 +408,10 @@ class OrdinalInvarianceResult:
         }
 
     def _step_dict(self, s: OrdinalStep) -> dict:
+        binary = list(s.final.layout.binary_items)
         out = {"step": s.step, "label": LABELS[s.step], "equal": list(SHARED[s.step]),
+               "two_category_items": {"items": binary,
+                                      "adds": BINARY_ADDS[s.step] if binary else None},
                "partial": bool(s.releases), "converged": bool(s.final.estimate.record.converged),
                "fit": s.final.to_dict(), "delta": None, "difference_test": None,
                "decision": {"holds": None, "text": "The configural model is the reference "
@@ -438,7 +469,7 @@ def _group_values(fit: OrdinalGroupFit, param: Param) -> dict:
 
 
 def ordinal_invariance(spec, data: OrdinalGroupMoments, *, dropped: dict | None = None,
-                       wording: dict | None = None, steps=STEPS,
+                       wording: dict | None = None, steps=None,
                        missing_handling: str = "pairwise") -> OrdinalInvarianceResult:
     """Run the whole ordinal sequence for one model and compare the latent variables.
 
@@ -451,12 +482,14 @@ def ordinal_invariance(spec, data: OrdinalGroupMoments, *, dropped: dict | None 
         Rows left out, by reason, for the report.
     wording : dict, optional
         Item name → wording, used when naming non-invariant items.
-    steps : sequence of str
-        The steps to fit, in order (default: all five).
+    steps : sequence of str, optional
+        The steps to fit, in order (default: those that add a constraint for
+        these items, :func:`scalewright.multigroup_ordinal.steps_for` — all
+        five unless every item has two categories).
     missing_handling : str
         How missing answers were handled, for the report.
     """
-    results = run_sequence(spec, data, steps)
+    results = run_sequence(spec, data, steps_for(data) if steps is None else steps)
     by_step = {s.step: s for s in results}
     latent, note = None, ""
     if INTERCEPTS in by_step and by_step[INTERCEPTS].holds:

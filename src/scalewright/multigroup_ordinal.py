@@ -45,6 +45,46 @@ invariance stays group-specific (an intercept or unique variance: free
 outside the reference group).  A shift of all thresholds of an item together
 is carried by its intercept, so it shows at the intercepts step.
 
+Items with two categories (yes/no).  The rule behind the table is that each
+threshold made equal frees one identification constraint of its item
+outside the reference group: the first its intercept ``ν_j``, the second its
+unique variance ``Θ_jj`` (Wu & Estabrook 2016).  A two-category item has one
+threshold, so its unique variance is 1 in every group at every step, and
+its threshold alone is not testable.  The count behind this, per item and
+non-reference group, given the group's latent mean and variance (identified
+by the other items): the group's answers identify two numbers of the item,
+its standardized threshold ``τ̃`` and its standardized loading ``λ√ψ/σ``
+(through the correlations) — the two parameters of a normal-ogive item,
+``λ/√Θ`` and ``(τ − ν)/√Θ``.  Equal ``τ`` with ``ν`` free is no
+restriction (``τ − ν`` stays free); freeing ``Θ`` as well would leave three
+parameters for two numbers.  Equal ``λ`` with ``Θ = 1`` is one restriction,
+and ``ν = 0`` then a second.  So a two-category item joins the sequence as
+
+==================  =====================================================================
+step                what the step adds for a two-category item
+==================  =====================================================================
+configural          as every item: threshold and loading per group, ν = 0, Θ_jj = 1
+thresholds          nothing (not testable alone; the item stays as configured)
+loadings            its threshold *and* loading equal; ν_j estimated outside the
+                    reference group (1 df per item and non-reference group, before
+                    the latent variances freed)
+intercepts          ν_j = 0 in every group (1 df per item and non-reference group)
+unique variances    nothing: Θ_jj = 1 in every group from the configural step on, so
+                    equal unique variances are assumed, not tested
+==================  =====================================================================
+
+and a model of two-category items only skips the thresholds and unique
+variances steps, which add nothing (configural → thresholds and loadings →
+intercepts).  Over the sequence such an item adds ``2(G − 1)`` df, the
+count of a normal-ogive item's two parameters in ``G − 1`` groups.  That Wu
+& Estabrook (2016) treat binary items so — thresholds and loadings made
+equal together, no separate test of threshold, intercept or unique
+variance equality — is from memory; the counting above is what the code
+rests on.  Equal unique variances of two-category items are an assumption
+of every step (the same one the configural model makes).  A released
+loading of a two-category item keeps its threshold equal and ``ν_j`` free;
+its threshold is never released on its own (it would not be identified).
+
 Fit function (stacked DWLS; Muthén, du Toit & Spisic 1997).  With ``s_g`` the
 estimate vector of group ``g`` (thresholds, then correlations), ``Γ_g`` its
 sampling covariance and ``m_g(θ)`` the model moments above, groups being
@@ -102,7 +142,6 @@ from dataclasses import asdict, dataclass, field, replace
 import numpy as np
 
 from scalewright.blas import one_blas_thread
-from scalewright.errors import StudyError
 from scalewright.estimate.dwls import DwlsTest
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.result import Estimate, invert_information
@@ -138,6 +177,41 @@ IDENTIFICATION = (
     "the reference group; equal loadings free the latent variances, equal intercepts the "
     "latent means, outside the reference group")
 
+#: the step at which the one threshold of a two-category item is made equal (with its loading)
+BINARY_THRESHOLD_STEP = LOADINGS
+
+#: what each step adds for items with two answer categories (module docstring)
+BINARY_ADDS = {
+    CONFIGURAL: "no constraint (threshold and loading per group, intercept 0, unique variance "
+                "1, as for every item)",
+    THRESHOLDS: "no constraint (one threshold cannot be tested on its own, so it stays "
+                "group-specific)",
+    LOADINGS: "equal thresholds and equal loadings together (the latent-response intercept is "
+              "then estimated outside the reference group)",
+    INTERCEPTS: "latent-response intercepts of 0 in every group",
+    UNIQUE: "no constraint (unique variances are 1 in every group from the configural step "
+            "on: assumed equal, not testable with one threshold)"}
+
+BINARY_IDENTIFICATION = (
+    "Items with two answer categories have one threshold: their unique variance is 1 in every "
+    "group, their threshold is made equal together with their loading (its intercept then "
+    "estimated outside the reference group), and the intercepts step sets that intercept to "
+    "0; equal thresholds alone and equal unique variances are not testable for them")
+
+
+def binary_items(data: OrdinalGroupMoments) -> tuple[str, ...]:
+    """The items with two answer categories (as analysed, after any merging)."""
+    return tuple(item for item, k in zip(data.items, data.n_categories) if k == 2)
+
+
+def steps_for(data: OrdinalGroupMoments) -> tuple[str, ...]:
+    """The steps of the sequence that add a constraint for these items: with
+    two-category items only, the thresholds and unique variances steps add
+    nothing (module docstring) and are skipped."""
+    if len(binary_items(data)) < len(data.items):
+        return STEPS
+    return tuple(step for step in STEPS if step not in (THRESHOLDS, UNIQUE))
+
 
 def parameter_class(param: Param) -> str | None:
     """The invariance class of a (shared-form) parameter or constraint, or
@@ -161,6 +235,7 @@ class OrdinalLayout(Layout):
 
     thresholds: tuple = ()
     threshold_items: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    binary_items: tuple = ()
 
     def n_moments(self) -> int:
         """Thresholds and polychoric correlations in every group."""
@@ -183,7 +258,7 @@ def build_ordinal_layout(spec, data: OrdinalGroupMoments, step: str,
     labels = data.labels
     n_groups = len(labels)
     shared = SHARED[step]
-    _require_three_categories(spec, data)
+    binary = frozenset(binary_items(data))
     base = build_layout(spec, data.pooled_correlations())
     pattern0 = base.patterns[0]
     p, m = base.p, len(base.factors)
@@ -199,8 +274,13 @@ def build_ordinal_layout(spec, data: OrdinalGroupMoments, step: str,
         start.append(float(value))
         return len(params) - 1
 
+    def step_of(param: Param) -> str | None:
+        if param.kind == THRESHOLD and param.a in binary:
+            return BINARY_THRESHOLD_STEP
+        return parameter_class(param)
+
     def share(param: Param) -> bool:
-        return parameter_class(param) in shared and param not in released
+        return step_of(param) in shared and param not in released
 
     def indices(param: Param, values: np.ndarray) -> list[int]:
         if share(param):
@@ -220,9 +300,10 @@ def build_ordinal_layout(spec, data: OrdinalGroupMoments, step: str,
     thr_index = np.array([indices(param, thr_starts[:, t])
                           for t, param in enumerate(threshold_params)], dtype=np.intp).T
 
-    equal_thresholds = THRESHOLDS in shared
-
     def free_outside_reference(kind: str, item: str, cls: str) -> bool:
+        if item in binary and kind == RESIDUAL_COV:
+            return False
+        equal_thresholds = (BINARY_THRESHOLD_STEP if item in binary else THRESHOLDS) in shared
         return equal_thresholds and (cls not in shared or Param(kind, item, item) in released)
 
     free_var = np.zeros(m, dtype=bool)
@@ -231,6 +312,7 @@ def build_ordinal_layout(spec, data: OrdinalGroupMoments, step: str,
     scaled_by_variance = np.flatnonzero((np.diag(pattern0.fixed.disturbances) == 1.0) & ~free_var)
     explained = np.any(pattern0.fixed.paths != 0, axis=1)
     explained[pattern0.paths.rows] = True
+    binary_in_order = tuple(item for item in base.items if item in binary)
     patterns = []
     for g, label in enumerate(labels):
         psi_extra, alpha, nu, unique = [], [], [], []
@@ -252,21 +334,9 @@ def build_ordinal_layout(spec, data: OrdinalGroupMoments, step: str,
         name=spec.name, items=base.items, factors=base.factors, kinds=base.kinds,
         primary=base.primary, patterns=tuple(patterns), params=tuple(params),
         start=np.array(start), groups=tuple(labels),
-        notes=base.notes + _notes(spec, step, labels, released),
-        thresholds=tuple(thr_index), threshold_items=threshold_items)
-
-
-def _require_three_categories(spec, data: OrdinalGroupMoments) -> None:
-    two = [item for item, k in zip(data.items, data.n_categories) if k < 3]
-    if two:
-        raise StudyError(
-            f"{spec.place}: {', '.join(repr(i) for i in two)} "
-            f"{'has' if len(two) == 1 else 'have'} only two answer categories in the group "
-            "comparison. The ordinal invariance sequence here follows Wu & Estabrook (2016) "
-            "for items with three or more categories; with two, equal thresholds and equal "
-            "loadings cannot be tested separately. Leave such items out of the model for the "
-            "group comparison, or set estimation: method: robust to treat all items as "
-            "continuous.")
+        notes=base.notes + _notes(spec, step, labels, released, binary_in_order),
+        thresholds=tuple(thr_index), threshold_items=threshold_items,
+        binary_items=binary_in_order)
 
 
 def _group_start(spec, base: Layout, moments) -> tuple[np.ndarray, np.ndarray]:
@@ -312,7 +382,7 @@ def _group_pattern(base: Pattern, index: np.ndarray, psi_extra: list, unique: li
                    Cells.from_triples(alpha))
 
 
-def _notes(spec, step: str, labels, released) -> tuple[str, ...]:
+def _notes(spec, step: str, labels, released, binary) -> tuple[str, ...]:
     reference = labels[0]
     shared = SHARED[step]
     notes = [f"Fitted in {len(labels)} groups at once ({', '.join(labels)}) by diagonally "
@@ -328,17 +398,24 @@ def _notes(spec, step: str, labels, released) -> tuple[str, ...]:
                  + (f", except {len(released)} released parameter(s)" if released else "") + ".")
     if INTERCEPTS not in shared:
         notes.append(f"Latent-response intercepts are 0 in '{reference}' and estimated in the "
-                     "other groups; latent means are 0 in every group.")
+                     "other groups" + (" (those of items with two answer categories once "
+                                       "their thresholds are equal)" if binary else "")
+                     + "; latent means are 0 in every group.")
     else:
         notes.append(f"Latent-response intercepts are 0 in every group; latent means are 0 in "
                      f"'{reference}' and estimated in the other groups.")
     if UNIQUE not in shared:
-        notes.append(f"Unique variances are 1 in '{reference}' and estimated in the other groups.")
+        notes.append(f"Unique variances are 1 in '{reference}' and estimated in the other groups"
+                     + (" (those of items with two answer categories are 1 in every group)"
+                        if binary else "") + ".")
     else:
         notes.append("Unique variances are 1 in every group.")
     if LOADINGS in shared and spec.identification != MARKER:
         notes.append(f"Latent variances are 1 in '{reference}' and estimated in the other "
                      "groups.")
+    if binary:
+        notes.append(f"For the items with two answer categories ({', '.join(binary)}) this "
+                     f"step adds {BINARY_ADDS[step]}.")
     return tuple(notes)
 
 

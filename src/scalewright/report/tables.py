@@ -762,8 +762,10 @@ def invariance_table(report: dict) -> Table:
         fit = s.get("fit") or {}
         delta = s.get("delta") or {}
         test = s.get("difference_test") or {}
-        step = str(s.get("label") or s.get("step", "")) + (" (partial)" if s.get("partial")
-                                                           else "")
+        binary = s.get("two_category_items") or {}
+        step = (str(s.get("label") or s.get("step", "")) + (" (partial)" if s.get("partial")
+                                                            else "")
+                + (f"; for two-category items: {binary['adds']}" if binary.get("adds") else ""))
         rows.append((_h(step), _c(dec(fit.get("chi_square"), 2)),
                      _c(str(fit.get("df", DASH))), _c(coef(fit.get("cfi"))),
                      _c(coef(fit.get("rmsea"))), _c(coef(fit.get("srmr"))),
@@ -771,12 +773,16 @@ def invariance_table(report: dict) -> Table:
                      _c(coef(delta.get("srmr"))), _c(dec(test.get("chi_square"), 2)),
                      _c(str(test.get("df", DASH))), _c(pval(test.get("p_value"))),
                      _decision(s.get("decision"))))
+    setup = report.get("invariance_setup") or {}
+    skipped = [f"The step ‘{x['label']}’ was not fitted: {x['reason']}."
+               for x in setup.get("skipped_steps") or ()]
     return Table("invariance", "Measurement invariance, step by step",
                  ("Step", "χ²", "df", "CFI", "RMSEA", "SRMR", "ΔCFI", "ΔRMSEA", "ΔSRMR",
                   "Δχ²", "Δdf", "p", "Decision"), tuple(rows),
                  ("Decisions follow the change criteria of Cheung & Rensvold (2002) and Chen "
                   "(2007), which are conventions; each decision is given in full below the "
-                  "table. (partial): some equality constraints of the step were released.",),
+                  "table. (partial): some equality constraints of the step were released.",
+                  *skipped),
                  css="wide")
 
 
