@@ -278,8 +278,8 @@ def test_rows_mark_the_first_specified_model(hs_x):
 
 
 def test_ordinal_fits_are_not_compared_by_their_statistics_alone():
-    # a DWLS fit's statistics do not give its difference test (Asparouhov &
-    # Muthén 2006 need both fits; tests/test_nested_dwls.py); the old
+    # a DWLS fit's statistics do not give its difference test (Satorra 2000:
+    # M needs both fits' derivatives; tests/test_nested_dwls.py); the old
     # mean-scaled stand-in on the unadjusted statistics is gone
     weak = {"df": 76, "chi_square": 1.0, "chi_square_unadjusted": 100.8, "scaling_factor": 1.115}
     configural = {"df": 69, "chi_square": 2.0, "chi_square_unadjusted": 91.2,

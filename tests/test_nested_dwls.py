@@ -1,5 +1,5 @@
-"""The DWLS difference test of nested ordinal models (scalewright.nested_dwls)
-and its place in the rival-model comparison.
+"""The DWLS difference test of nested ordinal models (scalewright.dwls_difference,
+Satorra 2000) and its place in the rival-model comparison.
 
 Outside references:
 
@@ -7,7 +7,7 @@ Outside references:
   written out by hand (Λ Φ Λᵀ plus residual covariances), model 1 fitted
   to model 0's implied correlations by scipy's least squares, Jacobians by
   central differences, and M = WΔ₁V₁Δ₁ᵀW − WΔ₀V₀Δ₀ᵀW formed densely with
-  the eigenvalues of MΓ (Asparouhov & Muthén 2006);
+  the eigenvalues of MΓ (Satorra 2000);
 * statistical theory, by seeded simulation from a known population model
   with five-category items where the constrained model is true: the
   scaled-and-shifted difference behaves like χ² on the difference in df.
@@ -21,8 +21,8 @@ from conftest import HS_CONSTRUCTS, HS_ITEMS, make_spec
 from scipy import optimize
 
 from scalewright.compare import compare_models, dwls_difference_row
-from scalewright.nested_dwls import DWLS_DIFFERENCE, DwlsModel, nested_dwls_test
-from scalewright.estimate.dwls import fit_dwls
+from scalewright.dwls_difference import DWLS_DIFFERENCE, nested_dwls_test
+from scalewright.estimate.dwls import DwlsModel, fit_dwls
 from scalewright.estimate.polychoric import ordinal_moments
 from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
@@ -142,7 +142,7 @@ def test_difference_matches_dense_m_gamma(hs_pair, hs_moments):
         len(general_spec.residual_covariances)
     # T_d = N(F₀ − F₁): the same algebra, rounding only
     assert found.test.chi_square == pytest.approx(t_d, rel=1e-10)
-    # Asparouhov & Muthén (2006): MΓ has d non-zero eigenvalues, the rest vanish;
+    # Satorra (2000): MΓ has d non-zero eigenvalues, the rest vanish;
     # the low-rank projector form against the dense inverses, both at model 1
     # fitted to model 0's correlations (scipy's fit and ours agree to ~1e-11): 1e-9
     assert np.max(np.abs(eig[d:])) < 1e-10 * eig[0]

@@ -22,7 +22,7 @@ from scalewright import __version__
 from scalewright.errors import StudyError
 from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
-from scalewright.nested_dwls import DwlsModel
+from scalewright.estimate.dwls import DwlsModel
 from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.normal import complete_data_blocks
 from scalewright.estimate.polychoric import collapse_sparse_columns

@@ -57,19 +57,26 @@ Which difference test
 ---------------------
 Plain ML: the likelihood-ratio difference (Steiger, Shapiro & Browne 1985);
 robust ML (fits with a scaling factor): the Satorra & Bentler (2001) scaled
-difference; DWLS (ordinal items): the difference test of Satorra (2000) and
-Asparouhov & Muthén (2006), scaled and shifted on the difference in df
-(:mod:`scalewright.nested_dwls`), which needs the two fits themselves,
-not only their statistics.  Each test row names the test it used.
+difference; DWLS (ordinal or mixed items): Satorra's (2000) adjusted
+difference test applied to DWLS, which Asparouhov & Muthén (2006) describe
+for robust WLS estimators, scaled and shifted on the difference in df
+(Asparouhov & Muthén 2010; :mod:`scalewright.dwls_difference`, shared with
+the ordinal invariance steps); it needs the two fits themselves, not only
+their statistics.  Each test row names the test it used.
 
 References
 ----------
 Asparouhov, T. & Muthén, B. (2006). Robust chi square difference testing
 with mean and variance adjusted test statistics. Technical note 10.
+Asparouhov, T. & Muthén, B. (2010). Simple second order chi-square
+correction. Technical appendix.
 Bentler, P. M. & Satorra, A. (2010). Testing model nesting and equivalence.
 Psychological Methods 15, 111–123.
 Raftery, A. E. (1995). Bayesian model selection in social research.
 Sociological Methodology 25, 111–163.
+Satorra, A. (2000). Scaled and adjusted restricted tests in multi-sample
+analysis of moment structures. In Heijmans, Pollock & Satorra (eds.),
+Innovations in Multivariate Statistical Analysis, 233–247. Kluwer.
 Satorra, A. & Bentler, P. M. (2001). A scaled difference chi-square test
 statistic for moment structure analysis. Psychometrika 66, 507–514.
 Self, S. G. & Liang, K.-Y. (1987). Asymptotic properties of maximum
@@ -93,7 +100,8 @@ from typing import Mapping, Sequence
 import numpy as np
 from scipy import stats
 
-from scalewright.nested_dwls import DWLS_DIFFERENCE, DwlsModel, nested_dwls_test
+from scalewright.dwls_difference import DWLS_DIFFERENCE, nested_dwls_test
+from scalewright.estimate.dwls import DwlsModel
 
 DECLARED = "declared"
 DROPPED_PATHS = "dropped paths"
@@ -357,8 +365,8 @@ def _untestable(df: int, t_r: float, t_g: float, test: str) -> dict:
 
 def dwls_difference_row(restricted: DwlsModel, general: DwlsModel, restricted_name: str,
                         general_name: str) -> dict:
-    """The Asparouhov & Muthén (2006) difference test of a nested pair fitted
-    by DWLS (:func:`scalewright.nested_dwls.nested_dwls_test`), as a
+    """The DWLS difference test (Satorra 2000) of a nested pair fitted by
+    DWLS (:func:`scalewright.dwls_difference.nested_dwls_test`), as a
     comparison row: ``chi_square`` is the scaled-and-shifted difference on
     ``df`` = the difference in degrees of freedom, ``chi_square_unadjusted``
     is ``T_d = T_R − T_G``, ``scaling_factor`` is ``tr(MΓ)/df``,

@@ -53,8 +53,7 @@ import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
-from scalewright.nested_dwls import DwlsModel
-from scalewright.estimate.dwls import fit_dwls
+from scalewright.estimate.dwls import DwlsModel, fit_dwls
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
 from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.evaluate_ordinal import (

@@ -51,8 +51,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from scalewright.diagnostics import model_warnings
-from scalewright.nested_dwls import DwlsModel
-from scalewright.estimate.dwls import DwlsFit, fit_dwls
+from scalewright.estimate.dwls import DwlsFit, DwlsModel, fit_dwls
 from scalewright.estimate.polychoric import OrdinalMoments, ordinal_moments
 from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.indices import (

@@ -9,9 +9,10 @@ before.  Each step is compared with the step before it (as finally
 accepted, releases included), as the continuous route does
 (:mod:`scalewright.invariance`):
 
-* the difference test: the mean-and-variance adjusted difference of the
-  DWLS statistics (:func:`scalewright.dwls_difference.adjusted_difference`,
-  the one place a different DWLS difference test would be swapped in);
+* the difference test: Satorra's (2000) adjusted difference test applied
+  to the DWLS statistics, scaled and shifted on the difference in df
+  (:func:`scalewright.dwls_difference.adjusted_difference`, the same
+  statistic the rival-model comparison uses);
 * the changes in CFI, RMSEA (from the scaled-and-shifted statistics) and
   SRMR against the same published conventions (Cheung & Rensvold 2002;
   Chen 2007, :func:`scalewright.invariance.conventions`).  Chen's values
@@ -68,6 +69,9 @@ models of different levels of invariance for ordered categorical outcomes.
 Psychometrika 81, 1014–1045.
 Satorra, A. (1989). Alternative test criteria in covariance structure
 analysis: a unified approach. Psychometrika 54, 131–151.
+Satorra, A. (2000). Scaled and adjusted restricted tests in multi-sample
+analysis of moment structures. In Heijmans, Pollock & Satorra (eds.),
+Innovations in Multivariate Statistical Analysis, 233–247. Kluwer.
 Chen, F. F. (2007). Sensitivity of goodness of fit indexes to lack of
 measurement invariance. Structural Equation Modeling 14, 464–504.
 Cheung, G. W. & Rensvold, R. B. (2002). Evaluating goodness-of-fit indexes
@@ -90,7 +94,7 @@ from scipy import stats
 
 from scalewright import multigroup
 from scalewright.blas import one_blas_thread
-from scalewright.dwls_difference import LIMITATION, METHOD, DwlsDifference, adjusted_difference
+from scalewright.dwls_difference import METHOD, DwlsDifference, adjusted_difference
 from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
@@ -162,7 +166,7 @@ class OrdinalComparison:
 
     def to_dict(self, step: str) -> dict:
         return {"delta": dict(self.delta),
-                "difference_test": self.test.to_dict() | {"scaled": True},
+                "difference_test": self.test.to_dict() | {"method": METHOD},
                 "decision": {"holds": self.holds, "difference_test_rejects": self.rejects,
                              "testable": self.testable,
                              "conventions": [c.to_dict() for c in self.conventions],
@@ -366,9 +370,9 @@ class OrdinalInvarianceResult:
                 "estimator": ("diagonally weighted least squares on each group's thresholds "
                               "and polychoric correlations (robust standard errors, "
                               "mean-and-variance adjusted tests)"),
-                "method_note": LIMITATION + " Chen's (2007) values for intercepts are applied "
-                "to thresholds and latent-response intercepts, those for residual variances "
-                "to unique variances.",
+                "method_note": f"Each difference test is {METHOD}. Chen's (2007) values for "
+                "intercepts are applied to thresholds and latent-response intercepts, those "
+                "for residual variances to unique variances.",
                 "missing_handling": ("pairwise (each polychoric correlation uses everyone in "
                                      "the group who answered both items)"
                                      if self.missing_handling != LISTWISE else

@@ -40,7 +40,7 @@ class ModelResult:
     warnings: tuple[str, ...]
     extra: dict = field(default_factory=dict)   # keys added by later stages (reliability, hints…)
     #: the estimator's own objects that a later stage needs and the JSON does not
-    #: carry: the ordinal route's :class:`~scalewright.nested_dwls.DwlsModel`
+    #: carry: the ordinal route's :class:`~scalewright.estimate.dwls.DwlsModel`
     #: for the DWLS difference test; ``None`` otherwise
     fitted: object = field(default=None, repr=False, compare=False)
 

@@ -79,12 +79,13 @@ correction. Technical appendix.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import stats
 
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
+from scalewright.estimate.mixed import MixedMoments
 from scalewright.estimate.polychoric import OrdinalMoments
 from scalewright.estimate.result import invert_information
 from scalewright.estimate.robust import RobustTest, incidence
@@ -166,6 +167,22 @@ class DwlsFit:
         modelled correlations (the diagonal is 1 in both matrices and is
         left out)."""
         return float(np.sqrt(np.mean(self.residuals ** 2))) if self.residuals.size else 0.0
+
+
+@dataclass(frozen=True)
+class DwlsModel:
+    """A DWLS fit with the moments it was fitted to (ordinal or mixed), kept
+    for the difference test of nested fits
+    (:func:`scalewright.dwls_difference.nested_dwls_test`).  The casewise
+    influence matrix (N × r) is dropped: the test needs only the
+    correlations and their sampling covariance."""
+
+    fit: DwlsFit
+    moments: OrdinalMoments | MixedMoments
+
+    @classmethod
+    def of(cls, fit: DwlsFit, moments: OrdinalMoments | MixedMoments) -> DwlsModel:
+        return cls(fit, replace(moments, influence=moments.influence[:0]))
 
 
 class _DeltaModel:
