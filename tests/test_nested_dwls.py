@@ -26,6 +26,7 @@ from scalewright.estimate.dwls import DwlsModel, fit_dwls
 from scalewright.estimate.polychoric import ordinal_moments
 from scalewright.evaluate_mixed import evaluate_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal
+from scalewright.report.references import references_used
 from scalewright.report.tables import nested_table
 from scalewright.specify import build_layout
 from test_dwls import _population_sample, _quantile_categories
@@ -198,6 +199,11 @@ def test_comparison_rows_use_the_dwls_difference_whatever_the_model_order(hs_x):
     table = nested_table({"comparison": {"nested_tests": rows[:1]}})
     assert table.columns[2] == "Test" and table.rows[0][2].text == DWLS_DIFFERENCE
     assert any("Asparouhov & Muthén 2006" in note for note in table.notes)
+    # named as Satorra's (2000) test, not as the Satorra–Bentler (2001) scaled difference
+    assert not any(note.startswith("Scaled difference") for note in table.notes)
+    cited = references_used({"comparison": {"nested_tests": rows[:1]}})
+    assert any(ref.startswith("Satorra, A. (2000).") for ref in cited)
+    assert not any(ref.startswith("Satorra, A., & Bentler, P. M. (2001).") for ref in cited)
 
 
 def test_mixed_route_pairs_get_the_same_test(hs_x):

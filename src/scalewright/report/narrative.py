@@ -21,6 +21,14 @@ MISSING_HANDLING = {
     "none": "none needed (no answer is missing)",
 }
 
+#: the DWLS difference test (scalewright.dwls_difference), named alike for rival models and
+#: for ordinal invariance steps
+DWLS_DIFFERENCE_WORDS = ("the adjusted difference test applied to the DWLS statistics "
+                         "(Satorra, 2000), as Asparouhov and Muthén (2006) describe it for "
+                         "robust WLS estimators, scaled and shifted to the mean and variance of "
+                         "chi-square on the difference in degrees of freedom as in Asparouhov "
+                         "and Muthén (2010)")
+
 _NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")
 
 
@@ -395,13 +403,10 @@ def methods_paragraphs(report: dict) -> list[str]:
         if report["comparison"].get("nested_tests"):
             fit += ", and nested models by chi-square difference tests"
             used = " ".join(str(t.get("test")) for t in report["comparison"]["nested_tests"])
-            if "Satorra" in used:
+            if "Satorra & Bentler" in used:
                 fit += " scaled as proposed by Satorra and Bentler (2001)"
             if "DWLS" in used:
-                fit += (" (for the DWLS fits, the difference test of Satorra (2000) and "
-                        "Asparouhov and Muthén (2006), scaled and shifted to the mean and variance "
-                        "of chi-square on the difference in degrees of freedom as in Asparouhov "
-                        "and Muthén (2010))")
+                fit += f" (for the DWLS fits, {DWLS_DIFFERENCE_WORDS})"
         fit += "."
     out.append(fit)
     extra = ["Item distributions were described by skewness and excess kurtosis, and "
@@ -455,8 +460,8 @@ def _invariance_methods(report: dict) -> str | None:
     if ordinal:
         text += (" The items were treated as ordinal: each group's thresholds and polychoric "
                  "correlations were fitted together, identified as Wu and Estabrook (2016) "
-                 "propose (theta parameterization), with mean-and-variance adjusted difference "
-                 "tests (Satorra, 2000).")
+                 "propose (theta parameterization); each difference test was "
+                 f"{DWLS_DIFFERENCE_WORDS}.")
     released = len(report.get("released") or ())
     if released:
         text += (f" {_number(released).capitalize()} equality constraint"

@@ -192,7 +192,7 @@ def references_used(report: dict) -> list[str]:
         if tests:
             keys.add("steiger_shapiro_browne")
         used = " ".join(str(t.get("test")) for t in tests)
-        if "Satorra" in used:
+        if "Satorra & Bentler" in used:
             keys.add("satorra_bentler2001")
         if "DWLS" in used:
             keys |= {"satorra2000", "asparouhov_muthen2006", "asparouhov_muthen2010"}
@@ -238,7 +238,8 @@ def references_used(report: dict) -> list[str]:
     if report.get("invariance"):
         keys |= {"cheung_rensvold", "chen"}
     if (report.get("invariance_setup") or {}).get("ordinal_identification"):
-        keys |= {"wu_estabrook", "satorra2000", "satorra1989"}
+        keys |= {"wu_estabrook", "satorra2000", "asparouhov_muthen2006", "asparouhov_muthen2010",
+                 "satorra1989"}
     if report.get("latent_means"):
         keys.add("hancock2001")
     return sorted((CITATIONS[k] for k in keys), key=str.casefold)

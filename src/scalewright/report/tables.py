@@ -227,14 +227,15 @@ def nested_table(report: dict) -> Table:
         notes.append("Likelihood-ratio difference: Δχ² is the restricted model's chi-square minus "
                      "the general model's, on the difference in degrees of freedom (Steiger, "
                      "Shapiro & Browne 1985).")
-    if "Satorra" in used:
+    if "Satorra & Bentler" in used:
         notes.append("Scaled difference: the difference of the unscaled chi-squares divided by "
                      "the scaling factor of the difference (Satorra & Bentler 2001).")
     if "DWLS" in used:
-        notes.append("DWLS difference: the difference of the two unadjusted DWLS statistics, "
-                     "whose distribution (a weighted sum of one-df chi-squares) is matched in "
-                     "mean and variance to chi-square on Δdf by a scale and a shift (Satorra "
-                     "2000; Asparouhov & Muthén 2006; Asparouhov & Muthén 2010).")
+        notes.append("DWLS difference: the adjusted difference test of Satorra 2000 applied to "
+                     "DWLS, as Asparouhov & Muthén 2006 describe it for robust WLS estimators: "
+                     "the difference of the two unadjusted DWLS statistics, whose distribution "
+                     "(a weighted sum of one-df chi-squares) is matched in mean and variance to "
+                     "chi-square on Δdf by a scale and a shift (Asparouhov & Muthén 2010).")
     notes.append("A small p says the restrictions cost more fit than chance would explain. A "
                  "large p does not show that the restricted model is right.")
     return Table("nested-tests", "Chi-square difference tests between nested models",
