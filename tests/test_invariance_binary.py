@@ -29,7 +29,6 @@ import pytest
 from conftest import make_spec
 
 from scalewright import api
-from scalewright.dwls_difference import adjusted_difference
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.invariance_ordinal import ordinal_invariance
 from scalewright.multigroup import carry_start
