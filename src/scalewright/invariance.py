@@ -512,7 +512,6 @@ class InvarianceResult:
         """The JSON keys ``invariance`` (list of steps), ``released``,
         ``latent_means`` (plus ``latent_variances``, ``latent_correlations``
         and ``invariance_setup``)."""
-        latent = self.latent
         return {
             "invariance_setup": {
                 "model": self.model, "groups": list(self.labels), "reference": self.labels[0],
@@ -538,51 +537,86 @@ class InvarianceResult:
                            f"at most a fifth of a step's constraints (rounded up) released"),
                 "notes": list(self.steps[-1].final.layout.notes),
             },
-            "invariance": [self._step_dict(s) for s in self.steps],
-            "released": [self._release_dict(r) for r in self.released],
-            "latent_means": [] if latent is None else list(latent.means),
-            "latent_variances": [] if latent is None else list(latent.variances),
-            "latent_correlations": [] if latent is None else list(latent.correlations),
-            "latent_comparison_note": self.latent_note,
-        }
+        } | sequence_keys(self, self._step_dict, self._release_dict)
 
     def _step_dict(self, s: StepResult) -> dict:
-        out = {"step": s.step, "equal": list(SHARED[s.step]), "partial": bool(s.releases),
-               "converged": bool(s.final.estimate.record.converged),
-               "fit": s.final.to_dict(), "delta": None, "difference_test": None,
-               "decision": {"holds": None, "text": "The configural model is the reference "
-                            "point of the sequence: judge its fit like a single-group model."}}
-        if s.comparison is not None:
-            out |= s.comparison.to_dict(s.step)
-        if s.releases:
-            out["before_release"] = {"fit": s.first.to_dict()} | \
-                s.first_comparison.to_dict(s.step)
-        out["search"] = None if s.stopped is None else {
-            "released": [self._release_dict(r) for r in s.releases], "stopped": s.stopped}
-        return out
+        return step_entry(s, SHARED[s.step], self._release_dict)
 
     def _release_dict(self, r: Release) -> dict:
         param = r.test.param
-        item = param.b if param.kind in (LOADING, PATH) else param.a
         kind = _KIND_WORDS.get(param.kind, "residual variance")
         final = next(s.final for s in self.steps if s.step == r.step)
         layout, theta = final.layout, final.estimate.theta
         where = {q: k for k, q in enumerate(layout.params)}
         estimates = {label: float(theta[where[replace(param, group=label)]])
                      for label in self.labels}
-        wording = self.wording.get(item)
-        return {"step": r.step, "kind": kind, "item": item, "wording": wording,
-                "construct": param.a if param.kind in (LOADING, PATH) else
-                final.layout.primary.get(item),
-                "text": f"The {kind} of item '{item}'"
-                        + (f" (“{wording}”)" if wording else "")
-                        + " differs between groups and is estimated separately in each.",
-                "estimates": estimates,
-                "score_test": {"chi_square": r.test.chi_square, "df": r.test.df,
-                               "p_value": r.test.p_value, "p_adjusted": r.test.p_adjusted},
-                "fit_after": {k: v for k, v in r.fit_after.to_dict().items()
-                              if k in ("chi_square", "df", "cfi", "rmsea", "srmr",
-                                       "chi_square_scaled", "cfi_robust", "rmsea_robust")}}
+        return release_entry(r, kind, f"The {kind} of item '{released_item(param)}'", final,
+                             self.wording, estimates,
+                             ("chi_square", "df", "cfi", "rmsea", "srmr",
+                              "chi_square_scaled", "cfi_robust", "rmsea_robust"))
+
+
+# --------------------------------------------------------------------------- shared JSON pieces
+# (also built for the ordinal sequence, :mod:`scalewright.invariance_ordinal`)
+
+def sequence_keys(result, step_dict, release_dict) -> dict:
+    """The keys after ``invariance_setup`` of an invariance result (continuous
+    or ordinal): the steps, the releases and the latent comparisons;
+    ``step_dict`` and ``release_dict`` turn one step and one release into
+    their JSON entries."""
+    latent = result.latent
+    return {
+        "invariance": [step_dict(s) for s in result.steps],
+        "released": [release_dict(r) for r in result.released],
+        "latent_means": [] if latent is None else list(latent.means),
+        "latent_variances": [] if latent is None else list(latent.variances),
+        "latent_correlations": [] if latent is None else list(latent.correlations),
+        "latent_comparison_note": result.latent_note,
+    }
+
+
+def step_entry(s, equal, release_dict) -> dict:
+    """One step's JSON entry: its fit, the comparison with the step before,
+    the fit before any release and the search.  ``s`` is a step result of
+    either sequence, ``equal`` the parameter classes equal at that step."""
+    out = {"step": s.step, "equal": list(equal), "partial": bool(s.releases),
+           "converged": bool(s.final.estimate.record.converged),
+           "fit": s.final.to_dict(), "delta": None, "difference_test": None,
+           "decision": {"holds": None, "text": "The configural model is the reference "
+                        "point of the sequence: judge its fit like a single-group model."}}
+    if s.comparison is not None:
+        out |= s.comparison.to_dict(s.step)
+    if s.releases:
+        out["before_release"] = {"fit": s.first.to_dict()} | \
+            s.first_comparison.to_dict(s.step)
+    out["search"] = None if s.stopped is None else {
+        "released": [release_dict(r) for r in s.releases], "stopped": s.stopped}
+    return out
+
+
+def released_item(param: Param) -> str:
+    """The item a released parameter belongs to (a loading's second name,
+    otherwise its first)."""
+    return param.b if param.kind in (LOADING, PATH) else param.a
+
+
+def release_entry(r, kind: str, what: str, final, wording: dict, estimates: dict,
+                  fit_keys: tuple) -> dict:
+    """One release's JSON entry: ``what`` names the parameter in words
+    (``"The loading of item 'x'"``), ``estimates`` its value in each group,
+    ``fit_keys`` the fit keys kept from the model after the release."""
+    param = r.test.param
+    item = released_item(param)
+    words = wording.get(item)
+    return {"step": r.step, "kind": kind, "item": item, "wording": words,
+            "construct": param.a if param.kind in (LOADING, PATH) else
+            final.layout.primary.get(item),
+            "text": what + (f" (“{words}”)" if words else "")
+            + " differs between groups and is estimated separately in each.",
+            "estimates": estimates,
+            "score_test": {"chi_square": r.test.chi_square, "df": r.test.df,
+                           "p_value": r.test.p_value, "p_adjusted": r.test.p_adjusted},
+            "fit_after": {k: v for k, v in r.fit_after.to_dict().items() if k in fit_keys}}
 
 
 def measurement_invariance(spec, moments: GroupMoments, *, dropped: dict | None = None,

@@ -98,7 +98,8 @@ from scalewright.dwls_difference import METHOD, DwlsDifference, adjusted_differe
 from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
-                                    ScoreTest, conventions, latent_comparison, releasable)
+                                    ScoreTest, conventions, latent_comparison, releasable,
+                                    release_entry, released_item, sequence_keys, step_entry)
 from scalewright.layout import INTERCEPT, LOADING, PATH, RESIDUAL_COV, Param
 from scalewright.methods import LISTWISE
 from scalewright.multigroup import carry_start
@@ -360,7 +361,7 @@ class OrdinalInvarianceResult:
     def to_dict(self) -> dict:
         """The keys of :meth:`scalewright.invariance.InvarianceResult.to_dict`,
         with ordinal steps, plus ``label`` per step and the identification."""
-        labels, latent = self.data.labels, self.latent
+        labels = self.data.labels
         binary = binary_items(self.data)
         fitted = {s.step for s in self.steps}
         return {
@@ -403,38 +404,20 @@ class OrdinalInvarianceResult:
                 "category_notes": list(self.data.notes),
                 "notes": list(self.steps[-1].final.layout.notes) + list(self.data.notes),
             },
-            "invariance": [self._step_dict(s) for s in self.steps],
-            "released": [self._release_dict(r) for r in self.released],
-            "latent_means": [] if latent is None else list(latent.means),
-            "latent_variances": [] if latent is None else list(latent.variances),
-            "latent_correlations": [] if latent is None else list(latent.correlations),
-            "latent_comparison_note": self.latent_note,
-        }
+        } | sequence_keys(self, self._step_dict, self._release_dict)
 
     def _step_dict(self, s: OrdinalStep) -> dict:
         binary = list(s.final.layout.binary_items)
-        out = {"step": s.step, "label": LABELS[s.step], "equal": list(SHARED[s.step]),
-               "two_category_items": {"items": binary,
-                                      "adds": BINARY_ADDS[s.step] if binary else None},
-               "partial": bool(s.releases), "converged": bool(s.final.estimate.record.converged),
-               "fit": s.final.to_dict(), "delta": None, "difference_test": None,
-               "decision": {"holds": None, "text": "The configural model is the reference "
-                            "point of the sequence: judge its fit like a single-group model."}}
-        if s.comparison is not None:
-            out |= s.comparison.to_dict(s.step)
-        if s.releases:
-            out["before_release"] = {"fit": s.first.to_dict()} | \
-                s.first_comparison.to_dict(s.step)
-        out["search"] = None if s.stopped is None else {
-            "released": [self._release_dict(r) for r in s.releases], "stopped": s.stopped}
-        return out
+        return {"step": s.step, "label": LABELS[s.step]} \
+            | step_entry(s, SHARED[s.step], self._release_dict) \
+            | {"two_category_items": {"items": binary,
+                                      "adds": BINARY_ADDS[s.step] if binary else None}}
 
     def _release_dict(self, r: OrdinalRelease) -> dict:
         param = r.test.param
-        item = param.b if param.kind in (LOADING, PATH) else param.a
+        item = released_item(param)
         kind = _KIND_WORDS[param.kind]
         final = next(s.final for s in self.steps if s.step == r.step)
-        wording = self.wording.get(item)
         what = f"The {kind} of item '{item}'"
         extra = {}
         if param.kind == THRESHOLD:
@@ -443,17 +426,9 @@ class OrdinalInvarianceResult:
             low, high = (f"{v:g}" for v in cats[c - 1:c + 1])
             what = f"The threshold between answers {low} and {high} of item '{item}'"
             extra = {"threshold": c, "between": [low, high]}
-        return {"step": r.step, "kind": kind, "item": item, "wording": wording,
-                "construct": param.a if param.kind in (LOADING, PATH) else
-                final.layout.primary.get(item),
-                "text": what + (f" (“{wording}”)" if wording else "")
-                + " differs between groups and is estimated separately in each.",
-                "estimates": _group_values(final, param),
-                "score_test": {"chi_square": r.test.chi_square, "df": r.test.df,
-                               "p_value": r.test.p_value, "p_adjusted": r.test.p_adjusted},
-                "fit_after": {k: v for k, v in r.fit_after.to_dict().items()
-                              if k in ("chi_square", "df", "cfi", "rmsea", "srmr",
-                                       "chi_square_unadjusted")}} | extra
+        return release_entry(r, kind, what, final, self.wording, _group_values(final, param),
+                             ("chi_square", "df", "cfi", "rmsea", "srmr",
+                              "chi_square_unadjusted")) | extra
 
 
 def _group_values(fit: OrdinalGroupFit, param: Param) -> dict:
