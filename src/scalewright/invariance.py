@@ -319,7 +319,7 @@ def releasable(layout: Layout, step: str, released: frozenset) -> list[Param]:
 class Release:
     step: str
     test: ScoreTest
-    fit_after: GroupFit
+    fit_after: GroupFit         # or, in the ordinal sequence, an OrdinalGroupFit
 
 
 @dataclass(frozen=True)
@@ -347,13 +347,37 @@ def _needs_search(comparison: Comparison) -> bool:
 def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: frozenset,
             robust: bool):
     """Release constraints one at a time (see the module docstring)."""
-    current, comparison = first, compare(step, first, previous, moments)
     n_constraints = sum(1 for q in first.layout.params
                         if q.group is None and parameter_class(q) == ADDED[step])
-    limit = max(1, math.ceil(RELEASE_SHARE * n_constraints))
-    releases: list[Release] = []
+
+    def refit(current, released):
+        layout = build_multigroup_layout(spec, moments, step, released)
+        fit = fit_multigroup(layout, moments, carry_start(current, layout), robust)
+        return fit, compare(step, fit, previous, moments)
+
+    return release_search(
+        step, first, compare(step, first, previous, moments), released,
+        max(1, math.ceil(RELEASE_SHARE * n_constraints)), _needs_search,
+        lambda current, released: score_tests(spec, moments, current, step, released,
+                                              releasable(current.layout, step, released)),
+        f"a construct with fewer than {MIN_EQUAL} equal items", refit)
+
+
+def release_search(step, first, comparison, released: frozenset, limit: int, needs_search,
+                   tests_at, too_few: str, refit):
+    """The partial-invariance search of one step, continuous or ordinal (see
+    the module docstring): while ``needs_search(comparison)``, release the
+    constraint whose score test (``tests_at(fit, released)``) has the
+    smallest p-value, if its Bonferroni-adjusted p-value is below ``α``, and
+    refit (``refit(fit, released) → (fit, comparison)``), at most ``limit``
+    times.  ``too_few`` completes the reason given when no constraint is
+    releasable ("… without leaving " + ``too_few``).
+
+    Returns the final fit, the releases, the released constraints and why
+    the search stopped."""
+    current, releases = first, []
     while True:
-        if not _needs_search(comparison):
+        if not needs_search(comparison):
             return current, releases, released, ("the step holds and the difference test "
                                                  "does not reject")
         if len(releases) >= limit:
@@ -364,21 +388,17 @@ def _search(spec, moments, step, previous: GroupFit, first: GroupFit, released: 
             return current, releases, released, ("the information matrix of the constrained "
                                                  "model is singular, so no score test can be "
                                                  "computed")
-        candidates = releasable(current.layout, step, released)
-        tests = score_tests(spec, moments, current, step, released, candidates)
+        tests = tests_at(current, released)
         if not tests:
-            return current, releases, released, ("no constraint can be released without leaving "
-                                                 f"a construct with fewer than {MIN_EQUAL} equal "
-                                                 "items")
+            return current, releases, released, ("no constraint can be released without "
+                                                 "leaving " + too_few)
         best = min(tests, key=lambda t: (t.p_value, -t.chi_square))
         if best.p_adjusted >= ALPHA:
             return current, releases, released, (
                 "no single constraint stands out (largest score test "
                 f"χ² = {best.chi_square:.2f}, Bonferroni-adjusted p = {best.p_adjusted:.3g})")
         released = released | {best.param}
-        layout = build_multigroup_layout(spec, moments, step, released)
-        current = fit_multigroup(layout, moments, carry_start(current, layout), robust)
-        comparison = compare(step, current, previous, moments)
+        current, comparison = refit(current, released)
         releases.append(Release(step, best, current))
 
 

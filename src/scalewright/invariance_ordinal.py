@@ -98,8 +98,9 @@ from scalewright.dwls_difference import METHOD, DwlsDifference, adjusted_differe
 from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
-                                    ScoreTest, conventions, latent_comparison, releasable,
-                                    release_entry, released_item, sequence_keys, step_entry)
+                                    Release, ScoreTest, conventions, latent_comparison,
+                                    releasable, release_entry, release_search, released_item,
+                                    sequence_keys, step_entry)
 from scalewright.layout import INTERCEPT, LOADING, PATH, RESIDUAL_COV, Param
 from scalewright.methods import LISTWISE
 from scalewright.multigroup import carry_start
@@ -248,13 +249,6 @@ def score_tests(spec, data: OrdinalGroupMoments, constrained: OrdinalGroupFit, s
 # --------------------------------------------------------------------------- the sequence
 
 @dataclass(frozen=True)
-class OrdinalRelease:
-    step: str
-    test: ScoreTest
-    fit_after: OrdinalGroupFit
-
-
-@dataclass(frozen=True)
 class OrdinalStep:
     """One step: the model as first constrained, the releases, the final model."""
 
@@ -263,7 +257,7 @@ class OrdinalStep:
     final: OrdinalGroupFit
     first_comparison: OrdinalComparison | None
     comparison: OrdinalComparison | None
-    releases: tuple[OrdinalRelease, ...]
+    releases: tuple[Release, ...]
     stopped: str | None
 
     @property
@@ -278,38 +272,20 @@ def _needs_search(comparison: OrdinalComparison) -> bool:
 def _search(spec, data, step, previous: OrdinalGroupFit, first: OrdinalGroupFit,
             comparison: OrdinalComparison, released: frozenset):
     """Release constraints one at a time (see the module docstring)."""
-    current = first
-    limit = max(1, math.ceil(RELEASE_SHARE * len(constraints(first.layout, step, released))))
-    releases: list[OrdinalRelease] = []
-    while True:
-        if not _needs_search(comparison):
-            return current, releases, released, ("the step holds and the difference test "
-                                                 "does not reject")
-        if len(releases) >= limit:
-            return current, releases, released, (f"the limit of {limit} released constraints "
-                                                 "(a fifth of the step's constraints, rounded "
-                                                 "up) was reached")
-        if current.estimate.acov is None:
-            return current, releases, released, ("the information matrix of the constrained "
-                                                 "model is singular, so no score test can be "
-                                                 "computed")
-        tests = score_tests(spec, data, current, step, released,
-                            releasable_constraints(current.layout, step, released))
-        if not tests:
-            return current, releases, released, (
-                "no constraint can be released without leaving an item with fewer than "
-                f"{MIN_EQUAL_THRESHOLDS} equal thresholds or a construct with fewer than "
-                f"{MIN_EQUAL} equal items")
-        best = min(tests, key=lambda t: (t.p_value, -t.chi_square))
-        if best.p_adjusted >= ALPHA:
-            return current, releases, released, (
-                "no single constraint stands out (largest score test "
-                f"χ² = {best.chi_square:.2f}, Bonferroni-adjusted p = {best.p_adjusted:.3g})")
-        released = released | {best.param}
+    def refit(current, released):
         layout = build_ordinal_layout(spec, data, step, released)
-        current = fit_ordinal_groups(layout, data, carry_start(current, layout))
-        comparison = compare(step, current, previous, data)
-        releases.append(OrdinalRelease(step, best, current))
+        fit = fit_ordinal_groups(layout, data, carry_start(current, layout))
+        return fit, compare(step, fit, previous, data)
+
+    return release_search(
+        step, first, comparison, released,
+        max(1, math.ceil(RELEASE_SHARE * len(constraints(first.layout, step, released)))),
+        _needs_search,
+        lambda current, released: score_tests(spec, data, current, step, released,
+                                              releasable_constraints(current.layout, step,
+                                                                     released)),
+        f"an item with fewer than {MIN_EQUAL_THRESHOLDS} equal thresholds or a construct with "
+        f"fewer than {MIN_EQUAL} equal items", refit)
 
 
 def run_sequence(spec, data: OrdinalGroupMoments, steps=STEPS) -> tuple[OrdinalStep, ...]:
@@ -355,7 +331,7 @@ class OrdinalInvarianceResult:
     missing_handling: str
 
     @property
-    def released(self) -> tuple[OrdinalRelease, ...]:
+    def released(self) -> tuple[Release, ...]:
         return tuple(r for s in self.steps for r in s.releases)
 
     def to_dict(self) -> dict:
@@ -413,7 +389,7 @@ class OrdinalInvarianceResult:
             | {"two_category_items": {"items": binary,
                                       "adds": BINARY_ADDS[s.step] if binary else None}}
 
-    def _release_dict(self, r: OrdinalRelease) -> dict:
+    def _release_dict(self, r: Release) -> dict:
         param = r.test.param
         item = released_item(param)
         kind = _KIND_WORDS[param.kind]
