@@ -52,13 +52,10 @@ from collections.abc import Sequence
 import numpy as np
 
 from scalewright.blas import one_blas_thread
-from scalewright.diagnostics import model_warnings
-from scalewright.estimate.dwls import DwlsModel, fit_dwls
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
-from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.evaluate_ordinal import (
+    dwls_model_result,
     evaluate_ordinal,
-    ordinal_fit_indices,
     sparse_category_notes,
 )
 from scalewright.layout import CONSTRUCT, Layout, Matrices
@@ -70,8 +67,7 @@ from scalewright.ordinal_reliability import (
     ordinal_alpha,
 )
 from scalewright.reliability import cronbach_alpha
-from scalewright.specify import build_layout
-from scalewright.standardize import Standardized, standardize
+from scalewright.standardize import Standardized
 
 MIXED_DWLS = ("diagonally weighted least squares (polychoric, polyserial and Pearson "
               "correlations; robust standard errors, mean-and-variance adjusted test)")
@@ -126,19 +122,6 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         moments = mixed_moments(x, tuple(spec.items), ordinal,
                                 scales=[tuple(scale) if scale else None] * len(ordinal),
                                 collapse_sparse=collapse_sparse, min_count=min_count)
-        layout = build_layout(spec, moments.correlations)
-        fit = fit_dwls(layout, moments)
-        estimate = Estimate(layout, fit.theta, fit.acov, fit.record, fit.n, float("nan"),
-                            "dwls-mixed", fit.unidentified, dwls_data=DwlsData.of(moments))
-        mats = estimate.matrices()
-        std = standardize(mats)
-        indices = ordinal_fit_indices(fit)
-        reliability = mixed_reliability(layout, mats, std, moments)
-    warnings = model_warnings(estimate, std)
-    if moments.smoothed:
-        warnings.append(moments.smoothing_note + " The model itself was fitted to the pairwise "
-                        "estimates as they are (DWLS never inverts the matrix); the smoothed "
-                        "matrix gave only the start values.")
     sparse = [] if collapse_sparse else sparse_category_notes(
         moments.ordinal_items, moments.categories, moments.codes, min_count)
     extra = {
@@ -146,11 +129,8 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         "missing_handling": "pairwise",
         "ordinal_notes": _notes(moments, x, int((~answered).sum())) + sparse,
         "correlations_mixed": moments.to_dict(),
-        **reliability,
     }
-    return ModelResult(spec.name, estimate, indices, std, MIXED_DWLS, tuple(warnings), extra,
-                       fitted=DwlsModel.of(fit, moments))   # for the DWLS difference test
-
+    return dwls_model_result(spec, moments, "dwls-mixed", MIXED_DWLS, extra, mixed_reliability)
 
 def _notes(moments: MixedMoments, x: np.ndarray, empty_rows: int) -> list[str]:
     """What the report must say about the mixed route, in sentences."""

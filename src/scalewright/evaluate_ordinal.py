@@ -48,8 +48,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
+from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.dwls import DwlsFit, DwlsModel, fit_dwls
 from scalewright.estimate.polychoric import OrdinalMoments, ordinal_moments
@@ -181,22 +181,9 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
     x = np.asarray(data_values, dtype=float)[:, columns]
     answered = ~np.isnan(x).all(axis=1)
     x = x[answered]
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         moments = ordinal_moments(x, tuple(spec.items), scales=_scales_for(spec.items, scales),
                                   collapse_sparse=collapse_sparse, min_count=min_count)
-        layout = build_layout(spec, moments.correlations)
-        fit = fit_dwls(layout, moments)
-        estimate = Estimate(layout, fit.theta, fit.acov, fit.record, fit.n, float("nan"),
-                            "dwls", fit.unidentified, dwls_data=DwlsData.of(moments))
-        mats = estimate.matrices()
-        std = standardize(mats)
-        indices = ordinal_fit_indices(fit)
-        reliability = ordinal_reliability(layout, mats, std, moments)
-    warnings = model_warnings(estimate, std)
-    if moments.smoothed:
-        warnings.append(moments.smoothing_note + " The model itself was fitted to the pairwise "
-                        "estimates as they are (DWLS never inverts the matrix); the smoothed "
-                        "matrix gave only the start values.")
     extra = {
         "thresholds": {it: t.tolist() for it, t in zip(moments.items, moments.thresholds)},
         "missing_handling": "pairwise",
@@ -208,9 +195,38 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
                        "correlation_se": moments.correlation_se.tolist(),
                        "n_pairs": moments.n_pairs.tolist(),
                        "smoothed": moments.smoothed},
-        "reliability_ordinal": reliability,
     }
-    return ModelResult(spec.name, estimate, indices, std, ORDINAL_DWLS, tuple(warnings), extra,
+    return dwls_model_result(
+        spec, moments, "dwls", ORDINAL_DWLS, extra,
+        lambda *fitted: {"reliability_ordinal": ordinal_reliability(*fitted)})
+
+
+def dwls_model_result(spec, moments, estimator: str, method: str, extra: dict,
+                      reliability) -> ModelResult:
+    """Fit ``spec`` by DWLS to ``moments`` (ordinal or mixed: thresholds,
+    correlations and their sampling covariance) and gather the
+    :class:`ModelResult` of the ordinal and mixed routes: the fit indices
+    of :func:`ordinal_fit_indices`, the standardized solution, the warnings
+    (with a sentence when the correlation matrix was smoothed for the start
+    values), ``extra`` followed by the reliability keys
+    ``reliability(layout, matrices, standardized, moments)`` returns.
+    ``estimator`` names the estimate's kind, ``method`` the method in words."""
+    with one_blas_thread():
+        layout = build_layout(spec, moments.correlations)
+        fit = fit_dwls(layout, moments)
+        estimate = Estimate(layout, fit.theta, fit.acov, fit.record, fit.n, float("nan"),
+                            estimator, fit.unidentified, dwls_data=DwlsData.of(moments))
+        mats = estimate.matrices()
+        std = standardize(mats)
+        indices = ordinal_fit_indices(fit)
+        reliability_keys = reliability(layout, mats, std, moments)
+    warnings = model_warnings(estimate, std)
+    if moments.smoothed:
+        warnings.append(moments.smoothing_note + " The model itself was fitted to the pairwise "
+                        "estimates as they are (DWLS never inverts the matrix); the smoothed "
+                        "matrix gave only the start values.")
+    return ModelResult(spec.name, estimate, indices, std, method, tuple(warnings),
+                       extra | reliability_keys,
                        fitted=DwlsModel.of(fit, moments))   # for the DWLS difference test
 
 
