@@ -653,29 +653,11 @@ def _log_likelihood(rho, tables, lower, upper):
 
 
 def _solve_pairs(tables, lower, upper, items, jj, ll):
-    """Maximise every pair's likelihood in rho, all pairs in lock-step.
+    """Maximise every pair's likelihood in rho, all pairs in lock-step, by
+    :func:`rho_search` on l' = sum n pi'/pi and
+    l'' = sum n (pi''/pi - (pi'/pi)^2)."""
 
-    Newton steps rho - l'/l'' on l' = sum n pi'/pi and
-    l'' = sum n (pi''/pi - (pi'/pi)^2).  The sign of l' shrinks a bracket
-    [lo, hi] around the root; a Newton step is replaced by bisection when it
-    leaves the bracket, when l'' >= 0, or when it is more than half the step
-    before last, so the bracket always shrinks (the safeguard of ``rtsafe``,
-    Press et al. 2007, section 9.4).
-
-    References
-    ----------
-    Press, W. H., Teukolsky, S. A., Vetterling, W. T., & Flannery, B. P. (2007).
-    *Numerical Recipes* (3rd ed.). Cambridge University Press.
-    """
-    n_pairs = tables.shape[0]
-    lo = np.full(n_pairs, -_RHO_BOUND)
-    hi = np.full(n_pairs, _RHO_BOUND)
-    rho = np.zeros(n_pairs)
-    step = np.full(n_pairs, 2.0 * _RHO_BOUND)
-    step_before = step.copy()
-    active = np.arange(n_pairs)
-    for _ in range(_MAX_ITER):
-        r = rho[active]
+    def derivatives(active, r):
         pi, d1, d2 = _cell_terms(r, lower[active], upper[active])
         counts = tables[active]
         used = counts > 0
@@ -685,7 +667,42 @@ def _solve_pairs(tables, lower, upper, items, jj, ll):
             hess = np.sum(counts * np.where(used, d2 / pi, 0.0) - counts * ratio**2, axis=(1, 2))
         # An occupied cell with no probability left: the likelihood is -inf here,
         # and it rises towards rho = 0.
-        impossible = np.any(used & (pi <= 0), axis=(1, 2)) | ~np.isfinite(grad)
+        return grad, hess, np.any(used & (pi <= 0), axis=(1, 2))
+
+    return rho_search(tables.shape[0], derivatives, "polychoric",
+                      lambda s: f"'{items[jj[s]]}'-'{items[ll[s]]}'")
+
+
+def rho_search(n_pairs: int, derivatives, kind: str, pair_name):
+    """Maximise ``n_pairs`` likelihoods in rho in lock-step (the polychoric
+    and the polyserial searches).
+
+    ``derivatives(active, r)`` gives, for the pairs ``active`` at ``r``, the
+    first and second derivatives l', l'' of the log-likelihood and whether
+    it is -inf there (a used cell or row with no probability left; it rises
+    towards rho = 0).  Newton steps rho - l'/l''; the sign of l' shrinks a
+    bracket [lo, hi] around the root; a Newton step is replaced by bisection
+    when it leaves the bracket, when l'' >= 0, or when it is more than half
+    the step before last, so the bracket always shrinks (the safeguard of
+    ``rtsafe``, Press et al. 2007, section 9.4).  Pairs that do not settle
+    within ``_MAX_ITER`` steps are named (``pair_name(index)``) in a
+    ConvergenceWarning about the ``kind`` correlation search.
+
+    References
+    ----------
+    Press, W. H., Teukolsky, S. A., Vetterling, W. T., & Flannery, B. P. (2007).
+    *Numerical Recipes* (3rd ed.). Cambridge University Press.
+    """
+    lo = np.full(n_pairs, -_RHO_BOUND)
+    hi = np.full(n_pairs, _RHO_BOUND)
+    rho = np.zeros(n_pairs)
+    step = np.full(n_pairs, 2.0 * _RHO_BOUND)
+    step_before = step.copy()
+    active = np.arange(n_pairs)
+    for _ in range(_MAX_ITER):
+        r = rho[active]
+        grad, hess, impossible = derivatives(active, r)
+        impossible = impossible | ~np.isfinite(grad)
         grad = np.where(impossible, -np.sign(r), grad)
         lo[active] = np.where(grad > 0, r, lo[active])
         hi[active] = np.where(grad > 0, hi[active], r)
@@ -704,12 +721,12 @@ def _solve_pairs(tables, lower, upper, items, jj, ll):
         active = active[np.abs(step[active]) >= _RHO_TOL]
         if active.size == 0:
             return rho
-    pairs = ", ".join(f"'{items[jj[s]]}'-'{items[ll[s]]}'" for s in active[:5])
+    pairs = ", ".join(pair_name(s) for s in active[:5])
     warnings.warn(
-        f"The polychoric correlation search did not settle within {_MAX_ITER} steps "
+        f"The {kind} correlation search did not settle within {_MAX_ITER} steps "
         f"for {active.size} item pair(s) ({pairs}); their estimates may be inexact.",
         ConvergenceWarning,
-        stacklevel=3,
+        stacklevel=4,
     )
     return rho
 

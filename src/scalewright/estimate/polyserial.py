@@ -62,21 +62,16 @@ Psychometrika 49, 115–132.
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import ndtr
 
-from scalewright.errors import ConvergenceWarning, StudyError
-from scalewright.estimate.polychoric import MIN_PAIR_ROWS
+from scalewright.errors import StudyError
+from scalewright.estimate.polychoric import MIN_PAIR_ROWS, rho_search
 
 # The correlation search stays inside (-1, 1) by this margin (as the polychoric one).
 _RHO_BOUND = 1.0 - 1e-6
-# Newton steps below this size end the search: far below any reported digit.
-_RHO_TOL = 1e-10
-# Bisection alone halves the bracket each step, so 100 steps always suffice.
-_MAX_ITER = 100
 _SQRT_2PI = np.sqrt(2.0 * np.pi)
 # Pairs are solved in blocks of about this many (pair, row) cells, which bounds
 # the working memory to some tens of MB per array (common practice, no source).
@@ -315,23 +310,13 @@ def _log_likelihood(rho, z, lower, upper, used):
 
 
 def _solve_pairs(z, lower, upper, used, names):
-    """Maximise every pair's l(ρ), all pairs in lock-step.
-
-    Newton steps on ``l' = Σ P'/P`` and ``l'' = Σ (P''/P − (P'/P)²)``,
-    replaced by bisection of the bracket that the sign of ``l'`` keeps when
-    a step leaves the bracket, ``l'' ≥ 0``, or the step is more than half
-    the step before last (the safeguard of ``rtsafe``, Press et al. 2007,
-    section 9.4, as in :mod:`scalewright.estimate.polychoric`).
+    """Maximise every pair's l(ρ), all pairs in lock-step, by the safeguarded
+    Newton search of the polychoric correlations
+    (:func:`scalewright.estimate.polychoric.rho_search`) on
+    ``l' = Σ P'/P`` and ``l'' = Σ (P''/P − (P'/P)²)``.
     """
-    n_pairs = z.shape[0]
-    lo = np.full(n_pairs, -_RHO_BOUND)
-    hi = np.full(n_pairs, _RHO_BOUND)
-    rho = np.zeros(n_pairs)
-    step = np.full(n_pairs, 2.0 * _RHO_BOUND)
-    step_before = step.copy()
-    active = np.arange(n_pairs)
-    for _ in range(_MAX_ITER):
-        r = rho[active]
+
+    def derivatives(active, r):
         prob, d1, d2 = _rho_terms(r, z[active], lower[active], upper[active])
         use = used[active]
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -339,25 +324,10 @@ def _solve_pairs(z, lower, upper, used, names):
             grad = ratio.sum(axis=1)
             hess = np.where(use, d2 / prob, 0.0).sum(axis=1) - (ratio ** 2).sum(axis=1)
         # a row with no probability left: the likelihood is −∞ here and rises towards 0
-        impossible = np.any(use & (prob <= 0), axis=1) | ~np.isfinite(grad)
-        grad = np.where(impossible, -np.sign(r), grad)
-        lo[active] = np.where(grad > 0, r, lo[active])
-        hi[active] = np.where(grad > 0, hi[active], r)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            newton = -grad / hess
-        ok = (~impossible & (hess < 0) & (r + newton >= lo[active]) & (r + newton <= hi[active])
-              & (2.0 * np.abs(newton) <= np.abs(step_before[active])))
-        step_before[active] = step[active]
-        step[active] = np.where(ok, newton, (lo[active] + hi[active]) / 2.0 - r)
-        rho[active] = r + step[active]
-        active = active[np.abs(step[active]) >= _RHO_TOL]
-        if active.size == 0:
-            return rho
-    listed = ", ".join(f"'{names[s][0]}'-'{names[s][1]}'" for s in active[:5])
-    warnings.warn(f"The polyserial correlation search did not settle within {_MAX_ITER} steps "
-                  f"for {active.size} item pair(s) ({listed}); their estimates may be inexact.",
-                  ConvergenceWarning, stacklevel=3)
-    return rho
+        return grad, hess, np.any(use & (prob <= 0), axis=1)
+
+    return rho_search(z.shape[0], derivatives, "polyserial",
+                      lambda s: f"'{names[s][0]}'-'{names[s][1]}'")
 
 
 # --------------------------------------------------------------------------
