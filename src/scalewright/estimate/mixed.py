@@ -68,6 +68,7 @@ import numpy as np
 from scalewright.errors import ScalewrightWarning, StudyError
 from scalewright.estimate.polychoric import (
     MIN_PAIR_ROWS,
+    ThresholdCorrelationBlocks,
     collapse_sparse_columns,
     ordinal_moments,
     smooth_correlations,
@@ -82,7 +83,7 @@ _PERFECT = 1.0 - 1e-10
 
 
 @dataclass(frozen=True)
-class MixedMoments:
+class MixedMoments(ThresholdCorrelationBlocks):
     """Thresholds, means and SDs, the mixed correlation matrix and its sampling covariance.
 
     Attributes
@@ -141,31 +142,6 @@ class MixedMoments:
     @property
     def continuous_items(self) -> tuple[str, ...]:
         return tuple(it for it, o in zip(self.items, self.ordinal) if not o)
-
-    @property
-    def n_thresholds(self) -> int:
-        return sum(t.size for t in self.thresholds)
-
-    @property
-    def acov_corr(self) -> np.ndarray:
-        """Sampling covariance of the p* correlations, ``np.triu_indices`` order."""
-        t = self.n_thresholds
-        return self.acov[t:, t:]
-
-    @property
-    def correlation_se(self) -> np.ndarray:
-        return np.sqrt(np.diag(self.acov_corr))
-
-    @property
-    def threshold_se(self) -> tuple[np.ndarray, ...]:
-        se = np.sqrt(np.diag(self.acov)[:self.n_thresholds])
-        ends = np.cumsum([t.size for t in self.thresholds])
-        return tuple(se[e - t.size:e] for e, t in zip(ends, self.thresholds))
-
-    @property
-    def dwls_weights(self) -> np.ndarray:
-        """Diagonal DWLS weights of the p* correlations, ``1 / Var(r)``."""
-        return 1.0 / np.diag(self.acov_corr)
 
     def to_dict(self) -> dict:
         """JSON-able summary (no influence or covariance matrices)."""

@@ -60,8 +60,64 @@ _RHO_TOL = 1e-10
 _MAX_ITER = 100
 
 
+class ThresholdCorrelationBlocks:
+    """The blocks of ``acov`` (thresholds first, then the p* correlations)
+    and what follows from them, for moments with ``thresholds`` and ``acov``
+    attributes: :class:`OrdinalMoments` and
+    :class:`scalewright.estimate.mixed.MixedMoments`."""
+
+    @property
+    def n_thresholds(self) -> int:
+        """Number of thresholds, the length of the first block of ``acov``."""
+        return sum(t.size for t in self.thresholds)
+
+    @property
+    def threshold_slices(self) -> tuple[slice, ...]:
+        """Position of each item's thresholds in the estimate vector."""
+        ends = np.cumsum([t.size for t in self.thresholds])
+        return tuple(slice(int(e - t.size), int(e)) for e, t in zip(ends, self.thresholds))
+
+    @property
+    def acov_thresholds(self) -> np.ndarray:
+        """Sampling covariance of the thresholds (block of ``acov``)."""
+        t = self.n_thresholds
+        return self.acov[:t, :t]
+
+    @property
+    def acov_corr(self) -> np.ndarray:
+        """Sampling covariance of the p* correlations, ``np.triu_indices`` order.
+
+        It includes the uncertainty of the thresholds on which each
+        correlation was conditioned (Muthen 1984; Olsson 1979, section 4).
+        """
+        t = self.n_thresholds
+        return self.acov[t:, t:]
+
+    @property
+    def correlation_se(self) -> np.ndarray:
+        """Standard errors of the p* correlations, ``np.triu_indices`` order."""
+        return np.sqrt(np.diag(self.acov_corr))
+
+    @property
+    def threshold_se(self) -> tuple[np.ndarray, ...]:
+        """Standard errors of the thresholds, item by item."""
+        se = np.sqrt(np.diag(self.acov_thresholds))
+        return tuple(se[s] for s in self.threshold_slices)
+
+    @property
+    def dwls_weights(self) -> np.ndarray:
+        """Diagonal DWLS weights of the p* correlations: 1 / Var(rho_hat).
+
+        Muthen, du Toit & Spisic (1997) weight the residuals by the inverse
+        diagonal of Gamma; these weights are that diagonal divided by n
+        (the inverse variances of the estimates), which changes the fit
+        function by the constant factor n and the estimates not at all.
+        """
+        return 1.0 / np.diag(self.acov_corr)
+
+
 @dataclass(frozen=True)
-class OrdinalMoments:
+class OrdinalMoments(ThresholdCorrelationBlocks):
     """Thresholds and polychoric correlations of p ordinal items.
 
     Attributes
@@ -123,55 +179,6 @@ class OrdinalMoments:
     smoothed: bool
     smoothing_note: str
     collapse_notes: tuple[str, ...]
-
-    @property
-    def n_thresholds(self) -> int:
-        """Number of thresholds, the length of the first block of ``acov``."""
-        return sum(t.size for t in self.thresholds)
-
-    @property
-    def threshold_slices(self) -> tuple[slice, ...]:
-        """Position of each item's thresholds in the estimate vector."""
-        ends = np.cumsum([t.size for t in self.thresholds])
-        return tuple(slice(int(e - t.size), int(e)) for e, t in zip(ends, self.thresholds))
-
-    @property
-    def acov_thresholds(self) -> np.ndarray:
-        """Sampling covariance of the thresholds (block of ``acov``)."""
-        t = self.n_thresholds
-        return self.acov[:t, :t]
-
-    @property
-    def acov_corr(self) -> np.ndarray:
-        """Sampling covariance of the p* correlations, ``np.triu_indices`` order.
-
-        It includes the uncertainty of the thresholds on which each
-        correlation was conditioned (Muthen 1984; Olsson 1979, section 4).
-        """
-        t = self.n_thresholds
-        return self.acov[t:, t:]
-
-    @property
-    def correlation_se(self) -> np.ndarray:
-        """Standard errors of the p* correlations, ``np.triu_indices`` order."""
-        return np.sqrt(np.diag(self.acov_corr))
-
-    @property
-    def threshold_se(self) -> tuple[np.ndarray, ...]:
-        """Standard errors of the thresholds, item by item."""
-        se = np.sqrt(np.diag(self.acov_thresholds))
-        return tuple(se[s] for s in self.threshold_slices)
-
-    @property
-    def dwls_weights(self) -> np.ndarray:
-        """Diagonal DWLS weights of the p* correlations: 1 / Var(rho_hat).
-
-        Muthen, du Toit & Spisic (1997) weight the residuals by the inverse
-        diagonal of Gamma; these weights are that diagonal divided by n
-        (the inverse variances of the estimates), which changes the fit
-        function by the constant factor n and the estimates not at all.
-        """
-        return 1.0 / np.diag(self.acov_corr)
 
     def to_dict(self) -> dict:
         """JSON-able summary (no influence or covariance matrices)."""
