@@ -115,17 +115,25 @@ def _json_number(value):
 
 def ordinal_fit_indices(fit: DwlsFit) -> OrdinalFitIndices:
     """Fit indices of a DWLS fit (formulas in the module docstring)."""
-    test, base = fit.test, fit.baseline
-    chi2, df, n = test.chi_square_shifted, test.df, fit.n
+    return dwls_fit_indices(fit.test, fit.baseline, fit.n, fit.srmr, int(fit.estimated.sum()))
+
+
+def dwls_fit_indices(test, base, n: int, srmr: float, n_params: int,
+                     groups: int = 1) -> OrdinalFitIndices:
+    """Fit indices from the DWLS statistics ``test`` of the model and
+    ``base`` of the baseline (formulas in the module docstring), one group
+    or ``groups`` (RMSEA multiplied by √groups, Steiger 1998; the ordinal
+    multi-group fit of :mod:`scalewright.multigroup_ordinal`)."""
+    chi2, df = test.chi_square_shifted, test.df
     base_chi2 = base.chi_square_shifted
     cfi, tli = comparative_fit(chi2, df, base_chi2, base.df)
     extra = test.to_dict()
     plain = FitIndices(
         chi_square=float(chi2), df=int(df), p_value=test.p_value_shifted,
         baseline_chi_square=float(base_chi2), baseline_df=int(base.df), cfi=cfi, tli=tli,
-        rmsea=rmsea(chi2, df, n), rmsea_ci90=rmsea_interval(chi2, df, n, 0.90),
-        rmsea_p_close=rmsea_close_fit_p(chi2, df, n, 0.05), srmr=fit.srmr,
-        loglik=None, n_params=int(fit.estimated.sum()), aic=None, bic=None, sabic=None)
+        rmsea=rmsea(chi2, df, n, groups), rmsea_ci90=rmsea_interval(chi2, df, n, 0.90, groups),
+        rmsea_p_close=rmsea_close_fit_p(chi2, df, n, 0.05, groups), srmr=srmr,
+        loglik=None, n_params=int(n_params), aic=None, bic=None, sabic=None)
     return OrdinalFitIndices(
         **asdict(plain), chi_square_unadjusted=test.chi_square,
         baseline_chi_square_unadjusted=base.chi_square,

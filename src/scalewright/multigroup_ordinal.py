@@ -137,7 +137,7 @@ index. Structural Equation Modeling 5, 411–419.
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -146,9 +146,7 @@ from scalewright.estimate.dwls import DwlsTest
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import incidence
-from scalewright.evaluate_ordinal import TEST_NAME, OrdinalFitIndices
-from scalewright.indices import (FitIndices, comparative_fit, rmsea, rmsea_close_fit_p,
-                                 rmsea_interval)
+from scalewright.evaluate_ordinal import OrdinalFitIndices, dwls_fit_indices
 from scalewright.layout import (FACTOR_COV, INTERCEPT, LATENT_MEAN, LOADING, PATH,
                                 RESIDUAL_COV, Cells, Layout, Param, Pattern, cell_derivatives)
 from scalewright.ordinal_groups import OrdinalGroupMoments
@@ -601,22 +599,6 @@ def baseline_test(data: OrdinalGroupMoments, w: np.ndarray, gammas) -> DwlsTest:
 def _fit_indices(test: DwlsTest, base: DwlsTest, data: OrdinalGroupMoments, e: np.ndarray,
                  n_params: int) -> OrdinalFitIndices:
     groups, n = len(data.labels), data.n
-    chi2, df = test.chi_square_shifted, test.df
-    cfi, tli = comparative_fit(chi2, df, base.chi_square_shifted, base.df)
     per_group = np.split(e, groups)
     srmr = float(np.sqrt(sum(ng * np.mean(eg ** 2) for ng, eg in zip(data.ns, per_group)) / n))
-    extra = test.to_dict()
-    plain = FitIndices(
-        chi_square=float(chi2), df=int(df), p_value=test.p_value_shifted,
-        baseline_chi_square=float(base.chi_square_shifted), baseline_df=int(base.df), cfi=cfi,
-        tli=tli, rmsea=rmsea(chi2, df, n, groups),
-        rmsea_ci90=rmsea_interval(chi2, df, n, 0.90, groups),
-        rmsea_p_close=rmsea_close_fit_p(chi2, df, n, 0.05, groups), srmr=srmr, loglik=None,
-        n_params=int(n_params), aic=None, bic=None, sabic=None)
-    return OrdinalFitIndices(
-        **asdict(plain), chi_square_unadjusted=test.chi_square,
-        baseline_chi_square_unadjusted=base.chi_square,
-        chi_square_scaled=extra["chi_square_scaled"], scaling_factor=extra["scaling_factor"],
-        p_value_scaled=extra["p_value_scaled"], chi_square_adjusted=extra["chi_square_adjusted"],
-        df_adjusted=extra["df_adjusted"], p_value_adjusted=extra["p_value_adjusted"],
-        shift_scale=test.shift_scale, shift=test.shift, test=TEST_NAME)
+    return dwls_fit_indices(test, base, n, srmr, n_params, groups)
