@@ -120,6 +120,19 @@ class Convention:
         return {"source": self.source, "rule": self.rule, "met": self.met}
 
 
+def convention_verdict(conventions) -> tuple[str, str]:
+    """The verdict of the conventions in words ("hold by every convention",
+    …) and each rule with whether it was met, for a step's text."""
+    met = [c.source for c in conventions if c.met]
+    unmet = [c.source for c in conventions if not c.met]
+    verdict = ("hold by every convention" if not unmet else
+               "do not hold by any convention" if not met else
+               f"hold by {' and '.join(met)} but not by {' and '.join(unmet)}")
+    rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
+                      for c in conventions)
+    return verdict, rules
+
+
 @dataclass(frozen=True)
 class Comparison:
     """A step's model against the previous step's final model."""
@@ -143,13 +156,7 @@ class Comparison:
     def text(self, step: str) -> str:
         what = {METRIC: "Equal loadings", SCALAR: "Equal intercepts",
                 "strict": "Equal residual variances"}[step]
-        met = [c.source for c in self.conventions if c.met]
-        unmet = [c.source for c in self.conventions if not c.met]
-        verdict = ("hold by every convention" if not unmet else
-                   "do not hold by any convention" if not met else
-                   f"hold by {' and '.join(met)} but not by {' and '.join(unmet)}")
-        rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
-                          for c in self.conventions)
+        verdict, rules = convention_verdict(self.conventions)
         verb = "rejects" if self.rejects else "does not reject"
         kind = "scaled chi-square difference test" if self.scaled else \
             "chi-square difference test"

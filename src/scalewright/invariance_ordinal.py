@@ -98,9 +98,9 @@ from scalewright.dwls_difference import METHOD, DwlsDifference, adjusted_differe
 from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
-                                    Release, ScoreTest, conventions, latent_comparison,
-                                    releasable, release_entry, release_search, released_item,
-                                    sequence_keys, step_entry)
+                                    Release, ScoreTest, convention_verdict, conventions,
+                                    latent_comparison, releasable, release_entry,
+                                    release_search, released_item, sequence_keys, step_entry)
 from scalewright.layout import INTERCEPT, LOADING, PATH, RESIDUAL_COV, Param
 from scalewright.methods import LISTWISE
 from scalewright.multigroup import carry_start
@@ -153,13 +153,7 @@ class OrdinalComparison:
                     "model is equivalent to the one before it (equal thresholds are not "
                     "testable for items with three answer categories, nor on their own for "
                     "items with two: Wu & Estabrook 2016).")
-        met = [c.source for c in self.conventions if c.met]
-        unmet = [c.source for c in self.conventions if not c.met]
-        verdict = ("hold by every convention" if not unmet else
-                   "do not hold by any convention" if not met else
-                   f"hold by {' and '.join(met)} but not by {' and '.join(unmet)}")
-        rules = "; ".join(f"{c.source}: {c.rule} — {'met' if c.met else 'not met'}"
-                          for c in self.conventions)
+        verdict, rules = convention_verdict(self.conventions)
         verb = "rejects" if self.rejects else "does not reject"
         return (f"{what} {verdict} ({rules}); these published conventions are rules of thumb, "
                 f"not tests. The mean-and-variance adjusted difference test {verb} equality "
