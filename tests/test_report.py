@@ -1020,3 +1020,24 @@ def test_a_large_study_report_stays_under_five_megabytes():
     # design brief: a 100-item, 10-construct study with 4 rival models stays < 5 MB
     html = render_html(large_report())
     assert len(html.encode("utf-8")) < 5 * 1024 * 1024
+
+
+def test_summary_reports_the_reliability_of_ordinal_and_mixed_models(kinds_report):
+    # the summary of a model fitted on the ordinal or mixed route names its categorical
+    # omega (ordinal constructs) and omega of standardized items (continuous ones), split
+    # at .70 (Nunnally & Bernstein 1994, RELIABILITY_MINIMUM above), as it does omega on
+    # the ML routes; before, such models had no reliability sentence at all
+    from scalewright.report.narrative import _reliability_paragraph
+    for model in kinds_report["models"]:
+        sentence = _reliability_paragraph(model)
+        assert sentence is not None and "(Nunnally & Bernstein 1994)" in sentence
+        for key, what in (("reliability_ordinal", "Categorical omega"),
+                          ("reliability_continuous", "Omega of the standardized items")):
+            rows = model.get(key) or []
+            assert (f"{what} in ‘{model['name']}’ is" in sentence) == bool(rows)
+            for row in rows:
+                side = "at least .70 for" if row["omega_total"] >= RELIABILITY_MINIMUM \
+                    else "below it for"
+                phrase = f"{row['construct']} ({apa(row['omega_total'], 2)})"
+                assert phrase in sentence
+                assert sentence.index(side) < sentence.index(phrase)

@@ -225,29 +225,47 @@ def _focus_paragraph(report: dict, fav: dict) -> str | None:
 
 
 def _reliability_paragraph(model: dict) -> str | None:
-    rows = model.get("reliability")
-    if not rows:
+    """One sentence per kind of coefficient the model reports (omega or alpha
+    for continuous items; categorical omega for constructs of ordinal items
+    and omega of standardized scores for constructs of continuous items on
+    the ordinal and mixed routes), each splitting the constructs at the
+    conventional minimum."""
+    name = model["name"]
+    sentences = [_coefficient_sentence(what, name, named)
+                 for what, named in _summary_coefficients(model) if named]
+    if not sentences:
         return None
-    key = "omega" if any(row.get("omega") is not None for row in rows) else "alpha"
-    named = [(row["construct"], row[key], row.get(f"{key}_ci95")) for row in rows
-             if row.get(key) is not None]
-    if not named:
-        return None
+    return (f"{'; '.join(sentences)}; {coef(RELIABILITY_MINIMUM, 2)} "
+            f"is a common minimum for research use, and decisions about individuals need more "
+            f"({RELIABILITY_SOURCE}).")
 
+
+def _summary_coefficients(model: dict) -> list[tuple[str, list]]:
+    """(name of the coefficient, [(construct, value, interval or None)]) per kind."""
+    rows = model.get("reliability")
+    if rows:
+        key = "omega" if any(row.get("omega") is not None for row in rows) else "alpha"
+        return [(key.capitalize(), [(row["construct"], row[key], row.get(f"{key}_ci95"))
+                                    for row in rows if row.get(key) is not None])]
+    by_kind = (("reliability_ordinal", "Categorical omega"),
+               ("reliability_continuous", "Omega of the standardized items"))
+    return [(what, [(row["construct"], row["omega_total"], None)
+                    for row in model.get(key) or () if row.get("omega_total") is not None])
+            for key, what in by_kind]
+
+
+def _coefficient_sentence(what: str, name: str, named: list) -> str:
     def shown(c, v, ci):
         return f"{c} ({coef(v, 2)}" + (f", 95% CI {interval(ci, 2)}" if ci else "") + ")"
 
     high = [shown(*x) for x in named if x[1] >= RELIABILITY_MINIMUM]
     low = [shown(*x) for x in named if x[1] < RELIABILITY_MINIMUM]
-    what = key.capitalize()
     parts = []
     if high:
         parts.append(f"at least {coef(RELIABILITY_MINIMUM, 2)} for {_plain_list(high)}")
     if low:
         parts.append(f"below it for {_plain_list(low)}")
-    return (f"{what} in ‘{model['name']}’ is {' and '.join(parts)}; {coef(RELIABILITY_MINIMUM, 2)} "
-            f"is a common minimum for research use, and decisions about individuals need more "
-            f"({RELIABILITY_SOURCE}).")
+    return f"{what} in ‘{name}’ is {' and '.join(parts)}"
 
 
 def _strain_paragraph(model: dict) -> str | None:
