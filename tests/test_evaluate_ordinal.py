@@ -354,3 +354,30 @@ def test_a_model_file_study_runs_through_the_ordinal_route():
     out = json.loads(to_json(res.to_dict()))
     assert out["fit"]["df"] == expected_df
     assert out["converged"]
+
+
+def test_refinement_path_refits_an_ordinal_model_by_dwls(tmp_path):
+    # every step of the refinement path must be fitted by the model's own estimator, or
+    # its CFI would be compared with step 0's across estimators; the reference is the
+    # DWLS fit (evaluate_ordinal, checked against semopy's DWLS in this file) of the
+    # model without the removed item, on the same answers
+    import pandas as pd
+
+    import scalewright
+    from scalewright.itemreview import without_item
+
+    rng = np.random.default_rng(12)
+    x = _answers(rng, 500, missing=0.02)
+    x[:, 3] = rng.integers(1, 6, len(x)).astype(float)     # q4 answers at random: flagged
+    pd.DataFrame(x, columns=ITEMS).to_csv(tmp_path / "answers.csv", index=False)
+    (tmp_path / "study.yaml").write_text(COLLAPSING_STUDY.replace("  collapse_sparse: true\n",
+                                                                  ""))
+    result = scalewright.check(tmp_path / "study.yaml")
+    steps = result.to_dict()["models"][0]["refinement"]["steps"]
+    assert len(steps) >= 2 and steps[1]["removed"] == "q4"
+    spec = result.study.model("two")
+    reduced = without_item(spec, "q4")
+    direct = evaluate_ordinal(reduced, x[:, [ITEMS.index(i) for i in reduced.items]],
+                              reduced.items, (1, 5), False)
+    assert_allclose([steps[1]["fit"]["chi_square"], steps[1]["fit"]["cfi"]],
+                    [direct.fit.chi_square, direct.fit.cfi], rtol=1e-8)

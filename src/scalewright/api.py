@@ -211,7 +211,18 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                 study.collapse_sparse))
         analysed = _merged_sparse_categories(study, spec, choice, x)
         complete = analysed[~np.isnan(analysed).any(axis=1)]
-        model.extra.update(quality_keys(model, study, complete))
+
+        def refit(reduced_spec, answers, columns):
+            # the refinement path refits by the model's own route on the same answers
+            # (pairwise, categories merged as before), so its steps' fit stays comparable
+            # with step 0; the alphas it reports come from ``complete``
+            if choice.estimator == ORDINAL:
+                return evaluate_ordinal(reduced_spec, x[:, columns], reduced_spec.items,
+                                        study.scale, study.collapse_sparse)
+            return evaluate_mixed(reduced_spec, x[:, columns], reduced_spec.items,
+                                  choice.continuous_items, study.scale, study.collapse_sparse)
+
+        model.extra.update(quality_keys(model, study, complete, fit=refit))
         return model
     incomplete = np.isnan(x).any(axis=1)
     complete = x[~incomplete] if incomplete.any() else x
