@@ -56,6 +56,7 @@ from scalewright.estimate.polychoric import OrdinalMoments, ordinal_moments
 from scalewright.estimate.result import DwlsData, Estimate
 from scalewright.indices import (
     FitIndices,
+    ScaledFitIndices,
     comparative_fit,
     rmsea,
     rmsea_close_fit_p,
@@ -79,8 +80,9 @@ TEST_NAME = ("scaled and shifted (Asparouhov & Muthén 2010); mean-scaled and Sa
 
 
 @dataclass(frozen=True)
-class OrdinalFitIndices(FitIndices):
-    """:class:`FitIndices` of a DWLS fit plus the other versions of its test.
+class OrdinalFitIndices(ScaledFitIndices):
+    """:class:`~scalewright.indices.ScaledFitIndices` of a DWLS fit plus the
+    unadjusted statistics and the scale and shift of its reported test.
 
     ``chi_square`` is the scaled-and-shifted statistic; ``chi_square_unadjusted``
     is ``T = N F_DWLS``; ``chi_square_scaled = T/c`` with ``scaling_factor = c``;
@@ -91,12 +93,6 @@ class OrdinalFitIndices(FitIndices):
 
     chi_square_unadjusted: float
     baseline_chi_square_unadjusted: float
-    chi_square_scaled: float | None
-    scaling_factor: float | None
-    p_value_scaled: float | None
-    chi_square_adjusted: float | None
-    df_adjusted: float | None
-    p_value_adjusted: float | None
     shift_scale: float | None
     shift: float | None
     test: str

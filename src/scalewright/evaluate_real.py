@@ -29,7 +29,7 @@ from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
 from scalewright.estimate.normal import complete_data_blocks, fit_normal
 from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, evaluate_moments
-from scalewright.indices import FitIndices, fit_indices
+from scalewright.indices import FitIndices, ScaledFitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
 from scalewright.methods import FULL_INFORMATION, MIXED, ORDINAL, ROBUST, MethodChoice
@@ -48,18 +48,11 @@ LABELS = {
 
 
 @dataclass(frozen=True)
-class RobustFitIndices(FitIndices):
-    """:class:`FitIndices` plus the robust statistics and indices
-    (JSON keys ``chi_square_scaled``, ``scaling_factor``, ``cfi_robust``,
-    ``tli_robust``, ``rmsea_robust``, ``rmsea_robust_ci90``,
-    ``adjusted_subsample_rows`` …)."""
+class RobustFitIndices(ScaledFitIndices):
+    """:class:`~scalewright.indices.ScaledFitIndices` plus the robust indices
+    (JSON keys ``cfi_robust``, ``tli_robust``, ``rmsea_robust``,
+    ``rmsea_robust_ci90``, ``adjusted_subsample_rows``)."""
 
-    chi_square_scaled: float | None
-    scaling_factor: float | None
-    p_value_scaled: float | None
-    chi_square_adjusted: float | None
-    df_adjusted: float | None
-    p_value_adjusted: float | None
     cfi_robust: float | None
     tli_robust: float | None
     rmsea_robust: float | None

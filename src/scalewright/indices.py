@@ -68,6 +68,22 @@ class FitIndices:
         return d
 
 
+@dataclass(frozen=True)
+class ScaledFitIndices(FitIndices):
+    """:class:`FitIndices` plus the versions of the test statistic a robust
+    route reports beside the normal-theory one: mean-scaled ``T/c`` with its
+    scaling factor ``c`` (Satorra & Bentler 1994) and mean-and-variance
+    adjusted on ``df_adjusted`` (Satterthwaite), each with its p-value.  The
+    robust ML and DWLS routes extend it with their own keys."""
+
+    chi_square_scaled: float | None
+    scaling_factor: float | None
+    p_value_scaled: float | None
+    chi_square_adjusted: float | None
+    df_adjusted: float | None
+    p_value_adjusted: float | None
+
+
 def comparative_fit(chi2: float, df: float, base_chi2: float, base_df: float) -> tuple[float, float]:
     """CFI and TLI from the model and baseline statistics."""
     denom = max(base_chi2 - base_df, chi2 - df, 0.0)

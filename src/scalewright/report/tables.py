@@ -400,16 +400,9 @@ def ordinal_reliability_table(m: dict, prefix: str) -> Table:
     part due to the construct alone where it differs; categorical omega over
     the observed sum-score variance.  The notes the rows carry are the
     table's notes."""
-    rows = []
     alone = _alone_differs(m["reliability_ordinal"], "omega_total")
-    for r in m["reliability_ordinal"]:
-        omega = r.get("omega_total")
-        rows.append((_h(r["construct"]), _c(count(len(r.get("items") or ()))),
-                     _c(coef(r.get("ordinal_alpha"), 2)),
-                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
-                             coef(omega, 2)))
-                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
-                    + (_c(coef(r.get("omega_total_observed"), 2)),))
+    rows = _reliability_by_kind_rows(m["reliability_ordinal"], "ordinal_alpha", alone,
+                                     after=("omega_total_observed",))
     notes = ["Ordinal alpha: alpha of the polychoric correlations (Zumbo, Gadermann & Zeisser "
              "2007), the reliability of the sum of the items' latent responses, not of the "
              "observed sum score. Categorical omega: the reliability of the observed sum of "
@@ -434,15 +427,8 @@ def continuous_reliability_table(m: dict, prefix: str) -> Table:
     correlations (``reliability_continuous``): alpha of the standardized
     items and omega, marked at the conventional minimum, with the part due to
     the construct alone where it differs; the rows' notes are the table's."""
-    rows = []
     alone = _alone_differs(m["reliability_continuous"], "omega_total")
-    for r in m["reliability_continuous"]:
-        omega = r.get("omega_total")
-        rows.append((_h(r["construct"]), _c(count(len(r.get("items") or ()))),
-                     _c(coef(r.get("alpha_standardized"), 2)),
-                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
-                             coef(omega, 2)))
-                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ()))
+    rows = _reliability_by_kind_rows(m["reliability_continuous"], "alpha_standardized", alone)
     notes = ["The model was fitted to correlations, so these coefficients are those of the sum "
              "of standardized item scores: alpha of the items' Pearson correlations (Cronbach "
              "1951) and omega total from the standardized solution (McDonald 1999). "
@@ -455,6 +441,22 @@ def continuous_reliability_table(m: dict, prefix: str) -> Table:
                  f"Reliability of the constructs measured by continuous items in ‘{m['name']}’",
                  ("Construct", "Items", "Alpha, standardized items", "Omega")
                  + (("Omega, construct alone",) if alone else ()), tuple(rows), tuple(notes))
+
+
+def _reliability_by_kind_rows(entries, alpha_key: str, alone: bool, after=()) -> list:
+    """Rows of the per-kind reliability tables: construct, items, the alpha
+    under ``alpha_key``, omega total marked at the conventional minimum, the
+    construct-alone omega when ``alone``, then the coefficients ``after``."""
+    rows = []
+    for r in entries:
+        omega = r.get("omega_total")
+        rows.append((_h(r["construct"]), _c(count(len(r.get("items") or ()))),
+                     _c(coef(r.get(alpha_key), 2)),
+                     _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
+                             coef(omega, 2)))
+                    + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
+                    + tuple(_c(coef(r.get(key), 2)) for key in after))
+    return rows
 
 
 def item_analysis_table(m: dict, prefix: str) -> Table:
