@@ -22,16 +22,21 @@ Both runs' objective values are printed so the fits can be seen to agree.
 """
 
 import argparse
+import sys
 import time
 import types
+from pathlib import Path
 
 import numpy as np
-import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.dwls import fit_dwls
 from scalewright.estimate.polychoric import ordinal_moments
 from scalewright.specify import build_layout
+
+# semopy made ready for DWLS on our matrix and weights, as the tests check it
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from test_dwls import semopy_dwls_model  # noqa: E402
 
 
 def make_data(n_items: int, n_rows: int, n_constructs: int, seed: int = 50110) -> np.ndarray:
@@ -71,24 +76,8 @@ def time_scalewright(spec, moments, repeats: int = 3):
 
 
 def time_semopy(spec, moments):
-    import semopy
-
-    items = moments.items
-    p = len(items)
     desc = "\n".join(f"{c} =~ " + " + ".join(its) for c, its in spec.constructs.items())
-    corr = pd.DataFrame(moments.raw_correlations, index=items, columns=items)
-    model = semopy.Model(desc)
-    model.load(cov=corr, n_samples=moments.n_rows)
-    order = [items.index(v) for v in model.vars["observed"]]
-    weights = np.ones((p, p))
-    jj, ll = np.triu_indices(p, 1)
-    weights[jj, ll] = weights[ll, jj] = moments.dwls_weights
-    weights = weights[np.ix_(order, order)]
-    upper = np.triu_indices(p)
-    model.mx_w_inv = weights[upper]
-    model.inds_triu_sigma = upper
-    model.mx_vech_s = model.mx_cov[upper]
-    model.last_result = types.SimpleNamespace(name_obj="DWLS")
+    model, corr = semopy_dwls_model(desc, moments)
     start = time.perf_counter()
     result = model.fit(cov=corr, obj="DWLS", n_samples=moments.n_rows)
     return time.perf_counter() - start, result

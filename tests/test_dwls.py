@@ -42,8 +42,9 @@ def hs_ordinal(hs_x):
     return ordinal_moments(_quantile_categories(hs_x, 5), HS_ITEMS)
 
 
-def _semopy_dwls(desc, moments):
-    """semopy's DWLS fit of ``desc`` to our polychoric matrix with our weights.
+def semopy_dwls_model(desc, moments):
+    """semopy's model of ``desc``, made ready for a DWLS fit to our
+    polychoric matrix with our weights; returns it and that matrix.
 
     ``Model.fit(cov=…, obj="DWLS")`` would compute weights from raw data
     (``prepare_wls``), which a correlation matrix does not have; the three
@@ -70,6 +71,12 @@ def _semopy_dwls(desc, moments):
     model.inds_triu_sigma = upper
     model.mx_vech_s = model.mx_cov[upper]
     model.last_result = types.SimpleNamespace(name_obj="DWLS")
+    return model, corr
+
+
+def _semopy_dwls(desc, moments):
+    """semopy's DWLS fit of ``desc`` to our matrix and weights, ftol 1e-12."""
+    model, corr = semopy_dwls_model(desc, moments)
     result = model.fit(cov=corr, obj="DWLS", n_samples=moments.n_rows,
                        options={"ftol": 1e-12, "maxiter": 10000})
     return model, result
@@ -86,20 +93,17 @@ def hs_semopy(hs_ordinal):
     return _semopy_dwls(HS_SEMOPY, hs_ordinal)
 
 
-def test_estimates_match_semopy_dwls_on_the_same_correlations_and_weights(hs_marker_fit,
-                                                                          hs_semopy):
-    model, _ = hs_semopy
-    table = model.inspect()
-    ours = {}
-    for k, prm in enumerate(hs_marker_fit.layout.params):
-        ours[(prm.kind, prm.a, prm.b)] = hs_marker_fit.theta[k]
+def assert_estimates_match_semopy(fit, table, constructs, items) -> int:
+    """Every free parameter of our DWLS ``fit`` against semopy's estimate table
+    (``Model.inspect()``); returns how many were compared."""
+    ours = {(prm.kind, prm.a, prm.b): fit.theta[k] for k, prm in enumerate(fit.layout.params)}
     checked = 0
     for _, row in table.iterrows():
-        if row["op"] == "~" and row["rval"] in HS_CONSTRUCTS:
+        if row["op"] == "~" and row["rval"] in constructs:
             key = ("loading", row["rval"], row["lval"])
         elif row["op"] == "~~":
             a, b = row["lval"], row["rval"]
-            kind = "residual_covariance" if a in HS_ITEMS else "factor_covariance"
+            kind = "residual_covariance" if a in items else "factor_covariance"
             key = (kind, a, b) if (kind, a, b) in ours else (kind, b, a)
         else:
             continue
@@ -107,9 +111,17 @@ def test_estimates_match_semopy_dwls_on_the_same_correlations_and_weights(hs_mar
             assert row["Estimate"] == 1.0
             continue
         # Both minimise the same function; semopy's SLSQP with ftol 1e-12
-        # stops within about 1e-6 of the optimum on this problem.
+        # stops within about 1e-6 of the optimum on these problems.
         assert_allclose(ours[key], row["Estimate"], rtol=1e-5, atol=1e-6, err_msg=str(key))
         checked += 1
+    return checked
+
+
+def test_estimates_match_semopy_dwls_on_the_same_correlations_and_weights(hs_marker_fit,
+                                                                          hs_semopy):
+    model, _ = hs_semopy
+    checked = assert_estimates_match_semopy(hs_marker_fit, model.inspect(), HS_CONSTRUCTS,
+                                            HS_ITEMS)
     assert checked == 21      # 6 free loadings, 3 + 3 factor (co)variances, 9 residual variances
 
 

@@ -26,7 +26,7 @@ import pytest
 from conftest import make_spec
 from numpy.testing import assert_allclose
 from scipy import stats
-from test_dwls import _semopy_dwls
+from test_dwls import _semopy_dwls, assert_estimates_match_semopy
 
 import scalewright
 from scalewright.estimate.dwls import fit_dwls
@@ -77,24 +77,7 @@ def test_estimates_match_semopy_dwls_on_the_same_mixed_matrix_and_weights(sample
     fit = fit_dwls(build_layout(spec, sample_moments.correlations), sample_moments)
     model, result = _semopy_dwls("A =~ o1 + o2 + c1 + c2\nB =~ o3 + o4 + c3 + c4",
                                  sample_moments)
-    ours = {(prm.kind, prm.a, prm.b): fit.theta[k] for k, prm in enumerate(fit.layout.params)}
-    checked = 0
-    for _, row in model.inspect().iterrows():
-        if row["op"] == "~" and row["rval"] in ("A", "B"):
-            key = ("loading", row["rval"], row["lval"])
-        elif row["op"] == "~~":
-            a, b = row["lval"], row["rval"]
-            kind = "residual_covariance" if a in ITEMS else "factor_covariance"
-            key = (kind, a, b) if (kind, a, b) in ours else (kind, b, a)
-        else:
-            continue
-        if key not in ours:       # semopy's marker loadings (fixed at 1)
-            assert row["Estimate"] == 1.0
-            continue
-        # both minimise the same function; semopy's SLSQP with ftol 1e-12 stops within
-        # about 1e-6 of the optimum (as on the polychoric matrices of tests/test_dwls.py)
-        assert_allclose(ours[key], row["Estimate"], rtol=1e-5, atol=1e-6, err_msg=str(key))
-        checked += 1
+    checked = assert_estimates_match_semopy(fit, model.inspect(), ("A", "B"), ITEMS)
     assert checked == 17      # 6 free loadings, 3 factor (co)variances, 8 residual variances
     # semopy's objective at its optimum is our unadjusted statistic T = eᵀWe
     assert_allclose(fit.test.chi_square, result.fun, rtol=1e-7)
