@@ -27,9 +27,9 @@ import numpy as np
 import pandas as pd
 import pytest
 from conftest import make_spec
+from test_invariance_ordinal import assert_configural_is_separate_fits
 
 from scalewright import api
-from scalewright.estimate.dwls import fit_dwls
 from scalewright.invariance_ordinal import ordinal_invariance
 from scalewright.multigroup import carry_start
 from scalewright.multigroup_ordinal import (CONFIGURAL, INTERCEPTS, LOADINGS, STEPS, THRESHOLDS,
@@ -37,7 +37,6 @@ from scalewright.multigroup_ordinal import (CONFIGURAL, INTERCEPTS, LOADINGS, ST
                                             steps_for)
 from scalewright.ordinal_groups import ordinal_group_moments
 from scalewright.report.render import render_html
-from scalewright.specify import build_layout
 
 ITEMS = tuple(f"y{i}" for i in range(1, 9))
 SPEC = make_spec({"f1": ITEMS[:4], "f2": ITEMS[4:]})
@@ -98,26 +97,8 @@ def mixed_data():
 def test_configural_model_of_yes_no_items_equals_separate_single_group_fits(binary_data):
     configural = fit_ordinal_groups(build_ordinal_layout(SPEC, binary_data, CONFIGURAL),
                                     binary_data)
-    singles = [fit_dwls(build_layout(SPEC, m.correlations), m) for m in binary_data.moments]
-    # independent computation: the configural model is each group on its own (Wu &
-    # Estabrook 2016), so T, tr(UΓ), tr((UΓ)²) and df add over the groups
-    for ours, theirs in ((configural.test.chi_square, sum(f.test.chi_square for f in singles)),
-                         (configural.test.trace, sum(f.test.trace for f in singles)),
-                         (configural.test.trace_squared,
-                          sum(f.test.trace_squared for f in singles))):
-        np.testing.assert_allclose(ours, theirs, rtol=1e-6)
-    assert configural.test.df == sum(f.test.df for f in singles)
-    for g, single in enumerate(singles):
-        mats = configural.estimate.matrices(g)
-        sd = np.sqrt(np.diag(mats.implied_cov))
-        delta = single.layout.patterns[0].matrices(single.theta)
-        # theta → delta parameterization: divide by the latent-response SD (algebra)
-        np.testing.assert_allclose(mats.loadings / sd[:, None], delta.loadings, atol=1e-6)
-        np.testing.assert_allclose(mats.latent_cov, delta.latent_cov, atol=1e-6)
-        thresholds = configural.estimate.theta[configural.layout.thresholds[g]]
-        # one threshold per item, saturated: it reproduces the sample threshold
-        np.testing.assert_allclose(thresholds / sd,
-                                   np.concatenate(binary_data.moments[g].thresholds), atol=1e-6)
+    # one threshold per item, saturated, as for more categories
+    assert_configural_is_separate_fits(SPEC, configural, binary_data)
 
 
 # --------------------------------------------------------------------------- counting
