@@ -276,18 +276,28 @@ def test_negative_residual_variance_is_reported_not_hidden():
     assert result.to_dict()["residual_variances"][0]["estimate"] < 0
 
 
+TWO_ITEM_CONSTRUCTS = make_spec({"a": ("i1", "i2"), "b": ("i3", "i4")})
+
+
+def _uncorrelated_pairs(seed: int, centred: bool) -> np.ndarray:
+    """Two two-item constructs whose items' cross-covariances are removed by
+    regression: exactly zero when the columns are centred first, sampling
+    noise of the means' size otherwise."""
+    lam = np.zeros((4, 2))
+    lam[0:2, 0] = [0.7, 0.7]
+    lam[2:4, 1] = [0.6, 0.6]
+    x, _ = simulate_cfa(np.random.default_rng(seed), lam, np.eye(2), 1000)
+    if centred:
+        x -= x.mean(axis=0)
+    x[:, 2:] -= x[:, :2] @ np.linalg.lstsq(x[:, :2], x[:, 2:], rcond=None)[0]
+    return x
+
+
 def test_unidentified_model_names_the_construct():
     # two two-item constructs that do not correlate at all in the sample: each
     # has two loadings to explain one covariance, so the information matrix is
     # singular (theory: Bollen 1989, p. 244, the two-indicator rule fails)
-    rng = np.random.default_rng(11)
-    lam = np.zeros((4, 2))
-    lam[0:2, 0] = [0.7, 0.7]
-    lam[2:4, 1] = [0.6, 0.6]
-    x, _ = simulate_cfa(rng, lam, np.eye(2), 1000)
-    x -= x.mean(axis=0)
-    x[:, 2:] -= x[:, :2] @ np.linalg.lstsq(x[:, :2], x[:, 2:], rcond=None)[0]
-    result = evaluate_normal(make_spec({"a": ("i1", "i2"), "b": ("i3", "i4")}), x)
+    result = evaluate_normal(TWO_ITEM_CONSTRUCTS, _uncorrelated_pairs(11, centred=True))
     text = " ".join(result.warnings)
     assert "not identified" in text
     assert "'a'" in text or "'b'" in text
@@ -296,13 +306,7 @@ def test_unidentified_model_names_the_construct():
 
 def test_nearly_unidentified_model_is_named_but_keeps_its_standard_errors():
     # the same two-item constructs correlating only by sampling noise
-    rng = np.random.default_rng(12)
-    lam = np.zeros((4, 2))
-    lam[0:2, 0] = [0.7, 0.7]
-    lam[2:4, 1] = [0.6, 0.6]
-    x, _ = simulate_cfa(rng, lam, np.eye(2), 1000)
-    x[:, 2:] -= x[:, :2] @ np.linalg.lstsq(x[:, :2], x[:, 2:], rcond=None)[0]
-    result = evaluate_normal(make_spec({"a": ("i1", "i2"), "b": ("i3", "i4")}), x)
+    result = evaluate_normal(TWO_ITEM_CONSTRUCTS, _uncorrelated_pairs(12, centred=False))
     text = " ".join(result.warnings)
     assert "nearly singular" in text and ("'a'" in text or "'b'" in text)
 
