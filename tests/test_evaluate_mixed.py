@@ -227,13 +227,14 @@ models:
 """
 
 
-@pytest.fixture(scope="module")
-def checked(tmp_path_factory):
-    """A study whose a- and m1/m2-items are five-point answers and whose b-items and m3
-    are continuous scores (not whole numbers: continuous under treat_as: auto)."""
-    folder = tmp_path_factory.mktemp("mixed")
-    rng = np.random.default_rng(2718)
-    n = 500
+#: three constructs: a-items five-point, b-items continuous, m1 m2 five-point with m3 continuous
+KIND_ITEMS = ("a1", "a2", "a3", "a4", "b1", "b2", "b3", "m1", "m2", "m3")
+
+
+def kinds_answers(rng, n: int) -> np.ndarray:
+    """Answers to :data:`KIND_ITEMS` from a three-construct population (loadings
+    .6–.8, correlations .3–.4): continuous scores 50 + 10 z, five-point answers
+    cut at :data:`POP_CUTS` for the a-items, m1 and m2; nothing missing."""
     lam = np.zeros((10, 3))
     lam[:4, 0], lam[4:7, 1], lam[7:, 2] = [.7, .6, .75, .65], [.7, .8, .6], [.65, .7, .75]
     phi = np.array([[1, .3, .4], [.3, 1, .35], [.4, .35, 1]])
@@ -243,9 +244,19 @@ def checked(tmp_path_factory):
     x = 50 + 10 * latent
     ordinal = [0, 1, 2, 3, 7, 8]
     x[:, ordinal] = (latent[:, ordinal, None] > POP_CUTS).sum(axis=2) + 1.0
+    return x
+
+
+@pytest.fixture(scope="module")
+def checked(tmp_path_factory):
+    """A study whose a- and m1/m2-items are five-point answers and whose b-items and m3
+    are continuous scores (not whole numbers: continuous under treat_as: auto)."""
+    folder = tmp_path_factory.mktemp("mixed")
+    rng = np.random.default_rng(2718)
+    n = 500
+    x = kinds_answers(rng, n)
     x[rng.random(x.shape) < 0.04] = np.nan
-    names = ["a1", "a2", "a3", "a4", "b1", "b2", "b3", "m1", "m2", "m3"]
-    frame = pd.DataFrame(x, columns=names)
+    frame = pd.DataFrame(x, columns=KIND_ITEMS)
     frame["site"] = np.where(rng.random(n) < 0.5, "north", "south")
     frame.to_csv(folder / "answers.csv", index=False)
     (folder / "study.yaml").write_text(MODEL_FILE)

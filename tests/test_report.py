@@ -676,22 +676,15 @@ def kinds_report(tmp_path_factory) -> dict:
     sparse category, merged on request."""
     import pandas as pd
 
+    from test_evaluate_mixed import KIND_ITEMS, kinds_answers
+
     folder = tmp_path_factory.mktemp("kinds")
     rng = np.random.default_rng(606)
-    lam = np.zeros((10, 3))
-    lam[:4, 0], lam[4:7, 1], lam[7:, 2] = [.7, .6, .75, .65], [.7, .8, .6], [.65, .7, .75]
-    phi = np.array([[1, .3, .4], [.3, 1, .35], [.4, .35, 1]])
-    sigma = lam @ phi @ lam.T
-    np.fill_diagonal(sigma, 1.0)
-    latent = rng.standard_normal((400, 10)) @ np.linalg.cholesky(sigma).T
-    x = 50 + 10 * latent
-    ordinal = [0, 1, 2, 3, 7, 8]
-    x[:, ordinal] = (latent[:, ordinal, None] > np.array([-1.5, -0.6, 0.3, 1.2])).sum(axis=2) + 1
+    x = kinds_answers(rng, 400)
     fives = np.flatnonzero(x[:, 0] == 5)
     x[fives[2:], 0] = 4                      # a1's category 5 keeps two answers
     x[rng.random(x.shape) < 0.03] = np.nan
-    names = ["a1", "a2", "a3", "a4", "b1", "b2", "b3", "m1", "m2", "m3"]
-    pd.DataFrame(x, columns=names).to_csv(folder / "answers.csv", index=False)
+    pd.DataFrame(x, columns=KIND_ITEMS).to_csv(folder / "answers.csv", index=False)
     (folder / "study.yaml").write_text(KINDS_STUDY)
     return api.check(folder / "study.yaml").to_dict()
 
