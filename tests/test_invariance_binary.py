@@ -31,7 +31,6 @@ from test_invariance_ordinal import assert_configural_is_separate_fits
 
 from scalewright import api
 from scalewright.invariance_ordinal import ordinal_invariance
-from scalewright.multigroup import carry_start
 from scalewright.multigroup_ordinal import (CONFIGURAL, INTERCEPTS, LOADINGS, STEPS, THRESHOLDS,
                                             UNIQUE, build_ordinal_layout, fit_ordinal_groups,
                                             steps_for)
