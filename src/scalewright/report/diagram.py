@@ -15,7 +15,6 @@ user text is escaped.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from html import escape
 
 from scalewright.report.formatting import coef
@@ -27,14 +26,6 @@ _GAP = 170          # construct ellipse to item box
 _HIGHER_GAP = 170   # higher-order factor to construct
 _TOP = 34
 _LABEL_OFFSET = 30  # label column distance from the item boxes
-
-
-@dataclass(frozen=True)
-class _Box:
-    x: float
-    y: float
-    w: float
-    h: float
 
 
 def _e(text) -> str:

@@ -380,9 +380,9 @@ def reliability_table(m: dict, prefix: str) -> Table:
                              f"{coef(omega, 2)} {interval(r.get('omega_ci95'), 2)}"))
                     + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
                     + (_c(coef(r.get("coefficient_h"), 2)),))
-    notes = [f"Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
-             f"omega total from the fitted model (McDonald 1999) with a delta-method interval on "
-             f"the logit scale; "
+    notes = ["Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
+             "omega total from the fitted model (McDonald 1999) with a delta-method interval on "
+             "the logit scale; "
              "coefficient H (Hancock & Mueller 2001). " + _reliability_minimum_note("omega")]
     if alone:
         notes.append("Omega, construct alone: the part of omega due to the construct itself, "
