@@ -57,9 +57,15 @@ class Cells:
         return len(self.params)
 
 
+def _read_only(array: np.ndarray) -> np.ndarray:
+    array.flags.writeable = False      # cached: shared by every caller
+    return array
+
+
 @dataclass(frozen=True)
 class Matrices:
-    """The model matrices at one parameter value (one group)."""
+    """The model matrices at one parameter value (one group); the derived
+    matrices are computed once and shared, read-only."""
 
     loadings: np.ndarray      # Λ, p × m
     paths: np.ndarray         # B, m × m; B[i, j] is the effect of latent j on latent i
@@ -68,23 +74,24 @@ class Matrices:
     intercepts: np.ndarray    # ν, p
     latent_means: np.ndarray  # α, m
 
-    @property
+    @cached_property
     def total_effects(self) -> np.ndarray:
-        """``A = (I − B)⁻¹``."""
+        """``A = (I − B)⁻¹`` (``I`` when there are no paths)."""
         m = self.paths.shape[0]
-        return np.linalg.inv(np.eye(m) - self.paths)
+        a = np.linalg.inv(np.eye(m) - self.paths) if self.paths.any() else np.eye(m)
+        return _read_only(a)
 
-    @property
+    @cached_property
     def latent_cov(self) -> np.ndarray:
         """Covariance of all latent variables, ``A Ψ Aᵀ``."""
         a = self.total_effects
-        return a @ self.disturbances @ a.T
+        return _read_only(a @ self.disturbances @ a.T)
 
-    @property
+    @cached_property
     def implied_cov(self) -> np.ndarray:
         """``Σ = Λ A Ψ Aᵀ Λᵀ + Θ``."""
         lam = self.loadings
-        return lam @ self.latent_cov @ lam.T + self.residuals
+        return _read_only(lam @ self.latent_cov @ lam.T + self.residuals)
 
     @property
     def implied_mean(self) -> np.ndarray:
