@@ -28,6 +28,8 @@ Harman, H. H. (1976). Modern Factor Analysis (3rd ed.). University of Chicago Pr
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from scalewright.errors import StudyError
@@ -60,7 +62,7 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
     fixed_psi = np.zeros((m, m))
 
     std = _standardized_start(spec, items, sample_cov)
-    sd = np.sqrt(np.diag(sample_cov))
+    sd = np.sqrt(np.diag(sample_cov)).tolist()     # Python floats: the loops below are per cell
 
     def new_param(param: Param, value: float) -> int:
         params.append(param)
@@ -90,7 +92,7 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
     # loadings
     for (f, item), value in std.loading.items():
         i, j = row[item], col[f]
-        raw = value * sd[i] / np.sqrt(variance[f])
+        raw = value * sd[i] / math.sqrt(variance[f])
         if marker and _marker_item(spec, f) == item:
             fixed_lam[i, j] = 1.0
             continue
@@ -98,7 +100,7 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
     # higher-order paths B[c, h]
     for h, cs in spec.higher_order.items():
         for k, c in enumerate(cs):
-            raw = std.higher[(h, c)] * np.sqrt(variance[c] / variance[h])
+            raw = std.higher[(h, c)] * math.sqrt(variance[c] / variance[h])
             if marker and k == 0:
                 fixed_paths[col[c], col[h]] = 1.0
                 continue
@@ -123,10 +125,10 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
             for y in range(x):
                 a, b = exogenous[x], exogenous[y]
                 r = std.correlation.get((a, b), std.correlation.get((b, a), 0.0))
-                cov = r * np.sqrt(variance[a] * variance[b])
+                cov = r * math.sqrt(variance[a] * variance[b])
                 psi_cells.append((col[a], col[b], new_param(Param(FACTOR_COV, b, a), cov)))
     # residual variances and covariances (Θ)
-    theta0 = std.residual * sd * sd
+    theta0 = (std.residual * np.square(sd)).tolist()
     for i, item in enumerate(items):
         theta_cells.append((i, i, new_param(Param(RESIDUAL_COV, item, item), theta0[i])))
     for a, b in spec.residual_covariances:
@@ -162,9 +164,9 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
     out = _StandardizedStart()
     communality = np.zeros(len(items))
     marker = spec.identification == MARKER
-    for c, its in spec.constructs.items():
-        idx = [row[i] for i in its]
-        lam = _one_factor_loadings(corr[np.ix_(idx, idx)], positive_first=marker)
+    construct_rows = [[row[i] for i in its] for its in spec.constructs.values()]
+    loadings = _loadings_of_item_sets(corr, construct_rows, positive_first=marker)
+    for (c, its), idx, lam in zip(spec.constructs.items(), construct_rows, loadings):
         if spec.general:
             lam = lam * 0.5
         for item, value in zip(its, lam):
@@ -222,16 +224,46 @@ def _one_factor_loadings(r: np.ndarray, positive_first: bool = False) -> np.ndar
     if k == 2:
         v = np.sqrt(min(abs(r[0, 1]), 0.9))
         return np.array([v, v * np.sign(r[0, 1]) if r[0, 1] != 0 else v])
+    return _principal_axis(r[None], positive_first)[0]
+
+
+def _loadings_of_item_sets(corr: np.ndarray, item_sets: list[list[int]],
+                           positive_first: bool) -> list[np.ndarray]:
+    """:func:`_one_factor_loadings` of each item set's correlation matrix; sets
+    of equal size (three items or more) go through one batched call."""
+    out: list = [None] * len(item_sets)
+    by_size: dict[int, list[int]] = {}
+    for n, idx in enumerate(item_sets):
+        by_size.setdefault(len(idx), []).append(n)
+    for size, members in by_size.items():
+        if size < 3:
+            for n in members:
+                out[n] = _one_factor_loadings(corr[np.ix_(item_sets[n], item_sets[n])],
+                                              positive_first)
+            continue
+        idx = np.array([item_sets[n] for n in members])
+        for n, lam in zip(members, _principal_axis(corr[idx[:, :, None], idx[:, None, :]],
+                                                   positive_first)):
+            out[n] = lam
+    return out
+
+
+def _principal_axis(r: np.ndarray, positive_first: bool) -> np.ndarray:
+    """The principal-axis step of :func:`_one_factor_loadings` for a stack of
+    correlation matrices (``g × k × k``, ``k ≥ 3``)."""
     try:
-        smc = 1.0 - 1.0 / np.diag(np.linalg.inv(r))
-    except np.linalg.LinAlgError:
-        smc = np.full(k, 0.5)
+        smc = 1.0 - 1.0 / np.diagonal(np.linalg.inv(r), axis1=1, axis2=2)
+    except np.linalg.LinAlgError:       # some matrix singular: each on its own
+        if len(r) > 1:
+            return np.stack([_principal_axis(one[None], positive_first)[0] for one in r])
+        smc = np.full(r.shape[:2], 0.5)
     reduced = r.copy()
-    np.fill_diagonal(reduced, np.clip(smc, 0.05, 0.95))
+    diagonal = np.arange(r.shape[1])
+    reduced[:, diagonal, diagonal] = np.clip(smc, 0.05, 0.95)
     values, vectors = np.linalg.eigh(reduced)
-    lam = vectors[:, -1] * np.sqrt(max(values[-1], 1e-3))
-    if (lam[0] if positive_first else lam.sum()) < 0:
-        lam = -lam
+    lam = vectors[:, :, -1] * np.sqrt(np.maximum(values[:, -1], 1e-3))[:, None]
+    sign = lam[:, 0] if positive_first else lam.sum(axis=1)
+    lam[sign < 0] *= -1.0
     return np.clip(lam, -0.95, 0.95)
 
 
