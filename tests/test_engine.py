@@ -334,3 +334,26 @@ def test_secant_correction_satisfies_the_secant_equation_and_folds_without_chang
         np.testing.assert_allclose(correction.added_to(info) @ s, y, rtol=1e-9, atol=1e-9)
         np.testing.assert_allclose(correction.added_to(info), info + dense, rtol=1e-9, atol=1e-9)
     assert correction.base is not None
+
+
+def test_information_inverse_and_its_identification_verdict_follow_the_eigenvalues():
+    # the verdict is defined by the eigenvalue ratio of the unit-diagonal information
+    # (numpy's eigvalsh is the reference); the norm bound that spares the
+    # eigendecomposition must never change it, nor the inverse (numpy's inv)
+    from scalewright.estimate.result import NEARLY_SINGULAR, SINGULAR, invert_information
+    rng = np.random.default_rng(29)
+    basis, _ = np.linalg.qr(rng.normal(size=(40, 40)))
+    scales = rng.uniform(0.5, 3.0, 40)
+    for smallest in (1e-2, 1e-5, 3e-7, 5e-8, 1e-12):
+        values = np.linspace(1.0, 2.0, 40)
+        values[0] = smallest
+        info = (basis * values) @ basis.T * np.outer(scales, scales)
+        d = np.sqrt(np.diag(info))
+        spectrum = np.linalg.eigvalsh(info / np.outer(d, d))
+        ratio = spectrum[0] / spectrum[-1]
+        acov, involved = invert_information(info, 50)
+        if ratio < SINGULAR:
+            assert acov is None and involved
+            continue
+        assert_allclose(acov, np.linalg.inv(info) / 50, rtol=1e-6 if ratio > 1e-6 else 1e-3)
+        assert bool(involved) == (ratio < NEARLY_SINGULAR)

@@ -98,21 +98,29 @@ def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tup
     ----------
     Rothenberg, T. J. (1971). Identification in parametric models.
     Econometrica 39, 577–591.
+    Horn, R. A. & Johnson, C. R. (2013). Matrix Analysis (2nd ed.). Cambridge
+    University Press.
     Rindskopf, D. (1984). Structural equation models: empirical identification,
     Heywood cases, and related problems. Sociological Methods & Research 13, 109–119.
     """
     d = np.sqrt(np.clip(np.diag(info), 1e-300, None))
     scaled = info / np.outer(d, d)
-    values = np.linalg.eigvalsh(scaled)
-    ratio = float(values[0] / max(values[-1], 1e-300))
-    if ratio >= NEARLY_SINGULAR:       # well conditioned: no eigenvectors needed
-        inverse, failed = lapack.dpotri(lapack.dpotrf(scaled, lower=True)[0], lower=True)
-        if failed == 0:
-            inverse = np.tril(inverse) + np.tril(inverse, -1).T
+    chol, failed = lapack.dpotrf(scaled, lower=True)
+    if failed == 0:
+        inverse, failed = lapack.dpotri(chol, lower=True)
+    if failed == 0:
+        inverse = np.tril(inverse) + np.tril(inverse, -1).T
+        # a norm bounds the spectral radius, so λ_max ≤ ‖I‖₁ and 1/λ_min ≤ ‖I⁻¹‖₁: the
+        # ratio is at least 1/(‖I‖₁‖I⁻¹‖₁), which spares the eigendecomposition when the
+        # model is well conditioned (a spectral radius is at most any matrix norm;
+        # Horn & Johnson 2013, ch. 5)
+        bound = 1.0 / (np.abs(scaled).sum(axis=0).max() * np.abs(inverse).sum(axis=0).max())
+        if bound >= NEARLY_SINGULAR:
             return inverse / np.outer(d, d) / n, ()
     values, vectors = np.linalg.eigh(scaled)
+    ratio = float(values[0] / max(values[-1], 1e-300))
     null = vectors[:, values < NEARLY_SINGULAR * values[-1]]
-    involved = tuple(int(i) for i in np.nonzero(np.max(np.abs(null), axis=1) > 0.1)[0])
+    involved = tuple(int(i) for i in np.nonzero(np.max(np.abs(null), axis=1, initial=0.0) > 0.1)[0])
     if ratio < SINGULAR:
         return None, involved
     inv_scaled = (vectors / values) @ vectors.T
