@@ -143,7 +143,7 @@ def test_to_dict_is_json_with_text_answer_keys(likert):
 
 @pytest.mark.parametrize("n, p", [(30, 2), (120, 5), (400, 9), (60, 20), (250, 30)])
 def test_mardia_matches_the_direct_double_sum(n, p):
-    # the first three take the third-moment tensor route, the last two (3n < p²) the
+    # the first three take the third-moment tensor route, the last two (3n < 2p²) the
     # route through the n x n matrix of z_i'z_j
     rng = np.random.default_rng(n + p)
     x = rng.exponential(size=(n, p)) @ rng.normal(size=(p, p))  # skewed, correlated
@@ -165,7 +165,7 @@ def test_mardia_blocks_of_rows_add_up_to_the_whole(monkeypatch):
 
 def test_mardia_blocks_of_rows_add_up_to_the_whole_on_the_pairs_route(monkeypatch):
     rng = np.random.default_rng(6)
-    x = rng.gamma(2.0, size=(97, 24))                   # 3n < p²: the n x n route
+    x = rng.gamma(2.0, size=(97, 24))                   # 3n < 2p²: the n x n route
     monkeypatch.setattr(screening, "_CHUNK_CELLS", 97 * 10)  # blocks of 10 rows, last one short
     result = mardia_statistics(x)
     b1, b2 = brute_force_mardia(x)

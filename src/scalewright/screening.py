@@ -34,6 +34,7 @@ from scalewright.studyfile import format_code
 
 _MAX_FREQUENCIES = 15  # answer counts are kept for items with at most this many distinct values
 _CHUNK_CELLS = 2_000_000  # floats in one block of whitened rows (16 MB)
+_PAIR_ROWS = 128  # rows per block on the n x n route: narrow blocks skip more of its lower half
 _SINGULAR = 1e-10  # smallest eigenvalue of the item correlation matrix treated as zero
 
 
@@ -125,38 +126,65 @@ def screen(data: ItemData) -> Screening:
     Screening
     """
     values = data.values
-    items = tuple(_item(name, values[:, j], data.n_rows) for j, name in enumerate(data.items))
+    width = _columns_at_once(data.n_rows)
+    items = tuple(item for lo in range(0, len(data.items), width)
+                  for item in _items(data.items[lo:lo + width], values[:, lo:lo + width],
+                                     data.n_rows))
     complete = data.complete_rows()
     return Screening(items=items, mardia=mardia_statistics(values, rows=complete),
                      n_complete=int(complete.sum()))
 
 
-def _item(name: str, column: np.ndarray, n_rows: int) -> ItemScreen:
-    """Moment statistics of one column, NaN cells left out."""
-    x = column[~np.isnan(column)]
-    n = x.size
-    pct_missing = 100.0 * (n_rows - n) / n_rows if n_rows else math.nan
-    if n == 0:
-        return ItemScreen(item=name, n=0, mean=math.nan, sd=math.nan, min=math.nan,
-                          max=math.nan, skewness=math.nan, excess_kurtosis=math.nan,
-                          pct_missing=pct_missing, n_distinct=0, frequencies={})
-    mean = float(x.mean())
-    d = x - mean
-    d2 = d * d
-    m2 = float(d2.mean())
-    m3 = float((d2 * d).mean())
-    m4 = float((d2 * d2).mean())
-    defined = n > 1 and m2 > 0
-    values, counts = np.unique(x, return_counts=True)
-    frequencies = ({float(v): int(c) for v, c in zip(values, counts)}
-                   if values.size <= _MAX_FREQUENCIES else {})
-    return ItemScreen(
-        item=name, n=n, mean=mean,
-        sd=math.sqrt(m2 * n / (n - 1)) if n > 1 else math.nan,
-        min=float(values[0]), max=float(values[-1]),
-        skewness=m3 / m2 ** 1.5 if defined else math.nan,  # g1, Joanes & Gill (1998)
-        excess_kurtosis=m4 / m2 ** 2 - 3.0 if defined else math.nan,  # g2, Joanes & Gill (1998)
-        pct_missing=pct_missing, n_distinct=int(values.size), frequencies=frequencies)
+def _columns_at_once(n_rows: int) -> int:
+    """Columns screened together: their copy stays within ``_CHUNK_CELLS`` floats."""
+    return max(1, _CHUNK_CELLS // max(n_rows, 1))
+
+
+def _items(names, columns: np.ndarray, n_rows: int) -> list[ItemScreen]:
+    """Moment statistics of each column, NaN cells left out.
+
+    The columns are copied as rows (so that every sum runs over contiguous
+    answers, by numpy's pairwise summation) and sorted once; a missing cell
+    adds zero to the sums, and the distinct answers are where the sorted
+    answers change."""
+    x = np.array(columns.T, order="C")          # one row per item
+    answered = ~np.isnan(x)
+    n = answered.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(answered, x, 0.0).sum(axis=1) / n
+        d = np.where(answered, x - mean[:, None], 0.0)
+        d2 = d * d
+        m2 = d2.sum(axis=1) / n
+        m3 = (d2 * d).sum(axis=1) / n
+        m4 = (d2 * d2).sum(axis=1) / n
+    x.sort(axis=1)                               # NaN last in each row
+    starts = np.ones(x.shape, dtype=bool)
+    starts[:, 1:] = x[:, 1:] != x[:, :-1]
+    starts &= ~np.isnan(x)
+    n_distinct = starts.sum(axis=1)
+    out = []
+    for j, name in enumerate(names):
+        k = int(n[j])
+        pct_missing = 100.0 * (n_rows - k) / n_rows if n_rows else math.nan
+        if k == 0:
+            out.append(ItemScreen(item=name, n=0, mean=math.nan, sd=math.nan, min=math.nan,
+                                  max=math.nan, skewness=math.nan, excess_kurtosis=math.nan,
+                                  pct_missing=pct_missing, n_distinct=0, frequencies={}))
+            continue
+        defined = k > 1 and m2[j] > 0          # g1 and g2 below: Joanes & Gill (1998)
+        frequencies = {}
+        if n_distinct[j] <= _MAX_FREQUENCIES:
+            first = np.flatnonzero(starts[j])
+            counts = np.diff(np.append(first, k))
+            frequencies = {float(v): int(c) for v, c in zip(x[j, first], counts)}
+        out.append(ItemScreen(
+            item=name, n=k, mean=float(mean[j]),
+            sd=math.sqrt(m2[j] * k / (k - 1)) if k > 1 else math.nan,
+            min=float(x[j, 0]), max=float(x[j, k - 1]),
+            skewness=float(m3[j] / m2[j] ** 1.5) if defined else math.nan,
+            excess_kurtosis=float(m4[j] / m2[j] ** 2 - 3.0) if defined else math.nan,
+            pct_missing=pct_missing, n_distinct=int(n_distinct[j]), frequencies=frequencies))
+    return out
 
 
 def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia | None:
@@ -215,8 +243,8 @@ def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia |
         if np.any(scale == 0) or np.linalg.eigvalsh(s / np.outer(scale, scale))[0] < _SINGULAR:
             return None
         whiten = linalg.solve_triangular(np.linalg.cholesky(s), np.eye(p), lower=True)
-        # the n x n route costs ~n²p, the tensor route ~np³/3: take the cheaper
-        moment_sums = _moment_sums_by_pairs if 3 * n < p * p else _moment_sums
+        # the n x n route costs ~n²p/2, the tensor route ~np³/3: take the cheaper
+        moment_sums = _moment_sums_by_pairs if 3 * n < 2 * p * p else _moment_sums
         cubes, squares = moment_sums(dt, whiten)
     b1 = cubes / n ** 2  # Mardia (1970), via the tensor identity
     b2 = squares / n  # Mardia (1970)
@@ -242,15 +270,22 @@ def _kurtosis_variance(n: int, p: int) -> float:
 def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
     """As :func:`_moment_sums`, straight from the definition: the cubes of
     the n x n matrix of ``z_i' z_j``, built one block of rows at a time so
-    that memory stays at one block of rows by n."""
+    that memory stays at one block of rows by n.  The matrix is symmetric,
+    so each block of rows takes only its own and the later columns (about
+    n²p/2 multiply-adds in all, with blocks of at most ``_PAIR_ROWS`` rows):
+    its square diagonal part counts once, the part to its right twice, for
+    the part below the diagonal."""
     z = whiten @ dt
     n = z.shape[1]
     squares = float(np.sum(np.einsum("ij,ij->j", z, z) ** 2))
-    width = max(1, _CHUNK_CELLS // n)
+    width = max(1, min(_PAIR_ROWS, _CHUNK_CELLS // n))
     cubes = 0.0
     for start in range(0, n, width):
-        products = z[:, start:start + width].T @ z
-        cubes += float(np.sum(products * products * products))
+        stop = min(start + width, n)
+        products = z[:, start:stop].T @ z[:, start:]
+        squared = products * products
+        diagonal = float(np.vdot(squared[:, :stop - start], products[:, :stop - start]))
+        cubes += 2.0 * float(np.vdot(squared, products)) - diagonal
     return cubes, squares
 
 
