@@ -257,8 +257,8 @@ class _State:
 
 
 def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
-                    result: ModelResult | None = None, max_steps: int | None = None,
-                    fit: Callable = refit_columns) -> Refinement:
+                    result: ModelResult | None = None, review: list | None = None,
+                    max_steps: int | None = None, fit: Callable = refit_columns) -> Refinement:
     """Remove flagged items one at a time, refitting after each removal.
 
     Parameters
@@ -272,6 +272,9 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
         Thresholds of the item review.
     result : ModelResult, optional
         The fit of ``spec`` on ``x`` if already at hand.
+    review : list of ItemReview, optional
+        ``review_items`` of ``result`` under ``settings`` if already at hand
+        (it needs the score tests, the costliest part of a step).
     max_steps : int, optional
         Stop after this many removals (no limit by default).
     fit : callable
@@ -287,8 +290,11 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     """
     column = {item: j for j, item in enumerate(spec.items)}
     cov = pd.DataFrame(x).cov().to_numpy()     # pairwise complete; np.cov when nothing is missing
-    state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items]), cov, column,
-                   settings)
+    if result is not None and review is not None:
+        state = _State(spec, result, _alphas(spec, cov, column), list(review))
+    else:
+        state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items]), cov,
+                       column, settings)
     steps = [Step(None, "the model as specified", _fit(state.result), state.reliability,
                   tuple(r.item for r in state.review), ())]
     while True:
@@ -475,10 +481,12 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
             estimate, threshold=settings.residual_threshold, observed_cov=observed_cov).to_dict()
     except ValueError as exc:
         out["residual_correlations"] = {"not_computed": str(exc)}
-    out["item_review"] = [r.to_dict() for r in review_items(model_result, tests, settings)]
+    review = review_items(model_result, tests, settings)
+    out["item_review"] = [r.to_dict() for r in review]
     if model_result.converged:
         out["refinement"] = refinement_path(spec, x, settings, result=model_result,
-                                            max_steps=max_steps, fit=fit).to_dict()
+                                            review=review, max_steps=max_steps,
+                                            fit=fit).to_dict()
     else:
         out["refinement"] = {"steps": [], "stopped": "The model as specified did not converge, "
                              "so no refinement path was computed.", "note": NOTE}
