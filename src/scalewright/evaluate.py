@@ -101,6 +101,7 @@ def estimate_columns(spec, x: np.ndarray, columns) -> Estimate:
 
 def moments_subset(block: Block, items: tuple[str, ...], subset: tuple[str, ...]) -> Block:
     """The moments of ``subset`` of the ``items`` a block was computed for."""
-    index = np.array([items.index(i) for i in subset])
+    position = {item: k for k, item in enumerate(items)}
+    index = np.array([position[i] for i in subset])
     return Block(block.group, np.arange(len(index)), block.n,
                  block.cov[np.ix_(index, index)], block.mean[index])

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from scipy.linalg import lapack
@@ -60,12 +61,18 @@ class Estimate:
         """Start values for a related layout (a refit without an item, say):
         this estimate of every parameter both layouts name alike, the
         target's own start values for the rest."""
-        where = {param: k for k, param in enumerate(self.layout.params)}
+        source = np.array([self._param_index.get(param, -1) for param in target.params],
+                          dtype=np.intp)
         out = target.start.copy()
-        for k, param in enumerate(target.params):
-            if param in where:
-                out[k] = self.theta[where[param]]
+        shared = source >= 0
+        out[shared] = self.theta[source[shared]]
         return out
+
+    @cached_property
+    def _param_index(self) -> dict:
+        """Position of each parameter in ``theta``, built once: the omega-if-dropped
+        refits ask for it once per item."""
+        return {param: k for k, param in enumerate(self.layout.params)}
 
     @property
     def se(self) -> np.ndarray:
