@@ -59,17 +59,25 @@ def standardize(mats: Matrices) -> Standardized:
 
 
 def delta_method_se(theta: np.ndarray, acov: np.ndarray | None,
-                    function: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
-    """Standard errors of ``function(θ̂)`` (a flat array) by the delta method."""
+                    function: Callable[[np.ndarray], np.ndarray],
+                    depends_on: np.ndarray | None = None) -> np.ndarray:
+    """Standard errors of ``function(θ̂)`` (a flat array) by the delta method.
+
+    The Jacobian is taken by central differences, one evaluation pair per
+    parameter; ``depends_on`` (parameter indices) names the only parameters
+    the function can change: the Jacobian's other columns are zero, so they
+    are neither evaluated nor summed."""
     value = np.asarray(function(theta), dtype=float)
     if acov is None:
         return np.full(value.shape, np.nan)
+    columns = np.arange(theta.size) if depends_on is None else np.asarray(depends_on)
     steps = 1e-6 * (1.0 + np.abs(theta))
-    jac = np.empty((value.size, theta.size))
-    for k, h in enumerate(steps):        # one evaluation pair per parameter
+    jac = np.empty((value.size, columns.size))
+    for j, k in enumerate(columns):
+        h = steps[k]
         up, down = theta.copy(), theta.copy()
         up[k] += h
         down[k] -= h
-        jac[:, k] = (np.asarray(function(up)) - np.asarray(function(down))).ravel() / (2 * h)
-    var = np.einsum("ik,kl,il->i", jac, acov, jac)
+        jac[:, j] = (np.asarray(function(up)) - np.asarray(function(down))).ravel() / (2 * h)
+    var = np.einsum("ik,kl,il->i", jac, acov[np.ix_(columns, columns)], jac)
     return np.sqrt(np.clip(var, 0.0, None)).reshape(value.shape)
