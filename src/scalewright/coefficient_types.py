@@ -19,8 +19,11 @@ import numpy as np
 
 
 def plain(value):
-    """Turn numbers, arrays and containers into JSON-able Python data
-    (numpy scalars become Python numbers, tuples and arrays lists, NaN ``None``)."""
+    """Turn numbers, arrays, containers and dataclass records into JSON-able
+    Python data (numpy scalars become Python numbers, tuples and arrays lists,
+    records dicts of their fields, NaN ``None``)."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: plain(getattr(value, f.name)) for f in dataclasses.fields(value)}
     if isinstance(value, dict):
         return {key: plain(item) for key, item in value.items()}
     if isinstance(value, (list, tuple, np.ndarray)):
@@ -38,8 +41,9 @@ class Record:
     """Mixin: a frozen dataclass that converts itself to JSON-able data."""
 
     def to_dict(self) -> dict:
-        """The record as plain Python data (NaN becomes ``None``)."""
-        return plain(dataclasses.asdict(self))
+        """The record as plain Python data (NaN becomes ``None``); one pass, as
+        ``dataclasses.asdict`` would deep-copy every field first."""
+        return plain(self)
 
 
 @dataclass(frozen=True)

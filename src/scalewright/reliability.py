@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from typing import Sequence
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from scalewright.coefficient_types import Interval, Note, Record
 from scalewright.errors import StudyError
@@ -112,7 +112,9 @@ def feldt_interval(alpha: float, n_obs: int, n_items: int, level: float = 0.95) 
     c = 1.0 - level
     d1 = n_obs - 1
     d2 = (n_obs - 1) * (n_items - 1)
-    upper_quantile, lower_quantile = stats.f.ppf([1.0 - c / 2.0, c / 2.0], d1, d2)
+    # the F quantiles by scipy.special.fdtri, which stats.f.ppf calls behind ~0.5 ms of
+    # argument handling per interval
+    upper_quantile, lower_quantile = special.fdtri(d1, d2, np.array([1.0 - c / 2.0, c / 2.0]))
     return Interval(lower=float(1.0 - (1.0 - alpha) * upper_quantile),
                     upper=float(1.0 - (1.0 - alpha) * lower_quantile),
                     level=float(level), method="Feldt (1965) F distribution")
