@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from scalewright import __version__
+from scalewright.blas import one_blas_thread
 from scalewright.errors import StudyError
 from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
@@ -172,9 +173,10 @@ def _reanalysis_keys(data: ItemData, choice) -> dict:
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
-    found = mahalanobis_outliers(values, data.row_ids)
-    return {"outliers": found.to_dict() if found else None,
-            "correlations": item_correlations(values, data.items, saturated)}
+    with one_blas_thread():             # small products: see DEVELOPERS.md, "Speed"
+        found = mahalanobis_outliers(values, data.row_ids)
+        correlations = item_correlations(values, data.items, saturated)
+    return {"outliers": found.to_dict() if found else None, "correlations": correlations}
 
 
 def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
@@ -222,7 +224,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
             return evaluate_mixed(reduced_spec, x[:, columns], reduced_spec.items,
                                   choice.continuous_items, study.scale, study.collapse_sparse)
 
-        model.extra.update(quality_keys(model, study, complete, fit=refit))
+        with one_blas_thread():
+            model.extra.update(quality_keys(model, study, complete, fit=refit))
         return model
     incomplete = np.isnan(x).any(axis=1)
     complete = x[~incomplete] if incomplete.any() else x
@@ -259,8 +262,11 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
-    model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
+    # one BLAS thread for the local-fit and scale-quality stages as for the engine:
+    # their covariance and correlation products are small (DEVELOPERS.md, "Speed")
+    with one_blas_thread():
+        model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
+        model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
 
 
