@@ -63,6 +63,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import linalg
+from scipy.linalg import blas
 
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.normal import NormalFit
@@ -207,10 +208,11 @@ def _score_tests(estimate: Estimate) -> ScoreTests:
     info_cc = np.concatenate([part[2] for part in parts])
     info_cf = np.vstack([part[3] for part in parts])
 
-    # with I_FF = L Lᵀ: I_cF I_FF⁻¹ I_Fc = ‖L⁻¹I_Fc‖²; one matrix product for all candidates
+    # with I_FF = L Lᵀ: I_cF I_FF⁻¹ I_Fc = ‖L⁻¹I_Fc‖²; one triangular product for all
+    # candidates (trmm: half the work of a general product with L⁻¹)
     l_inv = linalg.solve_triangular(chol, np.eye(len(chol)), lower=True, check_finite=False)
-    whitened = info_cf @ l_inv.T
-    net = info_cc - np.einsum("cq,cq->c", whitened, whitened)
+    whitened = blas.dtrmm(1.0, l_inv, info_cf.T, side=0, lower=1)
+    net = info_cc - np.einsum("qc,qc->c", whitened, whitened)
     defined = net > _NOT_IDENTIFIED * np.abs(info_cc)
     mi = objective.n * grad[defined] ** 2 / net[defined]
     epc = -grad[defined] / net[defined]
@@ -263,7 +265,13 @@ def _group_scores(objective: NormalFit, g: int, pattern: Pattern, mats: Matrices
         diag_v = np.diag(v)
         # a_c = e_i, so a_cᵀX is row i of X; b_cᵀX is row j of GᵀX (loading) or row k of X
         info[:n_lam] += w * (va[i_lam] * gvb[j_lam] + vb[i_lam] * gva[j_lam])
-        info[n_lam:] += w * (va[i_res] * vb[k_res] + vb[i_res] * va[k_res])
+        both = va[i_res]                  # in place: each candidates × q temporary of
+        both *= vb[k_res]                 # the residual covariances costs more than
+        other = vb[i_res]                 # its arithmetic
+        other *= va[k_res]
+        both += other
+        both *= w
+        info[n_lam:] += both
         b_v_b = np.concatenate([np.diag(gvg)[j_lam], diag_v[k_res]])
         a_v_b = np.concatenate([vg[i_lam, j_lam], v[i_res, k_res]])
         info_cc += w * (diag_v[rows] * b_v_b + a_v_b ** 2)
