@@ -82,3 +82,22 @@ def test_no_exact_hessian_with_a_mean_structure_or_missing_answers(hs_x):
     assert NormalFit(layout, pattern_blocks(moments)).value_grad_hessian(layout.start) is None
     complete = complete_data_blocks(hs_x)
     assert NormalFit(layout, complete).value_grad_hessian(layout.start) is None
+
+
+def test_warm_started_refit_reaches_the_cold_fit_solution(hs_x):
+    # theory: the ML solution does not depend on where the optimiser starts; a refit
+    # without one item, started from the larger model's estimates (Newton from the
+    # first step), must land where a fit from the usual start values lands
+    from scalewright.evaluate import moments_subset, point_estimate
+    from scalewright.scalequality import without_item
+    spec = make_spec(HS_CONSTRUCTS)
+    full_block = complete_data_blocks(hs_x)[0]
+    full = point_estimate(spec, full_block)
+    for item in ("x2", "x5"):
+        reduced = without_item(spec, item)
+        block = moments_subset(full_block, spec.items, reduced.items)
+        warm = point_estimate(reduced, block, start_from=full)
+        cold = point_estimate(reduced, block)
+        assert warm.record.converged and cold.record.converged
+        # tolerance: both stop at a gradient of 1e-7 (POINT_GRAD_TOL), i.e. ~1e-6 from the optimum
+        assert_allclose(warm.theta, cold.theta, rtol=0, atol=1e-5)

@@ -64,15 +64,17 @@ def fisher_scoring(theta0: np.ndarray,
                    value: Callable[[np.ndarray], float],
                    value_grad_info: Callable[[np.ndarray], tuple[float, np.ndarray, np.ndarray]],
                    *, max_iter: int = 500, grad_tol: float = 1e-8, step_tol: float = 1e-11,
-                   value_grad_hessian: Callable[[np.ndarray], tuple | None] | None = None
-                   ) -> tuple[np.ndarray, OptimizerRecord]:
+                   value_grad_hessian: Callable[[np.ndarray], tuple | None] | None = None,
+                   warm: bool = False) -> tuple[np.ndarray, OptimizerRecord]:
     """Minimise ``value`` by Fisher scoring, switching to Newton's method
     where the exact Hessian is available (``value_grad_hessian`` returns
     ``f``, ``g`` and a function computing ``H`` at the same point, or None
     where the Hessian is not available).
 
     Newton steps are used after a full Fisher or Newton step, i.e. once the
-    quadratic model predicts well; a Hessian that is not positive definite,
+    quadratic model predicts well, and from the first step when ``warm``
+    (the start is a nearby solution, e.g. of a model with one more item);
+    a Hessian that is not positive definite,
     or a step the line search had to shorten, sends the next iteration back
     to Fisher scoring.  Near the optimum Newton's method converges
     quadratically where Fisher scoring converges linearly (module docstring).
@@ -84,8 +86,12 @@ def fisher_scoring(theta0: np.ndarray,
     then shortens the step.
     """
     theta = np.array(theta0, dtype=float)
-    f, grad, info = value_grad_info(theta)
-    hessian = None
+    exact = None if value_grad_hessian is None or not warm else value_grad_hessian(theta)
+    if exact is None:
+        f, grad, info = value_grad_info(theta)
+        hessian = None
+    else:
+        f, grad, hessian = exact
     if not np.isfinite(f):
         return theta, OptimizerRecord(False, 0, float("nan"), f,
                                       "the start values give an implied covariance matrix "

@@ -375,5 +375,6 @@ def fit_normal(layout: Layout, blocks: tuple[Block, ...], start: np.ndarray | No
     theta0 = layout.start if start is None else start
     theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info,
                                    grad_tol=grad_tol,
-                                   value_grad_hessian=objective.value_grad_hessian)
+                                   value_grad_hessian=objective.value_grad_hessian,
+                                   warm=start is not None)
     return theta, record, objective
