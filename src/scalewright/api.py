@@ -126,15 +126,27 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     study = load_study(path)
     if out is not None:
         check_targets(Path(out), study.path.stem)
+    # one BLAS thread throughout: on the 2-core machines this is built for, a threaded
+    # BLAS made even the 100-item covariance check 40-70x slower under load (measured;
+    # DEVELOPERS.md, "Speed")
+    with one_blas_thread():
+        result = _checked(study)
+    for model in result.models:
+        for category, text in classified_warnings(model.estimate, model.std):
+            warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
+    if out is not None:
+        write_outputs(result, Path(out))
+    return result
+
+
+def _checked(study: Study) -> CheckResult:
+    """The stages of :func:`check`, from reading the data to the result."""
     data = read_items(study)
     screening = screen(data)
     choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
     models = tuple(_fit_model(study, spec, data, rows, choice) for spec in study.models)
-    for model in models:
-        for category, text in classified_warnings(model.estimate, model.std):
-            warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models],
                                 {m.name: m.fitted for m in models
@@ -144,13 +156,9 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
         extra.update(_invariance(study, data, spec, choice))
     dropped = {"no answer to any item" if choice.missing_handling != LISTWISE
                else "incomplete answers": int(data.n_rows - n_used)}
-    result = CheckResult(study, data, screening, models, n_used, dropped,
-                         _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-                         extra, missing_data_summary(data), choice,
-                         _reanalysis_keys(data, choice))
-    if out is not None:
-        write_outputs(result, Path(out))
-    return result
+    return CheckResult(study, data, screening, models, n_used, dropped,
+                       _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+                       extra, missing_data_summary(data), choice, _reanalysis_keys(data, choice))
 
 
 def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
@@ -173,9 +181,8 @@ def _reanalysis_keys(data: ItemData, choice) -> dict:
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
-    with one_blas_thread():             # small products: see DEVELOPERS.md, "Speed"
-        found = mahalanobis_outliers(values, data.row_ids)
-        correlations = item_correlations(values, data.items, saturated)
+    found = mahalanobis_outliers(values, data.row_ids)
+    correlations = item_correlations(values, data.items, saturated)
     return {"outliers": found.to_dict() if found else None, "correlations": correlations}
 
 
@@ -224,8 +231,7 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
             return evaluate_mixed(reduced_spec, x[:, columns], reduced_spec.items,
                                   choice.continuous_items, study.scale, study.collapse_sparse)
 
-        with one_blas_thread():
-            model.extra.update(quality_keys(model, study, complete, fit=refit))
+        model.extra.update(quality_keys(model, study, complete, fit=refit))
         return model
     incomplete = np.isnan(x).any(axis=1)
     complete = x[~incomplete] if incomplete.any() else x
@@ -262,11 +268,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    # one BLAS thread for the local-fit and scale-quality stages as for the engine:
-    # their covariance and correlation products are small (DEVELOPERS.md, "Speed")
-    with one_blas_thread():
-        model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
-        model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
+    model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
+    model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
 
 
