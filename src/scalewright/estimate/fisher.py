@@ -73,10 +73,9 @@ def fisher_scoring(theta0: np.ndarray,
 
     Newton steps are used after a full Fisher or Newton step, i.e. once the
     quadratic model predicts well, and from the first step when ``warm``
-    (the start is a nearby solution, e.g. of a model with one more item);
-    a Hessian that is not positive definite,
-    or a step the line search had to shorten, sends the next iteration back
-    to Fisher scoring.  Near the optimum Newton's method converges
+    (the start is a nearby solution, e.g. of a model with one more item); a
+    Hessian that is not positive definite, or a step the line search had to
+    shorten, sends the next iteration back to Fisher scoring.  Near the optimum Newton's method converges
     quadratically where Fisher scoring converges linearly (module docstring).
 
     Stops when the largest absolute gradient element is below ``grad_tol``
