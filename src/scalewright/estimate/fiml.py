@@ -74,7 +74,7 @@ import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, sparse
+from scipy import linalg
 
 from scalewright.errors import StudyError
 from scalewright.estimate.fisher import OptimizerRecord
@@ -189,25 +189,27 @@ class PatternMoments:
 
 
 def pattern_moments(values: np.ndarray, patterns: Patterns) -> PatternMoments:
-    """Means and covariances of each pattern's rows, summed in chunks of rows
-    with a sparse pattern-indicator matrix (no loop over rows or patterns)."""
+    """Means and covariances of each pattern's rows.
+
+    The rows are sorted by pattern, so that each pattern's rows are one
+    slice: its mean is the slice's column sums over ``n_k`` and its
+    covariance one product ``CᵀC / n_k`` of the slice centred at its own
+    mean (``p × p`` per pattern, no ``n × p²`` temporaries).  A pattern of
+    one row has covariance zero and needs no product."""
     n, p = values.shape
     k = len(patterns.counts)
     rows = np.nonzero(patterns.index >= 0)[0]
-    centre = np.nanmean(values, axis=0)
-    sums = np.zeros((k, p))
-    outer = np.zeros((k, p * p))
-    for start in range(0, len(rows), CHUNK):
-        r = rows[start:start + CHUNK]
-        x = np.nan_to_num(values[r] - centre)
-        ind = sparse.csr_matrix((np.ones(len(r)), (patterns.index[r], np.arange(len(r)))),
-                                shape=(k, len(r)))
-        sums += ind @ x
-        outer += ind @ (x[:, :, None] * x[:, None, :]).reshape(len(r), p * p)
-    cnt = patterns.counts[:, None].astype(float)
-    dev = sums / cnt
-    covs = outer.reshape(k, p, p) / cnt[:, :, None] - dev[:, :, None] * dev[:, None, :]
-    means = (dev + centre) * patterns.masks
+    order = rows[np.argsort(patterns.index[rows], kind="stable")]
+    x = np.nan_to_num(values[order])            # unanswered items: 0 in every row of a pattern
+    counts = patterns.counts
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    means = np.add.reduceat(x, starts, axis=0) / counts[:, None]
+    x -= np.repeat(means, counts, axis=0)
+    covs = np.zeros((k, p, p))
+    for j in np.nonzero(counts > 1)[0]:
+        centred = x[starts[j]:starts[j] + counts[j]]
+        np.matmul(centred.T, centred, out=covs[j])
+        covs[j] /= counts[j]
     return PatternMoments(patterns.masks, patterns.counts, means, covs)
 
 
