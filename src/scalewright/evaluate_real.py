@@ -22,8 +22,9 @@ import numpy as np
 from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
 from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, fit_fiml,
-                                       missing_patterns, pattern_blocks, pattern_moments,
-                                       saturated_em, with_intercepts, yuan_bentler)
+                                       missing_patterns, observed_information, pattern_blocks,
+                                       pattern_moments, saturated_em, with_intercepts,
+                                       yuan_bentler)
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
@@ -132,7 +133,10 @@ def _full_information(spec, x: np.ndarray, robust: bool, where: str,
     saturated = saturated_em(moments)
     fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated, start_from)
     layout, theta, n = fitted.layout, fitted.theta, fitted.n
-    info = fiml_information(layout, theta, x, patterns, moments)
+    # the Yuan–Bentler corrections need A_β and B_β (p* × p*); the standard errors
+    # alone need only the observed information, formed cell by cell
+    info = fiml_information(layout, theta, x, patterns, moments) if robust else \
+        observed_information(layout.patterns[0], layout.n_params, theta, moments)
     acov, unidentified = invert_information(info.observed, n)
     mats = layout.patterns[0].matrices(theta)
     fit = fit_indices(loglik=fitted.loglik, saturated=saturated.loglik, df=fitted.df, n=n,

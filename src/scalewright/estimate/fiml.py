@@ -77,10 +77,13 @@ import numpy as np
 from scipy import linalg
 
 from scalewright.errors import StudyError
+from scalewright.estimate.cell_products import CellIndex
 from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
+from scalewright.estimate.pattern_products import mean_pair_form, pair_form, sandwiches
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
-from scalewright.layout import INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives
+from scalewright.layout import (INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives,
+                                cell_factors)
 
 #: rows per chunk when casewise quantities are accumulated
 CHUNK = 4096
@@ -494,8 +497,6 @@ class ObservedInformation:
 
     observed: np.ndarray        # Ã_θ = A_θ + Σ_k (∂f/∂β_k) ∂²β_k/∂θ∂θᵀ
     first_order: np.ndarray     # A_θ = ΔᵀA_βΔ
-    a_beta: np.ndarray
-    delta: np.ndarray
 
 
 def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
@@ -505,26 +506,60 @@ def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
     patterns): ``Ã_θ = ΔᵀA_βΔ + Σ_k (∂f/∂β_k) ∂²β_k/∂θ∂θᵀ`` with ``A_β``
     the observed information of ``β = (vech Σ, μ)`` at the implied moments
     (module docstring).  ``θ`` may be a multi-group layout's parameter
-    vector: the derivatives are taken with respect to all ``n_params`` of it."""
+    vector: the derivatives are taken with respect to all ``n_params`` of it.
+
+    ``ΔᵀA_βΔ`` is formed cell by cell without ``A_β`` (whose ``p*²``
+    elements and products with ``Δ`` dominated at many items): with
+    ``P_k = WᵀṼ_kW``, ``D_k = Wᵀ(M_k − ½Ṽ_k)W``, ``ζ_k = Wᵀz_k`` and the
+    bilinear form ``F`` of :mod:`~scalewright.estimate.pattern_products`,
+    the docstring's second derivative in the cell directions ``c, d`` sums to
+
+        F(P, D) + F(D, P) + C + Cᵀ + (∂μ)ᵀ(Σ_k w_k Ṽ_k)(∂μ),
+        C[c, d] = Σ_k w_k z_kᵀ(∂_cΣ)Ṽ_k(∂_dμ)
+
+    (``−½ tr(ṼYṼX) + ½[tr(YṼXM) + tr(XṼYM)]`` expands to ``F(P, D) + F(D, P)``;
+    with ``M = Ṽ`` it is the expected information ``F(P, P)``)."""
     mats = pattern.matrices(theta)
-    a_beta, grad_sigma, grad_mu = saturated_information(moments, mats.implied_mean,
-                                                        mats.implied_cov)
-    delta = pattern_jacobian(pattern, theta, n_params)
-    first = delta.T @ a_beta @ delta
+    mu, sigma = mats.implied_mean, mats.implied_cov
+    emb = _embedded_inverses(sigma, moments.masks)
+    w = moments.counts / moments.counts.sum()
+    v = emb.v
+    r = (moments.means - mu) * moments.masks
+    z = np.einsum("kij,kj->ki", v, r)
+    m = v @ (moments.covs + r[:, :, None] * r[:, None, :]) @ v
+    factors = cell_factors(pattern, mats)
+    index = CellIndex.of(factors)
+    wvw = sandwiches(factors, v)
+    wdw = sandwiches(factors, m - 0.5 * v)
+    cells = pair_form(index, wvw, wdw, w) + pair_form(index, wdw, wvw, w)
+    if index.mu is not None:
+        cross = mean_pair_form(index, wvw, z @ factors.w, w)
+        cells += cross + cross.T
+        mean_part = np.tensordot(w, wvw, axes=1)[index.mu][:, index.mu]
+        cells += mean_part * index.mu_scale * index.mu_scale[:, None]
+    inc = incidence(pattern, n_params)
+    first = inc.T @ cells @ inc
+    grad_sigma = 0.5 * np.einsum("k,kij->ij", w, v - m)
+    grad_mu = -(w @ z)
     observed = first + _second_order_term(pattern, n_params, theta, grad_sigma, grad_mu)
-    return ObservedInformation(observed, first, a_beta, delta)
+    return ObservedInformation(observed, first)
 
 
 def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
                      patterns: Patterns, moments: PatternMoments) -> FimlInformation:
     """Observed information and casewise-score outer products of a FIML fit
-    (``layout`` with intercepts, one group)."""
+    (``layout`` with intercepts, one group): what the Yuan–Bentler
+    corrections need (:func:`yuan_bentler`).  The standard errors alone need
+    only :func:`observed_information`, without the ``p* × p*`` matrices
+    ``A_β`` and ``B_β``."""
     pattern = layout.patterns[0]
     info = observed_information(pattern, layout.n_params, theta, moments)
     mats = pattern.matrices(theta)
+    a_beta, _, _ = saturated_information(moments, mats.implied_mean, mats.implied_cov)
+    delta = pattern_jacobian(pattern, theta, layout.n_params)
     b_beta = saturated_scores_gram(values, patterns, mats.implied_mean, mats.implied_cov)
-    return FimlInformation(info.observed, info.first_order, info.delta.T @ b_beta @ info.delta,
-                           info.a_beta, b_beta, info.delta)
+    return FimlInformation(info.observed, info.first_order, delta.T @ b_beta @ delta,
+                           a_beta, b_beta, delta)
 
 
 def observed_acov(info: FimlInformation, n: int) -> np.ndarray:
