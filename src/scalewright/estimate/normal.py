@@ -44,9 +44,10 @@ from scipy.linalg import lapack
 
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
+from scalewright.estimate.pattern_products import pair_form, sandwiches
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 
-from scalewright.layout import Layout, Matrices, Pattern, cell_derivatives, cell_factors
+from scalewright.layout import Layout, Matrices, Pattern, cell_factors
 
 LOG_2PI = np.log(2.0 * np.pi)
 
@@ -104,10 +105,6 @@ def _stack(blocks, p: int, n_total: int) -> _GroupStack:
         means[i, o] = block.mean
     counts = np.array([b.n for b in blocks], dtype=float)
     return _GroupStack(observed, counts / n_total, covs, means, counts)
-
-
-#: patterns handled together when building the information (bounds memory at K × c × c)
-_CHUNK = 64
 
 
 @dataclass(frozen=True)
@@ -225,26 +222,7 @@ class NormalFit:
                 cell_grad, cell_info = _complete_terms(stack, v[0], pattern, mats, means)
                 _add_cells(grad, info, pattern, cell_grad, cell_info)
                 continue
-            a, b, dmu = cell_derivatives(pattern, mats)
-            w = stack.weights
-            vsv = v @ stack.covs @ v
-            e_total = np.tensordot(w, v - vsv, axes=1)
-            cell_info = np.zeros((a.shape[1], a.shape[1]))
-            for lo in range(0, len(w), _CHUNK):
-                vk, wk = v[lo:lo + _CHUNK], w[lo:lo + _CHUNK]
-                va, vb = vk @ a, vk @ b                      # chunk × p × c
-                pa, qb, r = a.T @ va, b.T @ vb, a.T @ vb     # chunk × c × c
-                pa *= qb
-                pa += r * r.transpose(0, 2, 1)
-                cell_info += np.tensordot(wk, pa, axes=1)
-            cell_grad = np.zeros(a.shape[1])
-            if means:
-                resid = (stack.means - mats.implied_mean) * stack.observed
-                z = np.einsum("kij,kj->ki", v, resid)
-                e_total -= np.einsum("k,ki,kj->ij", w, z, z)
-                cell_grad -= dmu.T @ (w @ z)
-                cell_info += dmu.T @ np.tensordot(w, v, axes=1) @ dmu
-            cell_grad += np.einsum("ic,ic->c", a, e_total @ b)
+            cell_grad, cell_info = _pattern_terms(stack, v, pattern, mats, means)
             _add_cells(grad, info, pattern, cell_grad, cell_info)
         return total, grad, info
 
@@ -318,6 +296,34 @@ def _complete_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: M
     cell_grad += wew[index.a, index.b] * index.s
     weight = stack.weights[0]
     return weight * cell_grad, weight * cell_info
+
+
+def _pattern_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Matrices,
+                   means: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Cell gradient and information of a group's missing-data patterns (the
+    module docstring's sums over blocks).  The gradient is linear in ``E``,
+    so the patterns' ``E_k`` are summed first; the information
+    ``Σ_k w_k ½ tr(V_k ∂_cΣ V_k ∂_dΣ)`` is gathered from ``WᵀV_kW`` per
+    pattern (:func:`~scalewright.estimate.pattern_products.pair_form`)."""
+    f = cell_factors(pattern, mats)
+    index = CellIndex.of(f)
+    w = stack.weights
+    e_total = np.tensordot(w, v - v @ stack.covs @ v, axes=1)
+    wvw = sandwiches(f, v)
+    cell_info = pair_form(index, wvw, wvw, w)
+    cell_grad = np.zeros(len(index.a))
+    if means:
+        resid = (stack.means - mats.implied_mean) * stack.observed
+        z = np.einsum("kij,kj->ki", v, resid)
+        e_total -= np.einsum("k,ki,kj->ij", w, z, z)
+        im, sm = index.mu, index.mu_scale
+        cell_grad -= (f.w.T @ (w @ z))[im] * sm
+        mu_info = np.tensordot(w, wvw, axes=1)[im][:, im]
+        mu_info *= sm
+        mu_info *= sm[:, None]
+        cell_info += mu_info
+    cell_grad += sandwich(f, e_total)[index.a, index.b] * index.s
+    return cell_grad, cell_info
 
 
 def _add_cells(grad: np.ndarray, info: np.ndarray, pattern: Pattern, cell_grad: np.ndarray,
