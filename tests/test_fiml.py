@@ -264,3 +264,38 @@ def test_warm_started_point_estimate_of_a_smaller_model_equals_its_full_fit(hs_h
     warm = fiml_point_estimate(smaller, x[:, keep], "data.csv", parent, start_cov)
     assert warm.record.converged and warm.layout.params == scratch.layout.params
     np.testing.assert_allclose(warm.theta, scratch.theta, rtol=1e-5, atol=1e-7)
+
+
+def test_objective_information_over_patterns_matches_per_pattern_traces(hs_holes):
+    x, fitted, patterns, moments, _ = hs_holes
+    layout = fitted.layout
+    pattern = layout.patterns[0]
+    theta = fitted.theta * 1.05                       # away from the optimum
+    _, grad, info = fitted.objective.value_grad_info(theta)
+    # independent computation: ∂Σ, ∂μ by central differences of the implied moments, then
+    # per pattern ½ tr(V ∂Σ_oo V ∂Σ_oo) + ∂μ_oᵀ V ∂μ_o on the submatrices (normal-theory
+    # expected information of a sum over patterns; Lawley & Maxwell 1971, ch. 4)
+    q, h = len(theta), 1e-6
+    d_sigma, d_mu = [], []
+    for k in range(q):
+        e = np.zeros(q)
+        e[k] = h
+        up, down = pattern.matrices(theta + e), pattern.matrices(theta - e)
+        d_sigma.append((up.implied_cov - down.implied_cov) / (2 * h))
+        d_mu.append((up.implied_mean - down.implied_mean) / (2 * h))
+    sigma = pattern.matrices(theta).implied_cov
+    expected = np.zeros((q, q))
+    for mask, count in zip(moments.masks, moments.counts):
+        o = np.nonzero(mask)[0]
+        v = np.linalg.inv(sigma[np.ix_(o, o)])
+        vd = [v @ d[np.ix_(o, o)] for d in d_sigma]
+        vm = [v @ m[o] for m in d_mu]
+        part = np.array([[0.5 * np.sum(vd[c] * vd[d].T) + d_mu[c][o] @ vm[d] for d in range(q)]
+                         for c in range(q)])
+        expected += count / moments.counts.sum() * part
+    # the gradient against scipy's numerical derivative of the objective itself
+    numeric = optimize.approx_fprime(theta, fitted.objective.value, 1e-7)
+    # central differences of polynomials: rounding only, 1e-7 relative to the largest element
+    np.testing.assert_allclose(info, expected, atol=1e-7 * np.abs(expected).max())
+    # forward differences at step 1e-7: error of order 1e-7 times the curvature
+    np.testing.assert_allclose(grad, numeric, atol=1e-5)
