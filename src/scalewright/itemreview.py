@@ -41,6 +41,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from functools import cached_property
 from types import SimpleNamespace
 from typing import Callable
 
@@ -250,10 +251,25 @@ class Refinement:
 
 @dataclass(frozen=True)
 class _State:
+    """One step of the refinement path: the model, its fit and alphas, and
+    (computed when first asked for, since only the chosen trial's is needed)
+    the review of its items, whose score tests are the costliest part."""
+
     spec: object
     result: ModelResult
     reliability: dict
-    review: list
+    settings: Settings
+    given_review: list | None = None
+
+    @cached_property
+    def review(self) -> list:
+        if self.given_review is not None:
+            return self.given_review
+        try:
+            tests = score_tests_for(self.result.estimate)
+        except ValueError:
+            tests = None
+        return review_items(self.result, tests, self.settings)
 
 
 def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
@@ -291,7 +307,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     column = {item: j for j, item in enumerate(spec.items)}
     cov = pd.DataFrame(x).cov().to_numpy()     # pairwise complete; np.cov when nothing is missing
     if result is not None and review is not None:
-        state = _State(spec, result, _alphas(spec, cov, column), list(review))
+        state = _State(spec, result, _alphas(spec, cov, column), settings, list(review))
     else:
         state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items]), cov,
                        column, settings)
@@ -331,11 +347,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
 
 
 def _state(spec, result: ModelResult, cov: np.ndarray, column: dict, settings: Settings) -> _State:
-    try:
-        tests = score_tests_for(result.estimate)
-    except ValueError:
-        tests = None
-    return _State(spec, result, _alphas(spec, cov, column), review_items(result, tests, settings))
+    return _State(spec, result, _alphas(spec, cov, column), settings)
 
 
 def _alphas(spec, cov: np.ndarray, column: dict) -> dict:
