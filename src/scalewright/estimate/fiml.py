@@ -583,13 +583,15 @@ def yuan_bentler(info: FimlInformation, n: int, chi_square: float, df: int) -> R
 
 def _times_inverse(b: np.ndarray, a: np.ndarray) -> np.ndarray:
     """``B A⁻¹`` for symmetric ``A`` and ``B``, as ``(A⁻¹B)ᵀ`` by one Cholesky
-    factorisation and solve (LU when ``A`` is not positive definite): about a
-    third of the work of inverting ``A`` and multiplying."""
+    factorisation and solve (6 s instead of 9 s at ``p* = 5,150``); when ``A``
+    is not positive definite (seen for the independence model's ``A_β``), by
+    the inverse and a product (a general solve with ``p*`` right-hand sides
+    took 85 s there)."""
     try:
         return linalg.cho_solve(linalg.cho_factor(a, check_finite=False), b,
                                 check_finite=False).T
     except linalg.LinAlgError:
-        return linalg.solve(a, b, check_finite=False).T
+        return b @ linalg.inv(a)
 
 
 def baseline_yuan_bentler(values: np.ndarray, patterns: Patterns, moments: PatternMoments,
