@@ -400,26 +400,21 @@ def ordinal_reliability_table(m: dict, prefix: str) -> Table:
     part due to the construct alone where it differs; categorical omega over
     the observed sum-score variance.  The notes the rows carry are the
     table's notes."""
-    alone = _alone_differs(m["reliability_ordinal"], "omega_total")
-    rows = _reliability_by_kind_rows(m["reliability_ordinal"], "ordinal_alpha", alone,
-                                     after=("omega_total_observed",))
-    notes = ["Ordinal alpha: alpha of the polychoric correlations (Zumbo, Gadermann & Zeisser "
+    return _kind_reliability_table(
+        m, prefix, kind="ordinal", alpha_key="ordinal_alpha",
+        columns=("Ordinal alpha", "Categorical omega"),
+        alone_column="Categorical omega, construct alone",
+        after=(("omega_total_observed", "Categorical omega, observed variance"),),
+        note="Ordinal alpha: alpha of the polychoric correlations (Zumbo, Gadermann & Zeisser "
              "2007), the reliability of the sum of the items' latent responses, not of the "
              "observed sum score. Categorical omega: the reliability of the observed sum of "
              "category scores (0, 1, … per item, merged categories counted as the category "
              "they were merged into) from the fitted model (Green & Yang 2009); with the "
              "observed variance, the same true-score variance over the sample variance of the "
              "sum score of the rows that answered every item of the construct. "
-             + _reliability_minimum_note("categorical omega")]
-    if alone:
-        notes.append("Categorical omega, construct alone: the part due to the construct "
-                     "itself, without the other factors its items load on.")
-    notes += _messages(n for r in m["reliability_ordinal"] for n in r.get("notes") or ())
-    return Table(f"{prefix}-reliability-ordinal",
-                 f"Reliability of the constructs measured by ordinal items in ‘{m['name']}’",
-                 ("Construct", "Items", "Ordinal alpha", "Categorical omega")
-                 + (("Categorical omega, construct alone",) if alone else ())
-                 + ("Categorical omega, observed variance",), tuple(rows), tuple(notes))
+             + _reliability_minimum_note("categorical omega"),
+        alone_note="Categorical omega, construct alone: the part due to the construct "
+                   "itself, without the other factors its items load on.")
 
 
 def continuous_reliability_table(m: dict, prefix: str) -> Table:
@@ -427,20 +422,36 @@ def continuous_reliability_table(m: dict, prefix: str) -> Table:
     correlations (``reliability_continuous``): alpha of the standardized
     items and omega, marked at the conventional minimum, with the part due to
     the construct alone where it differs; the rows' notes are the table's."""
-    alone = _alone_differs(m["reliability_continuous"], "omega_total")
-    rows = _reliability_by_kind_rows(m["reliability_continuous"], "alpha_standardized", alone)
-    notes = ["The model was fitted to correlations, so these coefficients are those of the sum "
+    return _kind_reliability_table(
+        m, prefix, kind="continuous", alpha_key="alpha_standardized",
+        columns=("Alpha, standardized items", "Omega"),
+        alone_column="Omega, construct alone", after=(),
+        note="The model was fitted to correlations, so these coefficients are those of the sum "
              "of standardized item scores: alpha of the items' Pearson correlations (Cronbach "
              "1951) and omega total from the standardized solution (McDonald 1999). "
-             + _reliability_minimum_note("omega")]
-    if alone:
-        notes.append("Omega, construct alone: the part of omega due to the construct itself, "
-                     "without the other factors its items load on.")
-    notes += _messages(n for r in m["reliability_continuous"] for n in r.get("notes") or ())
-    return Table(f"{prefix}-reliability-continuous",
-                 f"Reliability of the constructs measured by continuous items in ‘{m['name']}’",
-                 ("Construct", "Items", "Alpha, standardized items", "Omega")
-                 + (("Omega, construct alone",) if alone else ()), tuple(rows), tuple(notes))
+             + _reliability_minimum_note("omega"),
+        alone_note="Omega, construct alone: the part of omega due to the construct itself, "
+                   "without the other factors its items load on.")
+
+
+def _kind_reliability_table(m: dict, prefix: str, *, kind: str, alpha_key: str,
+                            columns: tuple[str, str], alone_column: str,
+                            after: tuple[tuple[str, str], ...], note: str,
+                            alone_note: str) -> Table:
+    """The reliability table of the constructs whose items are all of one
+    ``kind`` (``reliability_<kind>``): construct, items, the alpha and omega
+    ``columns``, the construct-alone omega where it differs, then the
+    ``after`` (key, column) pairs; the rows' notes follow the table's."""
+    entries = m[f"reliability_{kind}"]
+    alone = _alone_differs(entries, "omega_total")
+    rows = _reliability_by_kind_rows(entries, alpha_key, alone,
+                                     after=tuple(key for key, _ in after))
+    notes = [note] + ([alone_note] if alone else [])
+    notes += _messages(n for r in entries for n in r.get("notes") or ())
+    return Table(f"{prefix}-reliability-{kind}",
+                 f"Reliability of the constructs measured by {kind} items in ‘{m['name']}’",
+                 ("Construct", "Items") + columns + ((alone_column,) if alone else ())
+                 + tuple(column for _, column in after), tuple(rows), tuple(notes))
 
 
 def _reliability_by_kind_rows(entries, alpha_key: str, alone: bool, after=()) -> list:
