@@ -45,6 +45,7 @@ from scipy.linalg import lapack
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
 from scalewright.estimate.pattern_products import pair_form, sandwiches
+from scalewright.estimate.spd_inverse import cholesky_inverse
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 
 from scalewright.layout import Layout, Matrices, Pattern, cell_factors
@@ -264,7 +265,7 @@ def embedded_inverse(sigma: np.ndarray, observed: np.ndarray):
     number (``dpocon``) is below ``SCHUR_MIN_RCOND``, take the batched
     ``p × p`` route of :func:`_embedded_cholesky_inverse`.
     """
-    full = _cholesky_inverse(sigma)
+    full = cholesky_inverse(sigma)
     if full is None:
         return _embedded_cholesky_inverse(sigma, observed)
     chol, v_full, logdet_full = full
@@ -323,25 +324,11 @@ def _embedded_cholesky_inverse(sigma: np.ndarray, observed: np.ndarray):
     return v * mask, logdet
 
 
-def _cholesky_inverse(sigma: np.ndarray):
-    """``(L, Σ⁻¹, log|Σ|)`` by LAPACK's Cholesky factorisation ``Σ = LLᵀ`` and
-    inversion (``potrf``, ``potri``); None when ``Σ`` is not positive definite."""
-    chol, info = lapack.dpotrf(sigma, lower=True, clean=True)
-    if info != 0:
-        return None
-    inv, info = lapack.dpotri(chol, lower=True)
-    if info != 0:
-        return None
-    inv = np.tril(inv)
-    inv += np.tril(inv, -1).T
-    return chol, inv, 2.0 * np.sum(np.log(np.diagonal(chol)))
-
-
 def _complete_inverse(sigma: np.ndarray):
     """``Σ⁻¹`` and ``log|Σ|`` shaped as :func:`embedded_inverse` returns them for
-    one pattern that observes every item (:func:`_cholesky_inverse`, without
-    the batch machinery); None when ``Σ`` is not positive definite."""
-    full = _cholesky_inverse(sigma)
+    one pattern that observes every item (``cholesky_inverse``, without the
+    batch machinery); None when ``Σ`` is not positive definite."""
+    full = cholesky_inverse(sigma)
     if full is None:
         return None
     _, inv, logdet = full

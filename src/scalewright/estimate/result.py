@@ -6,9 +6,9 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy.linalg import lapack
 
 from scalewright.estimate.fisher import OptimizerRecord
+from scalewright.estimate.spd_inverse import cholesky_inverse
 from scalewright.layout import Layout, Matrices
 
 
@@ -112,11 +112,9 @@ def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tup
     """
     d = np.sqrt(np.clip(np.diag(info), 1e-300, None))
     scaled = info / np.outer(d, d)
-    chol, failed = lapack.dpotrf(scaled, lower=True)
-    if failed == 0:
-        inverse, failed = lapack.dpotri(chol, lower=True)
-    if failed == 0:
-        inverse = np.tril(inverse) + np.tril(inverse, -1).T
+    factored = cholesky_inverse(scaled)
+    if factored is not None:
+        inverse = factored[1]
         # a norm bounds the spectral radius, so λ_max ≤ ‖I‖₁ and 1/λ_min ≤ ‖I⁻¹‖₁: the
         # ratio is at least 1/(‖I‖₁‖I⁻¹‖₁), which spares the eigendecomposition when the
         # model is well conditioned (a spectral radius is at most any matrix norm;

@@ -1,0 +1,23 @@
+"""Inverse of a symmetric positive definite matrix by LAPACK's Cholesky
+factorisation ``A = LLᵀ`` and inversion (``potrf``, ``potri``), shared by the
+likelihood (the implied covariance) and the standard errors (the
+information matrix)."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.linalg import lapack
+
+
+def cholesky_inverse(matrix: np.ndarray):
+    """``(L, A⁻¹, log|A|)``, or None when ``A`` is not positive definite.
+    ``potri`` fills the lower triangle only; the upper is mirrored from it."""
+    chol, info = lapack.dpotrf(matrix, lower=True, clean=True)
+    if info != 0:
+        return None
+    inv, info = lapack.dpotri(chol, lower=True)
+    if info != 0:
+        return None
+    inv = np.tril(inv)
+    inv += np.tril(inv, -1).T
+    return chol, inv, 2.0 * np.sum(np.log(np.diagonal(chol)))
