@@ -51,15 +51,17 @@ class CellIndex:
 
 
 def sandwich(factors: CellFactors, m: np.ndarray) -> np.ndarray:
-    """``WᵀMW`` by blocks (``W = [I | X]``, ``X = [G | H | 0]``)."""
-    p = m.shape[0]
+    """``WᵀMW`` by blocks (``W = [I | X]``, ``X = [G | H | 0]``), for one
+    symmetric ``M`` or a stack of them (``K × p × p``, one per missing-data
+    pattern)."""
+    p = m.shape[-1]
     x = factors.w[:, p:]
     mx = m @ x
-    out = np.empty((factors.w.shape[1],) * 2)
-    out[:p, :p] = m
-    out[:p, p:] = mx
-    out[p:, :p] = mx.T
-    out[p:, p:] = x.T @ mx
+    out = np.empty(m.shape[:-2] + (factors.w.shape[1],) * 2)
+    out[..., :p, :p] = m
+    out[..., :p, p:] = mx
+    out[..., p:, :p] = np.swapaxes(mx, -1, -2)
+    out[..., p:, p:] = x.T @ mx
     return out
 
 

@@ -77,10 +77,10 @@ import numpy as np
 from scipy import linalg
 
 from scalewright.errors import StudyError
-from scalewright.estimate.cell_products import CellIndex
+from scalewright.estimate.cell_products import CellIndex, sandwich
 from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
-from scalewright.estimate.pattern_products import mean_pair_form, pair_form, sandwiches
+from scalewright.estimate.pattern_products import mean_pair_form, pair_form
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
 from scalewright.layout import (INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives,
                                 cell_factors)
@@ -529,8 +529,8 @@ def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
     m = v @ (moments.covs + r[:, :, None] * r[:, None, :]) @ v
     factors = cell_factors(pattern, mats)
     index = CellIndex.of(factors)
-    wvw = sandwiches(factors, v)
-    wdw = sandwiches(factors, m - 0.5 * v)
+    wvw = sandwich(factors, v)
+    wdw = sandwich(factors, m - 0.5 * v)
     cells = pair_form(index, wvw, wdw, w) + pair_form(index, wdw, wvw, w)
     if index.mu is not None:
         cross = mean_pair_form(index, wvw, z @ factors.w, w)

@@ -44,7 +44,7 @@ from scipy.linalg import lapack
 
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
-from scalewright.estimate.pattern_products import pair_form, sandwiches
+from scalewright.estimate.pattern_products import pair_form
 from scalewright.estimate.spd_inverse import cholesky_inverse
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 
@@ -372,7 +372,7 @@ def _pattern_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Ma
     index = CellIndex.of(f)
     w = stack.weights
     e_total = np.tensordot(w, v - v @ stack.covs @ v, axes=1)
-    wvw = sandwiches(f, v)
+    wvw = sandwich(f, v)
     cell_info = pair_form(index, wvw, wvw, w)
     cell_grad = np.zeros(len(index.a))
     if means:

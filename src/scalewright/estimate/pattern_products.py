@@ -11,7 +11,7 @@ with ``A``, ``B`` the columns ``a_c``, ``s_c b_c`` of the rank-two cell
 derivatives ``∂Σ/∂c = s_c(a_c b_cᵀ + b_c a_cᵀ)``.  ``F(V, V)`` is the
 expected information ``Σ_k w_k ½ tr(V_k ∂_cΣ V_k ∂_dΣ)``.  Every column of
 ``A`` and ``B`` is a column of ``W = [I | G | H | 0]`` (``CellFactors``),
-so ``WᵀX_kW`` (built by blocks, a ``p × (m + p + 1)`` and an
+so ``WᵀX_kW`` (:func:`~scalewright.estimate.cell_products.sandwich`, built by blocks, a ``p × (m + p + 1)`` and an
 ``(m + p + 1)² × p`` product per pattern) holds all the products and the
 rest is gathering, a few ``c × c`` arrays per pattern: cheaper than the
 ``p × c`` products ``X_kA``, ``AᵀX_kA`` per pattern.  The scales ``s_c s_d``
@@ -25,24 +25,9 @@ from __future__ import annotations
 import numpy as np
 
 from scalewright.estimate.cell_products import CellIndex
-from scalewright.layout import CellFactors
 
 #: gathered elements per chunk of patterns (2²¹ doubles, 16 MB per array)
 CHUNK_ELEMENTS = 2 ** 21
-
-
-def sandwiches(factors: CellFactors, ms: np.ndarray) -> np.ndarray:
-    """``WᵀM_kW`` for a stack of symmetric ``M_k`` (``K × p × p``), by blocks
-    as :func:`~scalewright.estimate.cell_products.sandwich`."""
-    k, p, _ = ms.shape
-    x = factors.w[:, p:]
-    mx = ms @ x
-    out = np.empty((k,) + (factors.w.shape[1],) * 2)
-    out[:, :p, :p] = ms
-    out[:, :p, p:] = mx
-    out[:, p:, :p] = mx.transpose(0, 2, 1)
-    out[:, p:, p:] = x.T @ mx
-    return out
 
 
 def _chunks(k: int, width: int):
