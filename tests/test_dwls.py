@@ -24,7 +24,7 @@ import pytest
 from conftest import HS_CONSTRUCTS, HS_ITEMS, HS_SEMOPY, make_spec
 from numpy.testing import assert_allclose
 
-from scalewright.estimate.dwls import fit_dwls
+from scalewright.estimate.dwls import fit_dwls, residual_variances
 from scalewright.estimate.polychoric import ordinal_moments
 from scalewright.specify import build_layout
 
@@ -232,6 +232,18 @@ def test_residual_variance_standard_errors_follow_the_delta_method(hs_unit):
     assert_allclose(np.sqrt(np.diag(fit.acov)[12:]), expected, rtol=1e-6)
 
 
+def test_residual_variances_match_the_dense_sandwich_of_the_residuals(hs_unit):
+    fit, _, jac, gamma, w, h_inv, _ = hs_unit
+    # Browne (1984): e = r − ρ(θ̂) ≈ (I − ΔH⁻¹ΔᵀW)(r − ρ), so
+    # Var(e) = (I − ΔH⁻¹ΔᵀW) Γ (I − ΔH⁻¹ΔᵀW)ᵀ, written out densely here with
+    # the finite-difference Δ (exact for this quadratic ρ up to rounding): 1e-7
+    projector = np.eye(36) - jac @ h_inv @ jac.T @ w
+    dense = np.diag(projector @ gamma @ projector.T)
+    assert_allclose(residual_variances(fit.layout, fit.theta, gamma), dense, rtol=1e-7)
+    # a residual can only be less variable than the correlation it belongs to
+    assert np.all(dense < np.diag(gamma))
+
+
 def test_traces_match_the_eigenvalues_of_dense_u_gamma(hs_unit):
     fit, _, _, gamma, _, _, u = hs_unit
     eig = np.linalg.eigvals(u @ gamma).real
@@ -292,7 +304,7 @@ def replications():
     items = tuple(f"y{i}" for i in range(1, 9))
     spec = make_spec({"A": items[:4], "B": items[4:]})
     rng = np.random.default_rng(20240611)
-    stats_, estimates, ses = [], [], []
+    stats_, estimates, ses, z = [], [], [], []
     for _ in range(250):
         moments = ordinal_moments(_population_sample(rng, 400), items)
         fit = fit_dwls(build_layout(spec, moments.correlations), moments)
@@ -300,7 +312,9 @@ def replications():
         stats_.append((fit.test.chi_square_shifted, fit.test.p_value_shifted, fit.test.df))
         estimates.append(fit.theta[:9])
         ses.append(np.sqrt(np.diag(fit.acov))[:9])
-    return np.array(stats_), np.array(estimates), np.array(ses)
+        z.append(fit.residuals / np.sqrt(residual_variances(fit.layout, fit.theta,
+                                                             moments.acov_corr)))
+    return np.array(stats_), np.array(estimates), np.array(ses), np.array(z)
 
 
 @pytest.mark.slow
@@ -321,7 +335,7 @@ def test_adjusted_statistic_rejects_a_true_model_at_about_five_percent(replicati
 
 @pytest.mark.slow
 def test_robust_standard_errors_match_the_spread_of_the_estimates(replications):
-    _, estimates, ses = replications
+    _, estimates, ses, _ = replications
     # loadings and the construct correlation are unbiased for the population
     # (two-step DWLS is consistent): bias within 0.02 (about 4 Monte Carlo SEs)
     truth = np.append(POP_LOADINGS, POP_PHI)
@@ -330,3 +344,17 @@ def test_robust_standard_errors_match_the_spread_of_the_estimates(replications):
     # Carlo error of an SD from 250 draws is about 4.5%
     ratio = ses.mean(axis=0) / estimates.std(axis=0, ddof=1)
     assert np.all(np.abs(ratio - 1) < 0.15), ratio
+
+
+@pytest.mark.slow
+def test_standardized_residuals_are_standard_normal_under_a_true_model(replications):
+    z = replications[3]
+    # theory (Browne 1984): under the model each z is asymptotically N(0, 1).
+    # 250 × 28 values, correlated within a sample: mean within 0.1 and mean
+    # square within 0.12 of 1 leave room for several Monte Carlo SEs and for
+    # small-sample bias at n = 400; a z from the correlation's own variance
+    # (the "normalized" residual) has a mean square of 0.45 on these samples
+    # (measured once; this seed gives 1.04 for z and 5.2% beyond ±1.96)
+    assert abs(z.mean()) < 0.1
+    assert abs(np.mean(z ** 2) - 1.0) < 0.12
+    assert 0.03 <= np.mean(np.abs(z) > 1.96) <= 0.08

@@ -290,6 +290,19 @@ def test_json_has_the_estimator_and_thresholds_for_ordinal_items_only(checked):
     assert json.loads(to_json(report)) == written
 
 
+def test_residual_correlations_are_taken_against_the_mixed_matrix(checked):
+    report, _ = checked
+    model = report["models"][0]
+    residuals = model["residual_correlations"]
+    assert residuals["observed"] == "polychoric, polyserial and Pearson correlations"
+    # the residuals are the fitted matrix minus the implied one: SRMR is their
+    # root mean square over the p(p−1)/2 pairs (definition in evaluate_ordinal)
+    matrix = np.array(residuals["matrix"])
+    rows, cols = np.triu_indices(len(matrix), 1)
+    assert_allclose(np.sqrt(np.mean(matrix[rows, cols] ** 2)), model["fit"]["srmr"], atol=1e-4)
+    assert all(np.isfinite(r["standardized"]) for r in residuals["largest"])
+
+
 def test_continuous_items_are_reported_in_the_standardized_metric(checked):
     report, _ = checked
     model = report["models"][0]

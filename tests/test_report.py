@@ -516,6 +516,21 @@ def test_checklist_lines_on_missing_answers_outliers_and_correlations_follow_the
     assert rows[11]["status"] == "not computed" and rows[12]["status"] == "partly shown"
 
 
+def test_local_fit_line_says_for_which_models_residuals_were_not_computed():
+    report = demo_report()
+    assert {r["number"]: r for r in checklist_rows(report)}[19]["status"] == "shown"
+    first = report["models"][0]
+    first["residual_correlations"] = {"not_computed": "the reason in words"}
+    row = {r["number"]: r for r in checklist_rows(report)}[19]
+    assert row["status"] == "partly shown"
+    assert f"not computed for ‘{first['name']}’" in row["where"]
+    html = render_html(report)
+    assert "Residual correlations were not computed for this model: the reason in words." in html
+    for m in report["models"]:
+        m["residual_correlations"] = {"not_computed": "the reason in words"}
+    assert {r["number"]: r for r in checklist_rows(report)}[19]["status"] == "not computed"
+
+
 def test_outlier_and_correlation_tables_follow_the_dict():
     report = demo_report()
     data = report["data"]

@@ -119,3 +119,32 @@ def test_observed_covariance_given_for_missing_data_gives_correlations_only(
     # the same matrices as the complete-data case (semopy's implied matrix, 1e-5 as above)
     assert_allclose(result.matrix, semopy_residuals, atol=1e-5)
     assert result.standardized is None
+
+
+def test_ordinal_model_residuals_are_polychoric_minus_implied_with_dwls_z(hs_x):
+    # the ordinal route: HS tests cut at their quintiles, DWLS on the polychoric
+    # matrix.  Reference: semopy's DWLS fit to the same matrix and weights
+    # (test_dwls.py; estimates agree to ~1e-6, so residuals to 1e-5), and
+    # residual_variances, itself checked against the dense sandwich in test_dwls
+    from test_dwls import _quantile_categories, _semopy_dwls
+
+    from scalewright.estimate.dwls import residual_variances
+    from scalewright.estimate.polychoric import ordinal_moments
+    from scalewright.evaluate_ordinal import evaluate_ordinal
+
+    answers = _quantile_categories(hs_x, 5)
+    estimate = evaluate_ordinal(make_spec(HS_CONSTRUCTS), answers, HS_ITEMS).estimate
+    result = residual_correlations(estimate)
+    moments = ordinal_moments(answers, HS_ITEMS)
+    model, _ = _semopy_dwls(HS_SEMOPY, moments)
+    order = [model.vars["observed"].index(i) for i in HS_ITEMS]
+    sigma = model.calc_sigma()[0][np.ix_(order, order)]
+    sd = np.sqrt(np.diag(sigma))
+    expected = moments.raw_correlations - sigma / np.outer(sd, sd)
+    np.fill_diagonal(expected, 0.0)
+    assert_allclose(result.matrix, expected, atol=1e-5)
+    rows, cols = np.triu_indices(9, 1)
+    z = result.matrix[rows, cols] / np.sqrt(
+        residual_variances(estimate.layout, estimate.theta, moments.acov_corr))
+    assert_allclose(result.standardized[rows, cols], z, rtol=1e-10)
+    assert result.to_dict()["observed"] == "polychoric correlations"

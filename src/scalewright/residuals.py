@@ -23,6 +23,15 @@ For items ``i, j`` with sample covariance ``s_ij`` and implied covariance
   covariance by construction (a freed residual covariance) the variance is
   zero and no z is reported.
 
+With missing answers (FIML) the observed matrix is the saturated model's
+(EM) and no z is given.  For the ordinal and mixed routes (DWLS) the
+residuals are taken against the correlations the model was fitted to
+(polychoric, polyserial, Pearson), and the z values use the DWLS residual
+variance ``diag((I − ΔH⁻¹ΔᵀW) Γ (I − ΔH⁻¹ΔᵀW)ᵀ)``
+(:func:`scalewright.estimate.dwls.residual_variances`; DWLS is not
+efficient, so the shortcut above does not apply).  The JSON's ``observed``
+says which correlations were observed.
+
 References
 ----------
 Browne, M. W. (1984). Asymptotically distribution-free methods for the
@@ -38,6 +47,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from scalewright.blas import one_blas_thread
+from scalewright.estimate.dwls import residual_variances
 from scalewright.estimate.result import Estimate
 from scalewright.layout import cell_derivatives
 
@@ -50,6 +60,12 @@ LIST_AT_LEAST = 10
 #: a residual variance below this share of Var(s_ij) counts as zero (reproduced by construction)
 _REPRODUCED = 1e-8
 
+#: what the observed correlations of each route are (the JSON's ``observed``)
+SAMPLE = "sample correlations"
+SATURATED = "correlations of the saturated model fitted to the incomplete answers (EM)"
+POLYCHORIC = "polychoric correlations"
+MIXED = "polychoric, polyserial and Pearson correlations"
+
 
 @dataclass(frozen=True)
 class ResidualCorrelations:
@@ -59,6 +75,7 @@ class ResidualCorrelations:
     matrix: np.ndarray               # p × p, observed minus implied correlation
     standardized: np.ndarray | None  # p × p z values (NaN where undefined), None without acov
     threshold: float
+    observed: str                    # what the observed correlations are, in words
 
     def largest(self, at_least: int = LIST_AT_LEAST) -> list[dict]:
         """Every pair at or beyond the threshold, and at least ``at_least``
@@ -81,6 +98,7 @@ class ResidualCorrelations:
         (rounded to 4 decimals, for a heat map)."""
         largest = self.largest()
         return {"threshold": self.threshold,
+                "observed": self.observed,
                 "n_flagged": sum(entry["flagged"] for entry in largest),
                 "largest": largest,
                 "items": list(self.items),
@@ -116,9 +134,11 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     mats = estimate.matrices(group)
     sigma = mats.implied_cov
     items = tuple(estimate.layout.items)
+    if estimate.dwls_data is not None:
+        return _dwls_residuals(estimate, _correlation(sigma), float(threshold))
     if observed_cov is not None:
         return ResidualCorrelations(items, _correlation(observed_cov) - _correlation(sigma),
-                                    None, float(threshold))
+                                    None, float(threshold), SATURATED)
     blocks = [b for b in estimate.blocks if b.group == group]
     if len(blocks) != 1 or len(blocks[0].observed) != estimate.layout.p:
         raise ValueError("residual correlations need the group's complete-data covariance; "
@@ -129,12 +149,37 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
         with one_blas_thread():
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
     return ResidualCorrelations(items, _correlation(block.cov) - _correlation(sigma),
-                                standardized, float(threshold))
+                                standardized, float(threshold), SAMPLE)
 
 
 def _correlation(cov: np.ndarray) -> np.ndarray:
     sd = np.sqrt(np.diag(cov))
     return cov / np.outer(sd, sd)
+
+
+def _dwls_residuals(estimate: Estimate, implied: np.ndarray,
+                    threshold: float) -> ResidualCorrelations:
+    """Residuals of a DWLS fit against the correlations it was fitted to,
+    with z values from :func:`scalewright.estimate.dwls.residual_variances`
+    (none when the model is not identified)."""
+    data = estimate.dwls_data
+    p = estimate.layout.p
+    rows, cols = np.triu_indices(p, 1)
+    residual = data.r - implied[rows, cols]
+    matrix = np.zeros((p, p))
+    matrix[rows, cols] = matrix[cols, rows] = residual
+    standardized = None
+    if estimate.acov is not None:
+        with one_blas_thread():
+            var = residual_variances(estimate.layout, estimate.theta, data.gamma)
+        z = np.full(len(rows), np.nan)
+        ok = var > _REPRODUCED * np.diag(data.gamma)
+        z[ok] = residual[ok] / np.sqrt(var[ok])
+        standardized = np.full((p, p), np.nan)
+        standardized[rows, cols] = standardized[cols, rows] = z
+    observed = POLYCHORIC if estimate.method == "dwls" else MIXED
+    return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized, threshold,
+                                observed)
 
 
 def _standardized(estimate: Estimate, group: int, residual: np.ndarray, sigma: np.ndarray,

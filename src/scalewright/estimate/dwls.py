@@ -330,3 +330,49 @@ def correlation_jacobian(layout: Layout, theta: np.ndarray) -> np.ndarray:
     ``layout`` at the full parameter vector ``theta``, for the parameters
     DWLS estimates (all but the residual variances)."""
     return _DeltaModel(layout).jacobians(theta)[0]
+
+
+def residual_variances(layout: Layout, theta: np.ndarray, gamma: np.ndarray) -> np.ndarray:
+    """Sampling variances of the correlation residuals ``e = r − ρ(θ̂)`` of a
+    DWLS fit (``p*``, ``np.triu_indices(p, 1)`` order).
+
+    Near the solution ``θ̂ − θ ≈ H⁻¹ΔᵀW(r − ρ)`` with ``H = ΔᵀWΔ``, so
+    ``e ≈ (I − ΔH⁻¹ΔᵀW)(r − ρ)`` and (Browne 1984, the asymptotic
+    covariance of the residuals of any minimum-discrepancy estimator;
+    Muthén 1984 for DWLS on polychoric correlations)
+
+        Var(e) = (I − ΔH⁻¹ΔᵀW) Γ (I − WΔH⁻¹Δᵀ),
+
+    whose diagonal is, with ``G = ΓWΔ`` and ``M = ΔᵀWG``,
+
+        Var(e_k) = Γ_kk − 2 (ΔH⁻¹)_k · G_k + (ΔH⁻¹MH⁻¹Δᵀ)_kk,
+
+    at ``O(p*² q)`` (the product ``G``), without a ``p* × p*`` matrix
+    beyond ``Γ`` itself.  Unlike the normal-theory residuals no efficiency
+    argument shortens it: DWLS is not efficient.  A correlation the model
+    reproduces by construction (a freed residual covariance) gets a
+    variance of zero up to rounding.
+
+    Parameters
+    ----------
+    layout : Layout
+        The DWLS layout (delta parametrisation).
+    theta : ndarray
+        The full parameter vector at the solution.
+    gamma : ndarray, p* × p*
+        Sampling covariance of ``r`` (``DwlsData.gamma``).
+
+    Raises
+    ------
+    numpy.linalg.LinAlgError
+        When ``H`` is singular (the model is not identified).
+    """
+    delta = correlation_jacobian(layout, theta)
+    w = 1.0 / np.diag(gamma)
+    wd = w[:, None] * delta
+    h_inv = np.linalg.inv(delta.T @ wd)
+    g = gamma @ wd
+    dh = delta @ h_inv
+    spread = dh @ (wd.T @ g)
+    spread *= dh
+    return np.diag(gamma) - 2.0 * np.einsum("ij,ij->i", dh, g) + spread.sum(axis=1)

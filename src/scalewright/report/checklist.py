@@ -38,6 +38,21 @@ def _names(names) -> str:
     return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
 
 
+def _local_fit_row(models: list, per_model: str) -> dict:
+    """Line 19: shown for the models whose residual correlations were computed
+    (a model's entry says ``not_computed`` with the reason otherwise)."""
+    line = "Local fit: residual correlations, the largest flagged"
+    with_residuals = [m["name"] for m in models if "largest" in (m.get("residual_correlations")
+                                                                 or {})]
+    without = [m["name"] for m in models if m["name"] not in with_residuals]
+    if not with_residuals:
+        return _row(19, line, NOT_COMPUTED, "not computed in this run")
+    if not without:
+        return _row(19, line, SHOWN, per_model)
+    return _row(19, line, PARTLY, f"sections of {_names(with_residuals)}; not computed for "
+                                  f"{_names(without)} (the reason is given in its section)")
+
+
 def checklist_rows(report: dict) -> list[dict]:
     """The thirty checklist lines with status and location, in order."""
     models = report.get("models", [])
@@ -115,9 +130,7 @@ def checklist_rows(report: dict) -> list[dict]:
              "section ‘Summary’: CFI, TLI, RMSEA [90% CI], SRMR"),
         _row(18, "Cutoffs used, with their source, for every model", SHOWN,
              "note under the summary table"),
-        _row(19, "Local fit: residual correlations, the largest flagged",
-             SHOWN if "residual_correlations" in keys else NOT_COMPUTED,
-             per_model if "residual_correlations" in keys else "not computed in this run"),
+        _local_fit_row(models, per_model),
         _row(20, "Loadings unstandardized with SE and standardized", SHOWN, per_model),
         _row(21, "Residual variances and R² per item", SHOWN, per_model),
         _row(22, "Construct variances, covariances and correlations with SE", SHOWN,

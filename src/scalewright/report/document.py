@@ -204,6 +204,9 @@ def _model(doc: Document, m: dict, index: int) -> None:
                        "Residual correlations (observed minus implied), lower triangle. Darker "
                        "is larger; hatched cells are negative; outlined cells reach the flag "
                        "threshold.", "heat")
+    unavailable = (m.get("residual_correlations") or {}).get("not_computed")
+    if unavailable:
+        s.p(f"Residual correlations were not computed for this model: {unavailable}.")
     for note in m.get("reliability_notes") or ():
         s.p(note)
     notes = m.get("modification_hint_notes") or {}
