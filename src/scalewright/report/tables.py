@@ -607,9 +607,9 @@ def residual_correlations_table(m: dict, prefix: str) -> Table:
                  f"Largest residual correlations of ‘{m['name']}’",
                  ("Item", "With", "Residual correlation") + (("z",) if with_z else ()),
                  tuple(rows),
-                 (f"Observed minus model-implied correlation"
+                 ("Observed minus model-implied correlation"
                   + (f" (observed: the {res['observed']})" if res.get("observed") else "")
-                  + f"; ◆ at or beyond "
+                  + "; ◆ at or beyond "
                   f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb)."
                   + (" z: the standardized residual." if with_z else
                      " Standardized residuals were not computed for this model.")
