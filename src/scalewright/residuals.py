@@ -23,6 +23,13 @@ For items ``i, j`` with sample covariance ``s_ij`` and implied covariance
   covariance by construction (a freed residual covariance) the variance is
   zero and no z is reported.
 
+Under robust ML (non-normal complete data) the shortcut fails too: the
+estimate is not efficient and ``Var(s_ij)`` is not the normal-theory one.
+The z values then use ``Var(s − σ̂) = P Γ Pᵀ / N`` with
+``P = I − Δ(ΔᵀWΔ)⁻¹ΔᵀW``, ``W`` the normal-theory weight and ``Γ`` the
+distribution-free covariance of the sample covariances (Browne 1984),
+accumulated from the cases for the listed pairs only (:func:`_robust_standardized`).
+
 With missing answers (FIML) the observed matrix is the saturated model's
 (EM) and no z is given.  For the ordinal and mixed routes (DWLS) the
 residuals are taken against the correlations the model was fitted to
@@ -49,6 +56,7 @@ import numpy as np
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.dwls import residual_variances
 from scalewright.estimate.result import Estimate
+from scalewright.estimate.robust import CHUNK, expected_information, incidence
 from scalewright.layout import cell_derivatives
 
 #: residual correlations at least this large are flagged (common practice, no source)
@@ -59,6 +67,9 @@ LIST_AT_LEAST = 10
 
 #: a residual variance below this share of Var(s_ij) counts as zero (reproduced by construction)
 _REPRODUCED = 1e-8
+
+#: ``Estimate.method`` of a robust ML estimate on complete data (sandwich ``acov``)
+ROBUST_ML = "robust-ml"
 
 #: what the observed correlations of each route are (the JSON's ``observed``)
 SAMPLE = "sample correlations"
@@ -80,17 +91,13 @@ class ResidualCorrelations:
     def largest(self, at_least: int = LIST_AT_LEAST) -> list[dict]:
         """Every pair at or beyond the threshold, and at least ``at_least``
         pairs, largest absolute residual correlation first."""
-        rows, cols = np.triu_indices(len(self.items), k=1)
-        values = self.matrix[rows, cols]
-        order = np.argsort(-np.abs(values), kind="stable")
-        n_flagged = int(np.count_nonzero(np.abs(values) >= self.threshold))
         out = []
-        for k in order[:max(n_flagged, at_least)]:
-            z = None if self.standardized is None else self.standardized[rows[k], cols[k]]
-            out.append({"a": self.items[rows[k]], "b": self.items[cols[k]],
-                        "value": float(values[k]),
+        for i, j in zip(*listed_pairs(self.matrix, self.threshold, at_least)):
+            z = None if self.standardized is None else self.standardized[i, j]
+            value = self.matrix[i, j]
+            out.append({"a": self.items[i], "b": self.items[j], "value": float(value),
                         "standardized": float(z) if z is not None and np.isfinite(z) else None,
-                        "flagged": bool(abs(values[k]) >= self.threshold)})
+                        "flagged": bool(abs(value) >= self.threshold)})
         return out
 
     def to_dict(self) -> dict:
@@ -105,8 +112,20 @@ class ResidualCorrelations:
                 "matrix": np.round(self.matrix, 4).tolist()}
 
 
+def listed_pairs(matrix: np.ndarray, threshold: float,
+                 at_least: int = LIST_AT_LEAST) -> tuple[np.ndarray, np.ndarray]:
+    """Rows and columns (``i < j``) of the pairs listed: every one at or beyond
+    ``threshold`` and at least ``at_least``, largest absolute value first."""
+    rows, cols = np.triu_indices(len(matrix), k=1)
+    values = np.abs(matrix[rows, cols])
+    order = np.argsort(-values, kind="stable")
+    order = order[:max(int(np.count_nonzero(values >= threshold)), at_least)]
+    return rows[order], cols[order]
+
+
 def residual_correlations(estimate: Estimate, group: int = 0, threshold: float = FLAG_AT,
-                          observed_cov: np.ndarray | None = None) -> ResidualCorrelations:
+                          observed_cov: np.ndarray | None = None,
+                          answers: np.ndarray | None = None) -> ResidualCorrelations:
     """Residual correlations and standardized residuals of one group of a
     normal-theory ML estimate.
 
@@ -124,6 +143,12 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
         into missing-data blocks, e.g. the EM estimate.  Standardized
         residuals are then not given: their variance formula holds for a
         complete-data sample covariance only.
+    answers : ndarray, optional
+        The complete rows the estimate was fitted to (columns in
+        ``layout.items`` order); needed for the z values of a robust ML
+        estimate (``method == "robust-ml"``), which come from the casewise
+        deviations (:func:`_robust_standardized`), and only for the pairs
+        listed.  Without them a robust estimate gets no z values.
 
     Raises
     ------
@@ -144,17 +169,63 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
         raise ValueError("residual correlations need the group's complete-data covariance; "
                          "with missing-data blocks pass the saturated covariance as observed_cov")
     block = blocks[0]
+    matrix = _correlation(block.cov) - _correlation(sigma)
     standardized = None
-    if estimate.acov is not None:
+    if estimate.acov is not None and estimate.method == ROBUST_ML:
+        if answers is not None:
+            with one_blas_thread():
+                standardized = _robust_standardized(
+                    estimate, answers, *listed_pairs(matrix, threshold))
+    elif estimate.acov is not None:
         with one_blas_thread():
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
-    return ResidualCorrelations(items, _correlation(block.cov) - _correlation(sigma),
-                                standardized, float(threshold), SAMPLE)
+    return ResidualCorrelations(items, matrix, standardized, float(threshold), SAMPLE)
 
 
 def _correlation(cov: np.ndarray) -> np.ndarray:
     sd = np.sqrt(np.diag(cov))
     return cov / np.outer(sd, sd)
+
+
+def _robust_standardized(estimate: Estimate, x: np.ndarray, rows: np.ndarray,
+                         cols: np.ndarray) -> np.ndarray:
+    """z values of the covariance residuals of a robust ML estimate, for the
+    pairs ``(rows[k], cols[k])`` only (NaN elsewhere; module docstring).
+
+    With the centred case ``c_i``, its deviation ``e_ik = c_ij c_il − s_jl``
+    for pair ``k = (j, l)``, its score ``g_i`` and the expected information
+    per case ``I`` (:mod:`scalewright.estimate.robust`), the ML estimate
+    moves by ``θ̂ − θ ≈ I⁻¹ ḡ``, so the residual is the mean of
+    ``u_ik = e_ik − Δ_k I⁻¹ g_i`` and ``Var(s_jl − σ̂_jl) = (1/N²) Σ_i u_ik²``:
+    the diagonal of ``(1/N) PΓPᵀ`` with ``P = I − Δ(ΔᵀWΔ)⁻¹ΔᵀW`` and the
+    distribution-free ``Γ`` (Browne 1984), without forming ``Γ``."""
+    layout = estimate.layout
+    pattern = layout.patterns[0]
+    mats = pattern.matrices(estimate.theta)
+    sigma = mats.implied_cov
+    v = np.linalg.inv(sigma)
+    n = len(x)
+    mean = x.mean(axis=0)
+    s = np.cov(x, rowvar=False, bias=True)
+    a, b, _ = cell_derivatives(pattern, mats)
+    inc = incidence(pattern, layout.n_params)
+    info = inc.T @ expected_information(a, b, v) @ inc
+    delta = (a[rows] * b[cols] + b[rows] * a[cols]) @ inc           # ∂σ_k/∂θ, K × q
+    move = np.linalg.solve(info, delta.T)                            # I⁻¹Δ_Kᵀ, q × K
+    shift = np.einsum("ic,ic->c", a, v @ s @ v @ b)
+    squares = np.zeros(len(rows))
+    for start in range(0, n, CHUNK):
+        c = x[start:start + CHUNK] - mean
+        z = c @ v
+        u = c[:, rows] * c[:, cols] - s[rows, cols]
+        u -= (((z @ a) * (z @ b) - shift) @ inc) @ move
+        squares += np.einsum("ik,ik->k", u, u)
+    var = squares / n ** 2
+    out = np.full(sigma.shape, np.nan)
+    ok = var > _REPRODUCED * np.maximum(s[rows, rows] * s[cols, cols] / n, np.finfo(float).tiny)
+    z_values = np.where(ok, (s - sigma)[rows, cols] / np.sqrt(np.where(ok, var, 1.0)), np.nan)
+    out[rows, cols] = out[cols, rows] = z_values
+    return out
 
 
 def _dwls_residuals(estimate: Estimate, implied: np.ndarray,
