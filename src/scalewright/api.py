@@ -24,7 +24,7 @@ from scalewright.errors import StudyError
 from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.dwls import DwlsModel
-from scalewright.estimate.fiml import saturated_covariance
+from scalewright.estimate.fiml import saturated_covariance, saturated_model
 from scalewright.estimate.normal import complete_data_blocks
 from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
@@ -237,9 +237,10 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     complete = x[~incomplete] if incomplete.any() else x
     _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
     model = evaluate_answers(spec, x, choice, data.file.name)
-    observed = None
+    saturated = None
     if model.estimate.method.endswith("fiml"):
-        observed = saturated_covariance(x, spec.items, data.file.name)
+        saturated = saturated_model(x, spec.items, data.file.name)
+    observed = None if saturated is None else saturated[1].cov
     if np.isnan(x).any():
         def refit(reduced_spec, answers, columns):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
@@ -268,7 +269,7 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    model.extra.update(quality_keys(model, study, x, fit=refit, observed_cov=observed))
+    model.extra.update(quality_keys(model, study, x, fit=refit, saturated=saturated))
     model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
 

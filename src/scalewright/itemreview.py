@@ -453,7 +453,7 @@ def _tried(trial, state: _State) -> dict:
 
 def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
                  max_steps: int | None = None, fit: Callable = refit_columns,
-                 observed_cov: np.ndarray | None = None) -> dict:
+                 saturated: tuple | None = None) -> dict:
     """The per-model JSON keys of local fit and item quality.
 
     Parameters
@@ -468,9 +468,9 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         Limit of the refinement path.
     fit : callable
         ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits of the refinement path.
-    observed_cov : ndarray, optional
-        The saturated covariance when the data have missing-data blocks
-        (see :func:`scalewright.residuals.residual_correlations`).
+    saturated : (PatternMoments, Saturated), optional
+        The pattern moments and the saturated model (EM) when the data have
+        missing-data blocks (see :func:`scalewright.residuals.residual_correlations`).
 
     Returns
     -------
@@ -494,7 +494,7 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         answers = x[~incomplete] if incomplete.any() else x
     try:
         out["residual_correlations"] = residual_correlations(
-            estimate, threshold=settings.residual_threshold, observed_cov=observed_cov,
+            estimate, threshold=settings.residual_threshold, saturated=saturated,
             answers=answers).to_dict()
     except ValueError as exc:
         out["residual_correlations"] = {"not_computed": str(exc)}

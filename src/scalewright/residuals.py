@@ -31,7 +31,11 @@ distribution-free covariance of the sample covariances (Browne 1984),
 accumulated from the cases for the listed pairs only (:func:`_robust_standardized`).
 
 With missing answers (FIML) the observed matrix is the saturated model's
-(EM) and no z is given.  For the ordinal and mixed routes (DWLS) the
+(EM), and the z values use ``Var(ŝ − σ̂) = Var(ŝ) − Var(σ̂)`` (nested ML
+estimates, the model's efficient under the model; Hausman 1978) with
+``Var(ŝ)`` from the saturated model's observed information
+(:func:`_fiml_standardized`); up to :data:`FIML_Z_MAX_ITEMS` items, and not
+under robust FIML.  For the ordinal and mixed routes (DWLS) the
 residuals are taken against the correlations the model was fitted to
 (polychoric, polyserial, Pearson), and the z values use the DWLS residual
 variance ``diag((I − ΔH⁻¹ΔᵀW) Γ (I − ΔH⁻¹ΔᵀW)ᵀ)``
@@ -45,6 +49,8 @@ Browne, M. W. (1984). Asymptotically distribution-free methods for the
 analysis of covariance structures. British Journal of Mathematical and
 Statistical Psychology 37, 62–83.
 Bollen, K. A. (1989). Structural Equations with Latent Variables. Wiley.
+Hausman, J. A. (1978). Specification tests in econometrics. Econometrica 46,
+1251–1271.
 """
 
 from __future__ import annotations
@@ -55,6 +61,7 @@ import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.dwls import residual_variances
+from scalewright.estimate.fiml import pattern_jacobian, saturated_information
 from scalewright.estimate.result import Estimate
 from scalewright.estimate.robust import CHUNK, expected_information, incidence
 from scalewright.layout import cell_derivatives
@@ -70,6 +77,16 @@ _REPRODUCED = 1e-8
 
 #: ``Estimate.method`` of a robust ML estimate on complete data (sandwich ``acov``)
 ROBUST_ML = "robust-ml"
+
+#: ``Estimate.method`` of a normal-theory FIML estimate
+FIML = "fiml"
+
+#: FIML z values need the saturated information, built from p² × p² temporaries
+#: (13 MB each at 40 items, 800 MB at 100): a judgement call on memory, no source
+FIML_Z_MAX_ITEMS = 40
+
+#: why an unidentified model has no z values
+UNIDENTIFIED = "the model is not identified (its information matrix is singular)"
 
 #: what the observed correlations of each route are (the JSON's ``observed``)
 SAMPLE = "sample correlations"
@@ -87,6 +104,7 @@ class ResidualCorrelations:
     standardized: np.ndarray | None  # p × p z values (NaN where undefined), None without acov
     threshold: float
     observed: str                    # what the observed correlations are, in words
+    z_note: str | None = None        # why there are no z values, when there are none
 
     def largest(self, at_least: int = LIST_AT_LEAST) -> list[dict]:
         """Every pair at or beyond the threshold, and at least ``at_least``
@@ -106,6 +124,7 @@ class ResidualCorrelations:
         largest = self.largest()
         return {"threshold": self.threshold,
                 "observed": self.observed,
+                "standardized_not_computed": self.z_note,
                 "n_flagged": sum(entry["flagged"] for entry in largest),
                 "largest": largest,
                 "items": list(self.items),
@@ -125,61 +144,137 @@ def listed_pairs(matrix: np.ndarray, threshold: float,
 
 def residual_correlations(estimate: Estimate, group: int = 0, threshold: float = FLAG_AT,
                           observed_cov: np.ndarray | None = None,
-                          answers: np.ndarray | None = None) -> ResidualCorrelations:
-    """Residual correlations and standardized residuals of one group of a
-    normal-theory ML estimate.
+                          answers: np.ndarray | None = None,
+                          saturated: tuple | None = None) -> ResidualCorrelations:
+    """Residual correlations and standardized residuals of one group of an
+    estimate (formulas per route in the module docstring).
 
     Parameters
     ----------
     estimate : Estimate
-        Without ``observed_cov`` its ``blocks`` must hold the group's data
-        as one complete block, whose covariance is then the observed one.
+        Without ``observed_cov`` or ``saturated`` its ``blocks`` must hold
+        the group's data as one complete block, whose covariance is then the
+        observed one; a DWLS estimate brings its own correlations.
     group : int
         Index of the group (``layout.patterns``).
     threshold : float
         Absolute residual correlation from which a pair is flagged.
     observed_cov : ndarray, optional
-        The observed (saturated) covariance matrix when the data are split
-        into missing-data blocks, e.g. the EM estimate.  Standardized
-        residuals are then not given: their variance formula holds for a
-        complete-data sample covariance only.
+        An observed covariance matrix for data split into missing-data
+        blocks, without the moments behind it: correlations only, no z.
     answers : ndarray, optional
         The complete rows the estimate was fitted to (columns in
         ``layout.items`` order); needed for the z values of a robust ML
         estimate (``method == "robust-ml"``), which come from the casewise
         deviations (:func:`_robust_standardized`), and only for the pairs
         listed.  Without them a robust estimate gets no z values.
+    saturated : (PatternMoments, Saturated), optional
+        With missing answers (FIML): the pattern moments and the saturated
+        model fitted to them by EM, whose covariance is the observed one; a
+        FIML estimate (``method == "fiml"``) of at most
+        :data:`FIML_Z_MAX_ITEMS` items also gets z values
+        (:func:`_fiml_standardized`).
 
     Raises
     ------
     ValueError
-        When the group's data are split into missing-data blocks and no
-        ``observed_cov`` is given.
+        When the group's data are split into missing-data blocks and neither
+        ``observed_cov`` nor ``saturated`` is given.
     """
     mats = estimate.matrices(group)
     sigma = mats.implied_cov
     items = tuple(estimate.layout.items)
+    threshold = float(threshold)
     if estimate.dwls_data is not None:
-        return _dwls_residuals(estimate, _correlation(sigma), float(threshold))
+        return _dwls_residuals(estimate, _correlation(sigma), threshold)
+    if saturated is not None:
+        moments, fitted = saturated
+        matrix = _correlation(fitted.cov) - _correlation(sigma)
+        standardized, note = None, _fiml_z_note(estimate)
+        if note is None:
+            with one_blas_thread():
+                standardized = _fiml_standardized(estimate, moments, fitted,
+                                                  *listed_pairs(matrix, threshold))
+        return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note)
     if observed_cov is not None:
         return ResidualCorrelations(items, _correlation(observed_cov) - _correlation(sigma),
-                                    None, float(threshold), SATURATED)
+                                    None, threshold, SATURATED,
+                                    "the moments behind the observed matrix were not given")
     blocks = [b for b in estimate.blocks if b.group == group]
     if len(blocks) != 1 or len(blocks[0].observed) != estimate.layout.p:
         raise ValueError("residual correlations need the group's complete-data covariance; "
-                         "with missing-data blocks pass the saturated covariance as observed_cov")
+                         "with missing-data blocks pass the saturated model")
     block = blocks[0]
     matrix = _correlation(block.cov) - _correlation(sigma)
-    standardized = None
-    if estimate.acov is not None and estimate.method == ROBUST_ML:
-        if answers is not None:
+    standardized, note = None, None
+    if estimate.acov is None:
+        note = UNIDENTIFIED
+    elif estimate.method == ROBUST_ML:
+        if answers is None:
+            note = "the answers behind the robust estimate were not given"
+        else:
             with one_blas_thread():
                 standardized = _robust_standardized(
                     estimate, answers, *listed_pairs(matrix, threshold))
-    elif estimate.acov is not None:
+    else:
         with one_blas_thread():
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
-    return ResidualCorrelations(items, matrix, standardized, float(threshold), SAMPLE)
+    return ResidualCorrelations(items, matrix, standardized, threshold, SAMPLE, note)
+
+
+def _fiml_z_note(estimate: Estimate) -> str | None:
+    """Why a FIML estimate gets no z values (None when it gets them)."""
+    if estimate.acov is None:
+        return UNIDENTIFIED
+    if estimate.method != FIML:
+        return ("under robust FIML the residuals' variance would need the saturated model's "
+                "sandwich, which is not computed")
+    if estimate.layout.p > FIML_Z_MAX_ITEMS:
+        return (f"with missing answers they are computed for at most {FIML_Z_MAX_ITEMS} items "
+                f"(the saturated model's information matrix grows with the fourth power of "
+                f"the number of items)")
+    return None
+
+
+def _fiml_standardized(estimate: Estimate, moments, saturated, rows: np.ndarray,
+                       cols: np.ndarray) -> np.ndarray:
+    """z values of the covariance residuals ``ŝ_jl − σ̂_jl`` of a FIML
+    estimate against the saturated (EM) covariance ``Ŝ``, for the pairs
+    ``(rows[k], cols[k])`` only (NaN elsewhere).
+
+    Both are ML estimates from the same likelihood, the model's efficient
+    when the model holds, so ``Cov(β̂_sat, β(θ̂)) = Var(β(θ̂))`` (Hausman
+    1978) and
+
+        Var(ŝ_jl − σ̂_jl) = [A_β⁻¹]_kk / N − Δ_k acov(θ̂) Δ_kᵀ,
+
+    with ``A_β`` the observed information per case of the saturated
+    parameters ``β = (vech Σ, μ)`` at ``(μ̂, Ŝ)``
+    (:func:`scalewright.estimate.fiml.saturated_information`; observed, as
+    the expected one is not consistent under MAR) and ``Δ_k = ∂σ_jl/∂θ``.
+    Without missing answers the first term is the familiar
+    ``(s_jj s_ll + s_jl²)/N``."""
+    layout = estimate.layout
+    pattern = layout.patterns[0]
+    p = layout.p
+    info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
+    vech_rows, vech_cols = np.tril_indices(p)
+    position = np.empty((p, p), dtype=np.intp)
+    position[vech_rows, vech_cols] = position[vech_cols, vech_rows] = np.arange(len(vech_rows))
+    k = position[rows, cols]
+    unit = np.zeros((len(info), len(k)))
+    unit[k, np.arange(len(k))] = 1.0
+    n = float(moments.counts.sum())
+    var_saturated = np.linalg.solve(info, unit)[k, np.arange(len(k))] / n
+    delta = pattern_jacobian(pattern, estimate.theta, layout.n_params)[k]
+    var = var_saturated - np.einsum("ka,ab,kb->k", delta, estimate.acov, delta)
+    sigma = pattern.matrices(estimate.theta).implied_cov
+    ok = var > _REPRODUCED * var_saturated
+    z_values = np.full(len(k), np.nan)
+    z_values[ok] = (saturated.cov - sigma)[rows[ok], cols[ok]] / np.sqrt(var[ok])
+    out = np.full((p, p), np.nan)
+    out[rows, cols] = out[cols, rows] = z_values
+    return out
 
 
 def _correlation(cov: np.ndarray) -> np.ndarray:
@@ -250,7 +345,7 @@ def _dwls_residuals(estimate: Estimate, implied: np.ndarray,
         standardized[rows, cols] = standardized[cols, rows] = z
     observed = POLYCHORIC if estimate.method == "dwls" else MIXED
     return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized, threshold,
-                                observed)
+                                observed, None if standardized is not None else UNIDENTIFIED)
 
 
 def _standardized(estimate: Estimate, group: int, residual: np.ndarray, sigma: np.ndarray,

@@ -605,9 +605,16 @@ def baseline_yuan_bentler(values: np.ndarray, patterns: Patterns, moments: Patte
     return yuan_bentler(info, patterns.n, chi2, layout.df()).test
 
 
+def saturated_model(values: np.ndarray, items: tuple[str, ...],
+                    where: str) -> tuple[PatternMoments, Saturated]:
+    """The pattern moments of the answers (NaN = missing) and the saturated
+    model fitted to them by EM: the 'observed' moments that residuals under
+    FIML are judged against."""
+    moments = pattern_moments(values, missing_patterns(values, tuple(items), where))
+    return moments, saturated_em(moments)
+
+
 def saturated_covariance(values: np.ndarray, items: tuple[str, ...], where: str) -> np.ndarray:
     """The ML covariance matrix of the items with missing answers (EM on the
-    saturated model): the 'observed' covariance that residuals under FIML
-    are judged against."""
-    moments = pattern_moments(values, missing_patterns(values, tuple(items), where))
-    return saturated_em(moments).cov
+    saturated model, :func:`saturated_model`)."""
+    return saturated_model(values, items, where)[1].cov

@@ -612,7 +612,9 @@ def residual_correlations_table(m: dict, prefix: str) -> Table:
                   + "; ◆ at or beyond "
                   f"|{coef(res.get('threshold'), 2)}| (a common rule of thumb)."
                   + (" z: the standardized residual." if with_z else
-                     " Standardized residuals were not computed for this model.")
+                     " Standardized residuals were not computed for this model"
+                     + (f": {res['standardized_not_computed']}."
+                        if res.get("standardized_not_computed") else "."))
                   + (f" The {len(largest) - MAX_RESIDUAL_ROWS} smaller ones listed in the JSON "
                      "file are left out here." if len(largest) > MAX_RESIDUAL_ROWS else ""),),
                  left=2)
