@@ -457,6 +457,25 @@ def test_every_author_cited_in_the_methods_paragraph_is_in_the_reference_list():
         assert _listed(author, year, references), (author, year)
 
 
+def test_methods_paragraph_says_how_the_z_values_of_each_route_were_computed():
+    report = demo_report()                       # FIML: z against the EM matrix
+    text = " ".join(methods_paragraphs(report))
+    assert "with missing answers the variance of the saturated model's covariance" in text
+    assert "distribution-free" not in text
+    first = report["models"][0]
+    first["estimator"] = "robust maximum likelihood"
+    first["residual_correlations"]["observed"] = "sample correlations"
+    text = " ".join(methods_paragraphs(report))
+    assert "under robust ML the distribution-free variance of the residual (Browne, 1984)" in text
+    references = references_used(report)
+    for author, year in _CITED.findall(text):
+        assert _listed(author, year, references), (author, year)
+    for m in report["models"]:                   # no z shown: no sentence
+        for r in m["residual_correlations"]["largest"]:
+            r["standardized"] = None
+    assert "standardized residuals (z)" not in " ".join(methods_paragraphs(report))
+
+
 def test_every_author_cited_in_the_method_reasons_is_in_the_reference_list():
     report = demo_report()
     cited = _CITED.findall(" ".join(report["method"]["reasons"]))

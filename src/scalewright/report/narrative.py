@@ -12,6 +12,7 @@ from __future__ import annotations
 from scalewright.report.conventions import (FIT_CUTOFFS, HU_BENTLER, RELIABILITY_MINIMUM,
                                             RELIABILITY_SOURCE, SALIENCE, shown_fit)
 from scalewright.report.formatting import coef, count, dec, dof, interval, p_equals
+from scalewright.report.references import residual_z_routes
 
 #: how missing answers were handled, in words, by the codes of scalewright.methods
 MISSING_HANDLING = {
@@ -28,6 +29,18 @@ DWLS_DIFFERENCE_WORDS = ("the adjusted difference test applied to the DWLS stati
                          "robust WLS estimators, scaled and shifted to the mean and variance of "
                          "chi-square on the difference in degrees of freedom as in Asparouhov "
                          "and Muthén (2010)")
+
+#: how the z values of each route divide the residual (scalewright.residuals), in words
+_Z_ROUTES = (
+    ("normal", "under normal-theory ML the variance of the sample covariance less that of the "
+               "implied one"),
+    ("robust", "under robust ML the distribution-free variance of the residual (Browne, 1984), "
+               "which does not assume normal answers"),
+    ("dwls", "under DWLS the variance of the residual from the sampling covariance of the "
+             "polychoric correlations (Muthén, 1984; Browne, 1984)"),
+    ("fiml", "with missing answers the variance of the saturated model's covariance less that "
+             "of the implied one, both estimated by maximum likelihood (Hausman, 1978)"),
+)
 
 _NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")
 
@@ -448,6 +461,11 @@ def methods_paragraphs(report: dict) -> list[str]:
         extra.append("Local misfit was examined through residual correlations and modification "
                      "indices (Sörbom, 1989) with expected parameter changes; no model was "
                      "changed because of them.")
+        z_routes = residual_z_routes(report)
+        if z_routes:
+            ways = [text for route, text in _Z_ROUTES if route in z_routes]
+            extra.append("The standardized residuals (z) divide each residual by its own "
+                         "sampling standard deviation: " + "; ".join(ways) + ".")
         if any("DWLS" in str((m.get("modification_hint_notes") or {}).get("method"))
                for m in report.get("models", ())):
             extra.append("For the models fitted by DWLS, the modification indices are "

@@ -26,6 +26,9 @@ CITATIONS = {
                    "Psychological Bulletin, 107, 238–246.",
     "brosseau": "Brosseau-Liard, P. E., & Savalei, V. (2014). Adjusting incremental fit "
                 "indices for nonnormality. Multivariate Behavioral Research, 49, 460–470.",
+    "browne1984": "Browne, M. W. (1984). Asymptotically distribution-free methods for the "
+                  "analysis of covariance structures. British Journal of Mathematical and "
+                  "Statistical Psychology, 37, 62–83.",
     "browne_cudeck": "Browne, M. W., & Cudeck, R. (1993). Alternative ways of assessing model "
                      "fit. In K. A. Bollen & J. S. Long (Eds.), Testing structural equation "
                      "models (pp. 136–162). Sage.",
@@ -61,6 +64,8 @@ CITATIONS = {
     "hu_bentler": "Hu, L., & Bentler, P. M. (1999). Cutoff criteria for fit indexes in "
                   "covariance structure analysis: Conventional criteria versus new "
                   "alternatives. Structural Equation Modeling, 6, 1–55.",
+    "hausman": "Hausman, J. A. (1978). Specification tests in econometrics. Econometrica, 46, "
+               "1251–1271.",
     "joreskog": "Jöreskog, K. G. (1969). A general approach to confirmatory maximum "
                 "likelihood factor analysis. Psychometrika, 34, 183–202.",
     "mahalanobis": "Mahalanobis, P. C. (1936). On the generalized distance in statistics. "
@@ -181,6 +186,27 @@ def cited_in(texts) -> set[str]:
             if re.search(rf"\b{name}\b.{{0,60}}?\b{year}\b", joined)}
 
 
+def residual_z_routes(report: dict) -> set[str]:
+    """How the z values of the residuals shown were computed: ``normal``,
+    ``robust`` (distribution-free), ``dwls`` or ``fiml`` (see
+    :mod:`scalewright.residuals`), for the models that show any."""
+    routes = set()
+    for m in report.get("models", ()):
+        res = m.get("residual_correlations") or {}
+        if not any(r.get("standardized") is not None for r in res.get("largest", ())):
+            continue
+        observed = str(res.get("observed", ""))
+        if observed.startswith("correlations of the saturated model"):
+            routes.add("fiml")
+        elif "polychoric" in observed:
+            routes.add("dwls")
+        elif "robust" in str(m.get("estimator", "")).lower():
+            routes.add("robust")
+        else:
+            routes.add("normal")
+    return routes
+
+
 def references_used(report: dict) -> list[str]:
     """Full citations of every method the result dict shows, sorted by author."""
     keys = set(_ALWAYS)
@@ -204,6 +230,13 @@ def references_used(report: dict) -> list[str]:
         keys |= {"cronbach", "feldt", "mcdonald", "hancock_mueller", "nunnally"}
     if "validity" in present:
         keys |= {"fornell_larcker", "henseler"}
+    z_routes = residual_z_routes(report)
+    if z_routes & {"robust", "dwls"}:
+        keys.add("browne1984")
+    if "dwls" in z_routes:
+        keys.add("muthen")
+    if "fiml" in z_routes:
+        keys.add("hausman")
     if "modification_hints" in present:
         keys |= {"sorbom", "maccallum", "saris"}
         if any("Satorra 1989" in str((m.get("modification_hint_notes") or {}).get("method"))
