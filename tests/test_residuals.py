@@ -349,3 +349,22 @@ def test_fiml_z_values_are_standard_normal_under_a_true_model_with_mar_answers()
     assert not np.isnan(z).any()
     assert abs(z.var(axis=0).mean() - 1.0) < 0.2
     assert np.all(np.abs(z.mean(axis=0)) < 0.3)
+
+
+def test_singular_saturated_information_leaves_the_correlations_without_z(hs_x, monkeypatch):
+    # a saturated information that cannot be inverted (numpy raises) costs the z
+    # values only, with the reason, not the residual correlations
+    import scalewright.residuals as residuals
+
+    x = hs_x.copy()
+    x[np.random.default_rng(3).random(x.shape) < 0.05] = np.nan
+    estimate, saturated = _fiml(make_spec(HS_CONSTRUCTS), x)
+
+    def singular(moments, mu, sigma):
+        size = len(mu) * (len(mu) + 3) // 2
+        return np.zeros((size, size)), None, None
+
+    monkeypatch.setattr(residuals, "saturated_information", singular)
+    out = residuals.residual_correlations(estimate, saturated=saturated).to_dict()
+    assert out["standardized_not_computed"] == "the saturated model's information matrix is singular"
+    assert len(out["largest"]) == 10

@@ -192,9 +192,12 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
         matrix = _correlation(fitted.cov) - _correlation(sigma)
         standardized, note = None, _fiml_z_note(estimate)
         if note is None:
-            with one_blas_thread():
-                standardized = _fiml_standardized(estimate, moments, fitted,
-                                                  *listed_pairs(matrix, threshold))
+            try:
+                with one_blas_thread():
+                    standardized = _fiml_standardized(estimate, moments, fitted,
+                                                      *listed_pairs(matrix, threshold))
+            except np.linalg.LinAlgError:
+                note = "the saturated model's information matrix is singular"
         return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note)
     if observed_cov is not None:
         return ResidualCorrelations(items, _correlation(observed_cov) - _correlation(sigma),
