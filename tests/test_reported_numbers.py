@@ -1,0 +1,241 @@
+"""The numbers of a whole check's JSON, end to end, against outside references.
+
+Other test files check each computation where it is made; this one runs
+``scalewright.check`` on a model file, as a user does, and checks the numbers
+the JSON prints (so the wiring between the computations and the keys is
+checked too). The data are Holzinger & Swineford (1939), 301 cases, as
+semopy ships them; the references are computed in the test:
+
+* semopy 2.3.11 (``ftol = 1e-12``, design/references.md) for the estimates,
+  its Fisher information ``calc_fim`` for their covariance matrix, and
+  central differences of its model-implied matrices for the delta method;
+* pandas, numpy and scipy for sample statistics and distributions;
+* published formulas, named beside each check.
+
+Tolerances: 1e-4 relative against semopy's estimates and what is derived from
+them (DEVELOPERS.md: ML estimates and SEs against another engine); 1e-10
+for the same formula on the same numbers (rounding only).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import semopy
+from numpy.testing import assert_allclose
+from scipy import special, stats
+
+import holzinger as hz
+import scalewright
+
+#: relative tolerance against semopy (another ML engine, ftol 1e-12)
+SEMOPY_RTOL = 1e-4
+#: the same formula on the same numbers: rounding only
+EXACT = 1e-10
+
+STUDY = """\
+study: Holzinger and Swineford (1939)
+data:
+  file: hs.csv
+estimation:
+  method: {method}
+models:
+  three:
+    constructs:
+      visual: [x1, x2, x3]
+      textual: [x4, x5, x6]
+      speed: [x7, x8, x9]
+  one:
+    constructs:
+      general: [x1, x2, x3, x4, x5, x6, x7, x8, x9]
+"""
+
+
+def run_check(folder, method: str) -> dict:
+    hz.data().to_csv(folder / "hs.csv", index=False)
+    path = folder / f"hs-{method}.yaml"
+    path.write_text(STUDY.format(method=method), encoding="utf-8")
+    return scalewright.check(path).to_dict()
+
+
+@pytest.fixture(scope="module")
+def normal_json(tmp_path_factory):
+    return run_check(tmp_path_factory.mktemp("hs-normal"), "normal")
+
+
+@pytest.fixture(scope="module")
+def robust_json(tmp_path_factory):
+    return run_check(tmp_path_factory.mktemp("hs-robust"), "robust")
+
+
+def model(out: dict, name: str = "three") -> dict:
+    [found] = [m for m in out["models"] if m["name"] == name]
+    return found
+
+
+# --------------------------------------------------------------------------- semopy reference
+
+class SemopyReference:
+    """semopy's marker-scaled fit of the three-factor model, and the delta
+    method on its Fisher information: ``f(θ̂)`` with covariance ``J acov Jᵀ``,
+    ``J`` by central differences of ``f`` over semopy's parameter vector."""
+
+    def __init__(self):
+        self.fit = hz.fit(hz.THREE_FACTOR)
+        self.semopy_model = self.fit.model
+        self.theta = self.semopy_model.param_vals.copy()
+        _, self.acov = self.semopy_model.calc_fim(inverse=True)   # (N I)⁻¹, N = 301
+
+    def matrices(self, theta):
+        m = self.semopy_model
+        m.update_matrices(theta)
+        lam, psi, theta_mat = m.mx_lambda.copy(), m.mx_psi.copy(), m.mx_theta.copy()
+        m.update_matrices(self.theta)
+        return lam, psi, theta_mat
+
+    def jacobian(self, f, step=1e-6):
+        cols = []
+        for k in range(len(self.theta)):
+            up, down = self.theta.copy(), self.theta.copy()
+            up[k] += step
+            down[k] -= step
+            cols.append((f(*self.matrices(up)) - f(*self.matrices(down))) / (2 * step))
+        return np.stack(cols, axis=-1)
+
+    def value_and_se(self, f):
+        value = f(*self.matrices(self.theta))
+        jac = self.jacobian(f)
+        return value, np.sqrt(np.einsum("ik,kl,il->i", jac, self.acov, jac))
+
+    def item(self, name):
+        return self.fit.item_names.index(name)
+
+    def factor(self, name):
+        return self.fit.factor_names.index(name)
+
+
+@pytest.fixture(scope="module")
+def ref():
+    return SemopyReference()
+
+
+# --------------------------------------------------------------------------- estimates
+
+def test_unit_variance_loadings_and_their_se_match_semopy_by_the_delta_method(normal_json, ref):
+    # The check fixes each construct's variance at 1; semopy's marker solution
+    # gives the same model (ML is invariant under reparametrisation), with the
+    # unit-variance loading λ·√φ and its SE by the delta method on semopy's
+    # Fisher information.
+    rows = model(normal_json)["loadings"]
+    cells = [(ref.item(r["item"]), ref.factor(r["construct"])) for r in rows]
+
+    def unit_loadings(lam, psi, _):
+        return np.array([lam[i, f] * np.sqrt(psi[f, f]) for i, f in cells])
+
+    value, se = ref.value_and_se(unit_loadings)
+    assert_allclose([r["estimate"] for r in rows], value, rtol=SEMOPY_RTOL)
+    assert_allclose([r["se"] for r in rows], se, rtol=SEMOPY_RTOL)
+    # Wald z and its two-sided normal p-value (scipy)
+    z = np.array([r["estimate"] / r["se"] for r in rows])
+    assert_allclose([r["z"] for r in rows], z, rtol=EXACT)
+    assert_allclose([r["p_value"] for r in rows], 2 * stats.norm.sf(np.abs(z)), rtol=1e-8)
+    # standardized loadings: semopy's standardized solution
+    table = ref.fit.estimates[ref.fit.estimates.op == "~"]
+    std = {(c, i): v for c, i, v in zip(table.rval, table.lval, table["Est. Std"])}
+    assert_allclose([r["std_estimate"] for r in rows],
+                    [std[r["construct"], r["item"]] for r in rows], rtol=SEMOPY_RTOL)
+
+
+def test_construct_correlations_and_their_se_match_semopy_by_the_delta_method(normal_json,
+                                                                              ref):
+    # r_ab = φ_ab / √(φ_aa φ_bb) of semopy's latent covariance matrix; its SE by the
+    # delta method on semopy's Fisher information
+    rows = model(normal_json)["construct_correlations"]
+    pairs = [(ref.factor(r["a"]), ref.factor(r["b"])) for r in rows]
+
+    def correlations(_, psi, __):
+        return np.array([psi[a, b] / np.sqrt(psi[a, a] * psi[b, b]) for a, b in pairs])
+
+    value, se = ref.value_and_se(correlations)
+    assert len(rows) == 3
+    assert_allclose([r["estimate"] for r in rows], value, rtol=SEMOPY_RTOL)
+    assert_allclose([r["se"] for r in rows], se, rtol=SEMOPY_RTOL)
+    # unit-variance scaling: the construct covariance is the correlation
+    assert_allclose([r["covariance"] for r in rows], value, rtol=SEMOPY_RTOL)
+    z = np.array([r["estimate"] / r["se"] for r in rows])
+    assert_allclose([r["z"] for r in rows], z, rtol=EXACT)
+    assert_allclose([r["p_value"] for r in rows], 2 * stats.norm.sf(np.abs(z)), rtol=1e-8)
+
+
+def test_residual_variances_and_r_squared_match_semopy(normal_json, ref):
+    # residual variances are the same parameters in both scalings: semopy's estimates and
+    # SEs directly; standardized θ/σ̂_ii and R² = 1 − θ/σ̂_ii from semopy's Σ̂
+    m = model(normal_json)
+    idx = [ref.item(r["item"]) for r in m["residual_variances"]]
+
+    def residuals(_, __, theta):
+        return np.diag(theta)[idx]
+
+    value, se = ref.value_and_se(residuals)
+    rows = m["residual_variances"]
+    assert_allclose([r["estimate"] for r in rows], value, rtol=SEMOPY_RTOL)
+    assert_allclose([r["se"] for r in rows], se, rtol=SEMOPY_RTOL)
+    share = value / np.diag(ref.fit.implied_cov)[idx]
+    assert_allclose([r["std_estimate"] for r in rows], share, rtol=SEMOPY_RTOL)
+    z = np.array([r["estimate"] / r["se"] for r in rows])
+    assert_allclose([r["z"] for r in rows], z, rtol=EXACT)
+    assert_allclose([r["p_value"] for r in rows], 2 * stats.norm.sf(np.abs(z)), rtol=1e-8)
+    r2 = {r["item"]: r["value"] for r in m["r_squared"]}
+    assert_allclose([r2[r["item"]] for r in rows], 1 - share, rtol=SEMOPY_RTOL)
+
+
+# --------------------------------------------------------------------------- local misfit
+
+def independent_standardized_residuals(ref) -> tuple[np.ndarray, np.ndarray]:
+    """Residual correlations and standardized residuals from semopy's fit.
+
+    Residual correlation: pandas' sample correlation minus semopy's implied
+    correlation. Standardized residual (Browne 1984; Bollen 1989): under
+    the model and normality, with S the ÷N covariance,
+    Var(s_ij − σ̂_ij) = (σ_ii σ_jj + σ_ij²)/N − Δ_ij acov(θ̂) Δ_ijᵀ, where
+    Δ_ij = ∂σ_ij/∂θ (central differences of semopy's Σ(θ)) and acov is
+    semopy's inverse Fisher information."""
+    x = hz.data()
+    n = len(x)
+    s = np.cov(x.to_numpy(float), rowvar=False, bias=True)
+    sigma = ref.fit.implied_cov
+    rows, cols = np.triu_indices(9, k=1)
+
+    def implied(lam, psi, theta):
+        return (lam @ psi @ lam.T + theta)[rows, cols]
+
+    delta = ref.jacobian(implied)
+    var_fitted = np.einsum("ik,kl,il->i", delta, ref.acov, delta)
+    var_sample = (sigma[rows, rows] * sigma[cols, cols] + sigma[rows, cols] ** 2) / n
+    z = np.full((9, 9), np.nan)
+    z[rows, cols] = z[cols, rows] = (s - sigma)[rows, cols] / np.sqrt(var_sample - var_fitted)
+    sd = np.sqrt(np.diag(sigma))
+    return x.corr().to_numpy() - sigma / np.outer(sd, sd), z
+
+
+@pytest.mark.parametrize("route", ["normal", "robust"])
+def test_residual_correlations_and_standardized_residuals_match_semopy(
+        route, normal_json, robust_json, ref):
+    # The standardized residual is a normal-theory z (residuals.py): the same
+    # number whichever standard errors the model reports (the robust route's
+    # estimates are the ML ones)
+    out = normal_json if route == "normal" else robust_json
+    block = model(out)["residual_correlations"]
+    corr, z = independent_standardized_residuals(ref)
+    # the JSON matrix is rounded to 4 decimals (for the heat map)
+    assert_allclose(block["matrix"], corr, atol=5e-5 + 1e-6)
+    items = block["items"]
+    listed = [(items.index(e["a"]), items.index(e["b"])) for e in block["largest"]]
+    assert len(listed) >= 10
+    assert_allclose([e["value"] for e in block["largest"]], [corr[i, j] for i, j in listed],
+                    atol=1e-5)
+    # z inherits the estimates' agreement with semopy (1e-6 relative) and the
+    # central differences' error (about 1e-8): 1e-4 relative
+    assert_allclose([e["standardized"] for e in block["largest"]], [z[i, j] for i, j in listed],
+                    rtol=SEMOPY_RTOL)
