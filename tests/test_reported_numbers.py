@@ -239,3 +239,134 @@ def test_residual_correlations_and_standardized_residuals_match_semopy(
     # central differences' error (about 1e-8): 1e-4 relative
     assert_allclose([e["standardized"] for e in block["largest"]], [z[i, j] for i, j in listed],
                     rtol=SEMOPY_RTOL)
+
+
+def test_standardized_epc_is_the_epc_in_semopy_standard_deviations(normal_json, ref):
+    # Kaplan (1989): a loading's EPC times SD(factor)/SD(item) (unit-variance factors, so
+    # 1/√σ̂_ii); a residual covariance's EPC over √(θ_ii θ_jj): semopy's Σ̂ and Θ̂
+    sd = np.sqrt(np.diag(ref.fit.implied_cov))
+    theta = np.diag(ref.fit.residual_cov)
+    hints = model(normal_json)["modification_hints"]
+    assert {h["kind"] for h in hints} == {"loading", "residual_covariance"}
+    for h in hints:
+        if h["kind"] == "loading":
+            scale = 1.0 / sd[ref.item(h["item"])]
+        else:
+            scale = 1.0 / np.sqrt(theta[ref.item(h["item_a"])] * theta[ref.item(h["item_b"])])
+        assert_allclose(h["std_epc"], h["epc"] * scale, rtol=SEMOPY_RTOL)
+
+
+# --------------------------------------------------------------------------- fit
+
+def rmsea_bounds(chi2, df, n):
+    """Browne & Cudeck (1993): λ_L, λ_U with ncx2.cdf(T; df, λ) = .95, .05 (scipy's
+    root finder; λ = 0 where the central cdf is already below the target)."""
+    from scipy import optimize
+
+    def root(target):
+        if stats.chi2.cdf(chi2, df) <= target:
+            return 0.0
+        return optimize.brentq(lambda lam: stats.ncx2.cdf(chi2, df, lam) - target, 1e-12,
+                               10 * chi2 + 100, xtol=1e-14, rtol=1e-14)
+    return np.sqrt(np.array([root(0.95), root(0.05)]) / (df * (n - 1)))
+
+
+@pytest.mark.parametrize("name", ["three", "one"])
+def test_fit_block_matches_semopy_and_scipy(normal_json, name):
+    fit = model(normal_json, name)["fit"]
+    description = hz.THREE_FACTOR if name == "three" else \
+        "general =~ " + " + ".join(hz.ITEMS)
+    reference = hz.fit(description)
+    values = semopy.calc_stats(reference.model).T["Value"]
+    x = hz.data().to_numpy(float)
+    n, p = x.shape
+    # semopy's statistics (N·F_ML, RMSEA with N − 1)
+    for ours, theirs in [("chi_square", "chi2"), ("baseline_chi_square", "chi2 Baseline"),
+                         ("cfi", "CFI"), ("tli", "TLI"), ("rmsea", "RMSEA")]:
+        assert_allclose(fit[ours], values[theirs], rtol=SEMOPY_RTOL)
+    assert fit["df"] == values["DoF"] and fit["baseline_df"] == values["DoF Baseline"]
+    assert_allclose(fit["p_value"], stats.chi2.sf(fit["chi_square"], fit["df"]), rtol=1e-8)
+    # Browne & Cudeck (1993) interval and close-fit p from the printed statistic (scipy)
+    assert_allclose(fit["rmsea_ci90"], rmsea_bounds(fit["chi_square"], fit["df"], n),
+                    rtol=1e-6)
+    assert_allclose(fit["rmsea_p_close"],
+                    stats.ncx2.sf(fit["chi_square"], fit["df"], 0.05 ** 2 * fit["df"] * (n - 1)),
+                    rtol=1e-6)
+    # Bentler's SRMR from semopy's Σ̂ (design/references.md)
+    s = np.cov(x, rowvar=False, bias=True)
+    d = np.sqrt(np.diag(s))
+    resid = ((s - reference.implied_cov) / np.outer(d, d))[np.tril_indices(p)]
+    assert_allclose(fit["srmr"], np.sqrt(np.mean(resid ** 2)), rtol=SEMOPY_RTOL)
+    # log-likelihood at semopy's Σ̂ and the sample means (scipy); k = free parameters
+    # plus the p item means (DEVELOPERS.md); Akaike (1974), Schwarz (1978), Sclove (1987)
+    loglik = stats.multivariate_normal(x.mean(axis=0), reference.implied_cov).logpdf(x).sum()
+    k = len(reference.model.param_vals) + p
+    assert fit["n_params"] == k
+    assert_allclose(fit["loglik"], loglik, rtol=1e-8)
+    assert_allclose(fit["aic"], -2 * loglik + 2 * k, rtol=1e-8)
+    assert_allclose(fit["bic"], -2 * loglik + k * np.log(n), rtol=1e-8)
+    assert_allclose(fit["sabic"], -2 * loglik + k * np.log((n + 2) / 24), rtol=1e-8)
+
+
+def duplication(p):
+    """D with vec(A) = D vech(A) for symmetric A (Magnus & Neudecker 1999)."""
+    rows, cols = np.tril_indices(p)
+    d = np.zeros((p * p, len(rows)))
+    d[rows * p + cols, np.arange(len(rows))] = 1.0
+    d[cols * p + rows, np.arange(len(rows))] = 1.0
+    return d
+
+
+def satorra_bentler_traces(x, sigma, delta):
+    """tr(UΓ̂) and tr((UΓ̂)²) from the textbook matrices (Satorra & Bentler 1994):
+    Γ̂ the sample covariance of vech((x_i − x̄)(x_i − x̄)ᵀ), W = ½Dᵀ(Σ̂⁻¹⊗Σ̂⁻¹)D,
+    U = W − WΔ(ΔᵀWΔ)⁻¹ΔᵀW, Δ = ∂vech Σ/∂θ."""
+    n, p = x.shape
+    rows, cols = np.tril_indices(p)
+    c = x - x.mean(axis=0)
+    gamma = np.cov((c[:, :, None] * c[:, None, :])[:, rows, cols], rowvar=False, bias=True)
+    v = np.linalg.inv(sigma)
+    dup = duplication(p)
+    w = 0.5 * dup.T @ np.kron(v, v) @ dup
+    u = w - w @ delta @ np.linalg.solve(delta.T @ w @ delta, delta.T @ w)
+    ug = u @ gamma
+    return np.trace(ug), np.trace(ug @ ug)
+
+
+def test_robust_fit_block_matches_textbook_traces_from_semopy(robust_json, ref):
+    fit = model(robust_json)["fit"]
+    x = hz.data().to_numpy(float)
+    n, p = x.shape
+    rows, cols = np.tril_indices(p)
+    delta = ref.jacobian(lambda lam, psi, theta: (lam @ psi @ lam.T + theta)[rows, cols])
+    trace, trace2 = satorra_bentler_traces(x, ref.fit.implied_cov, delta)
+    df = fit["df"]
+    t_ml = fit["chi_square"]
+    # Satorra & Bentler (1994): c = tr(UΓ)/df, T_SB = T/c; d* = tr(UΓ)²/tr((UΓ)²),
+    # T_adj = T·d*/tr(UΓ); semopy's Δ and Σ̂ carry its 1e-6 agreement, hence 1e-4
+    assert_allclose(fit["scaling_factor"], trace / df, rtol=SEMOPY_RTOL)
+    assert_allclose(fit["chi_square_scaled"], t_ml * df / trace, rtol=SEMOPY_RTOL)
+    assert_allclose(fit["df_adjusted"], trace ** 2 / trace2, rtol=SEMOPY_RTOL)
+    assert_allclose(fit["chi_square_adjusted"], t_ml / trace2 * trace, rtol=SEMOPY_RTOL)
+    assert_allclose(fit["p_value_scaled"], stats.chi2.sf(fit["chi_square_scaled"], df),
+                    rtol=1e-8)
+    assert_allclose(fit["p_value_adjusted"],
+                    stats.chi2.sf(fit["chi_square_adjusted"], fit["df_adjusted"]), rtol=1e-8)
+    # the baseline (independence) model: Σ_B = diag(S), Δ_B picks the variances
+    s = np.cov(x, rowvar=False, bias=True)
+    delta_b = (rows == cols)[:, None] * (rows[:, None] == np.arange(p)[None, :])
+    trace_b, _ = satorra_bentler_traces(x, np.diag(np.diag(s)), delta_b.astype(float))
+    df_b = fit["baseline_df"]
+    c, c_b = trace / df, trace_b / df_b
+    t_b = fit["baseline_chi_square"]
+    # Brosseau-Liard & Savalei (2014): T − c·df in place of T − df
+    assert_allclose(fit["cfi_robust"], 1 - (t_ml - c * df) / (t_b - c_b * df_b),
+                    rtol=SEMOPY_RTOL)
+    assert_allclose(fit["tli_robust"],
+                    1 - ((t_ml - c * df) / df) / ((t_b - c_b * df_b) / df_b), rtol=SEMOPY_RTOL)
+    # Brosseau-Liard, Savalei & Li (2012): √(max(T − c·df, 0)/(df (N − 1))); its interval
+    # is the Browne–Cudeck interval of T_SB times √c (robust.py's stated definition)
+    assert_allclose(fit["rmsea_robust"], np.sqrt((t_ml - c * df) / (df * (n - 1))),
+                    rtol=SEMOPY_RTOL)
+    assert_allclose(fit["rmsea_robust_ci90"],
+                    np.sqrt(c) * rmsea_bounds(t_ml / c, df, n), rtol=SEMOPY_RTOL)
