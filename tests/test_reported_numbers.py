@@ -370,3 +370,123 @@ def test_robust_fit_block_matches_textbook_traces_from_semopy(robust_json, ref):
                     rtol=SEMOPY_RTOL)
     assert_allclose(fit["rmsea_robust_ci90"],
                     np.sqrt(c) * rmsea_bounds(t_ml / c, df, n), rtol=SEMOPY_RTOL)
+
+
+# --------------------------------------------------------------------------- scale quality
+
+def test_coefficient_h_standardized_alpha_and_validity_keys_match_independent_computations(
+        normal_json, ref):
+    m = model(normal_json)
+    rows = {r["construct"]: r for r in m["reliability"]}
+    validity = m["validity"]
+    sigma = ref.fit.implied_cov
+    table = ref.fit.estimates[ref.fit.estimates.op == "~"]
+    std = {(c, i): v for c, i, v in zip(table.rval, table.lval, table["Est. Std"])}
+    for construct, items in hz.CONSTRUCTS.items():
+        idx = [ref.item(i) for i in items]
+        f = ref.factor(construct)
+        lam = ref.fit.loadings[idx, f] * np.sqrt(ref.fit.latent_cov[f, f])
+        # Hancock & Mueller (2001): H is the largest reliability of any weighted sum of the
+        # construct's items, max_w (wᵀλ)²/(wᵀΣ̂w): the largest generalized eigenvalue of
+        # (λλᵀ, Σ̂) from semopy's fit (scipy)
+        from scipy import linalg
+        h = linalg.eigh(np.outer(lam, lam), sigma[np.ix_(idx, idx)], eigvals_only=True)[-1]
+        assert_allclose(rows[construct]["coefficient_h"], h, rtol=SEMOPY_RTOL)
+        # simple structure: the construct's share of omega is omega itself
+        assert_allclose(rows[construct]["omega_construct"], rows[construct]["omega"], rtol=EXACT)
+        # standardized alpha (Cronbach 1951): k r̄/(1 + (k − 1) r̄), r̄ from pandas
+        corr = hz.data()[items].corr().to_numpy()
+        k = len(items)
+        rbar = corr[np.triu_indices(k, 1)].mean()
+        assert_allclose(rows[construct]["standardized_alpha"], k * rbar / (1 + (k - 1) * rbar),
+                        rtol=EXACT)
+        # Fornell & Larcker (1981): AVE = mean squared standardized loading and composite
+        # reliability (Σλ)²/((Σλ)² + Σ(1 − λ²)), from semopy's standardized solution
+        loadings = np.array([std[construct, i] for i in items])
+        assert_allclose(validity["ave"][construct], np.mean(loadings ** 2), rtol=SEMOPY_RTOL)
+        total = loadings.sum() ** 2
+        assert_allclose(validity["composite_reliability"][construct],
+                        total / (total + np.sum(1 - loadings ** 2)), rtol=SEMOPY_RTOL)
+    for row in validity["fornell_larcker"]:
+        assert_allclose(row["sqrt_ave_a"], np.sqrt(validity["ave"][row["a"]]), rtol=EXACT)
+        assert_allclose(row["sqrt_ave_b"], np.sqrt(validity["ave"][row["b"]]), rtol=EXACT)
+    # HTMT (Henseler, Ringle & Sarstedt 2015): mean cross-construct item correlation over
+    # the geometric mean of the mean within-construct correlations, from pandas
+    corr = hz.data().corr()
+    for row in validity["htmt"]:
+        a, b = hz.CONSTRUCTS[row["a"]], hz.CONSTRUCTS[row["b"]]
+        within = [corr.loc[c, c].to_numpy()[np.triu_indices(3, 1)].mean() for c in (a, b)]
+        assert_allclose(row["value"], corr.loc[a, b].to_numpy().mean() / np.sqrt(np.prod(within)),
+                        rtol=EXACT)
+
+
+# --------------------------------------------------------------------------- comparison
+
+def test_comparison_rows_and_nested_test_follow_from_semopy_statistics(normal_json, robust_json):
+    # BIC differences and weights (Raftery 1995; Wagenmakers & Farrell 2004) from the
+    # printed BICs with scipy's softmax
+    rows = {r["name"]: r for r in normal_json["comparison"]["models"]}
+    bic = np.array([rows[n]["bic"] for n in ("three", "one")])
+    assert_allclose([rows[n]["delta_bic"] for n in ("three", "one")], bic - bic.min(), atol=1e-9)
+    assert_allclose([rows[n]["bic_weight"] for n in ("three", "one")], special.softmax(-bic / 2),
+                    rtol=EXACT)
+    # the likelihood-ratio difference of the merged model: semopy's two chi-squares
+    one = semopy.calc_stats(hz.fit("general =~ " + " + ".join(hz.ITEMS)).model).T["Value"]
+    three = semopy.calc_stats(hz.fit(hz.THREE_FACTOR).model).T["Value"]
+    [test] = normal_json["comparison"]["nested_tests"]
+    assert (test["restricted"], test["general"], test["df"]) == ("one", "three", 3)
+    assert_allclose(test["chi_square"], one["chi2"] - three["chi2"], rtol=SEMOPY_RTOL)
+    assert_allclose(test["p_value"], stats.chi2.sf(test["chi_square"], 3), rtol=1e-8)
+    # robust: Satorra & Bentler (2001) from the printed parts of the two fits,
+    # c_d = (d₀c₀ − d₁c₁)/(d₀ − d₁), T_d = (T₀ − T₁)/c_d
+    fits = {m["name"]: m["fit"] for m in robust_json["models"]}
+    r, g = fits["one"], fits["three"]
+    c_d = (r["df"] * r["scaling_factor"] - g["df"] * g["scaling_factor"]) / (r["df"] - g["df"])
+    [scaled] = robust_json["comparison"]["nested_tests"]
+    assert_allclose(scaled["scaling_factor"], c_d, rtol=1e-10)
+    assert_allclose(scaled["chi_square"], (r["chi_square"] - g["chi_square"]) / c_d, rtol=1e-10)
+    assert_allclose(scaled["p_value"], stats.chi2.sf(scaled["chi_square"], 3), rtol=1e-8)
+
+
+# --------------------------------------------------------------------------- data
+
+def test_item_screening_mardia_and_outliers_match_scipy_and_numpy(normal_json):
+    data = normal_json["data"]
+    frame = hz.data()
+    x = frame.to_numpy(float)
+    n, p = x.shape
+    for row in data["screening"]["items"]:
+        col = frame[row["item"]]
+        # the moment estimators g1, g2 that screening.py promises: scipy with bias=True
+        assert_allclose([row["mean"], row["sd"], row["min"], row["max"]],
+                        [col.mean(), col.std(ddof=1), col.min(), col.max()], rtol=1e-12)
+        assert_allclose(row["skewness"], stats.skew(col, bias=True), rtol=1e-10)
+        assert_allclose(row["excess_kurtosis"], stats.kurtosis(col, bias=True), rtol=1e-10)
+        assert row["n"] == n and row["n_distinct"] == col.nunique()
+    # Mardia (1970) from the n × n matrix of (x_i − x̄)ᵀS⁻¹(x_j − x̄), S the ÷n covariance
+    c = x - x.mean(axis=0)
+    g = c @ np.linalg.solve(np.cov(x, rowvar=False, bias=True), c.T)
+    b1, b2 = (g ** 3).sum() / n ** 2, (np.diag(g) ** 2).mean()
+    mardia = data["screening"]["mardia"]
+    assert_allclose([mardia["skewness"], mardia["kurtosis"]], [b1, b2], rtol=1e-10)
+    df = p * (p + 1) * (p + 2) / 6
+    assert mardia["skewness_df"] == df
+    assert_allclose(mardia["skewness_chi2"], n * b1 / 6, rtol=1e-10)
+    assert_allclose(mardia["skewness_p"], stats.chi2.sf(n * b1 / 6, df), rtol=1e-8)
+    # kurtosis z with the exact normal-sample mean and variance of b2 (Mardia 1974, from
+    # memory): E = p(p+2)(n−1)/(n+1), Var = 8p(p+2)(n−3)(n−p−1)(n−p+1)/((n+1)²(n+3)(n+5))
+    mean = p * (p + 2) * (n - 1) / (n + 1)
+    var = 8 * p * (p + 2) * (n - 3) * (n - p - 1) * (n - p + 1) / ((n + 1) ** 2 * (n + 3) * (n + 5))
+    z = (b2 - mean) / np.sqrt(var)
+    assert_allclose(mardia["kurtosis_z"], z, rtol=1e-10)
+    assert_allclose(mardia["kurtosis_p"], 2 * stats.norm.sf(abs(z)), rtol=1e-8)
+    # Mahalanobis D² with the ÷n covariance (outliers.py) and its χ²_p tail (scipy)
+    out = data["outliers"]
+    assert_allclose(out["threshold"], stats.chi2.ppf(1 - out["level"], p), rtol=1e-12)
+    assert out["n_flagged"] == int(np.sum(np.diag(g) > out["threshold"]))
+    d2 = np.diag(g)
+    for row in out["largest"]:
+        assert_allclose(row["d2"], d2[row["row"] - 1], rtol=1e-10)     # rows count from 1
+        assert_allclose(row["p_value"], stats.chi2.sf(row["d2"], p), rtol=1e-8)
+    # the correlation matrix for reanalysis: pandas
+    assert_allclose(data["correlations"]["matrix"], frame.corr().to_numpy(), atol=5e-5 + 1e-9)
