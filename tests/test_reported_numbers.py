@@ -490,3 +490,178 @@ def test_item_screening_mardia_and_outliers_match_scipy_and_numpy(normal_json):
         assert_allclose(row["p_value"], stats.chi2.sf(row["d2"], p), rtol=1e-8)
     # the correlation matrix for reanalysis: pandas
     assert_allclose(data["correlations"]["matrix"], frame.corr().to_numpy(), atol=5e-5 + 1e-9)
+
+
+# --------------------------------------------------------------------------- invariance
+
+GROUPS_STUDY = STUDY.replace("models:", "groups:\n  column: school\nmodels:")
+
+
+class TwoGroupReference:
+    """ML of the Holzinger–Swineford three-factor model in the two schools,
+    written out here: unit-variance scaling in the reference group
+    (Grant-White: latent variances 1, means 0), loadings equal, intercepts
+    equal except ``free_intercepts`` (and, when any intercept is equal, the
+    other group's latent means free), residual variances per group. The
+    discrepancy Σ_g n_g[log|Σ_g| + tr(Σ_g⁻¹(S_g + r_g r_gᵀ))] is minimised by
+    Fisher scoring with the moments' Jacobian by central differences (exact up
+    to rounding: the moments are polynomials of degree two); the covariance
+    of the estimates is the inverse expected information (Σ_g n_g ...)⁻¹."""
+
+    P = 9
+
+    def __init__(self, shared_intercepts: bool, free_intercepts=()):
+        frame = semopy.examples.holzinger39.get_data()
+        self.groups = [frame[frame.school == s][hz.ITEMS].to_numpy(float)
+                       for s in ("Grant-White", "Pasteur")]
+        self.shared = shared_intercepts
+        self.free = [hz.ITEMS.index(i) for i in free_intercepts]
+        self.factor_of = np.repeat(np.arange(3), 3)
+        self.lower = np.tril_indices(3, -1)
+        n_nu = self.P + len(self.free) if shared_intercepts else 2 * self.P
+        # λ (9), ν, ref correlations (3), other group: Φ lower with diagonal (6), κ (3), Θ (18)
+        self.sizes = [9, n_nu, 3, 6, 3 if shared_intercepts else 0, 18]
+        self.theta = self.fit()
+
+    def unpack(self, t):
+        lam_v, nu_v, r_ref, phi_v, kappa_v, th_v = np.split(t, np.cumsum(self.sizes)[:-1])
+        lam = np.zeros((self.P, 3))
+        lam[np.arange(self.P), self.factor_of] = lam_v
+        if self.shared:
+            nu = [nu_v[:self.P].copy(), nu_v[:self.P].copy()]
+            nu[1][self.free] = nu_v[self.P:]
+        else:
+            nu = [nu_v[:self.P], nu_v[self.P:]]
+        phi_ref = np.eye(3)
+        phi_ref[self.lower] = phi_ref[self.lower[::-1]] = r_ref
+        phi_other = np.zeros((3, 3))
+        phi_other[np.tril_indices(3)] = phi_v
+        phi_other = phi_other + np.tril(phi_other, -1).T
+        kappa = [np.zeros(3), kappa_v if self.shared else np.zeros(3)]
+        phis = [phi_ref, phi_other]
+        sigmas = [lam @ phis[g] @ lam.T + np.diag(th_v[9 * g:9 * g + 9]) for g in (0, 1)]
+        mus = [nu[g] + lam @ kappa[g] for g in (0, 1)]
+        return sigmas, mus, phis, kappa
+
+    def moments(self, t):
+        sigmas, mus, _, _ = self.unpack(t)
+        return np.concatenate([np.concatenate([s.ravel(), m]) for s, m in zip(sigmas, mus)])
+
+    def jacobian(self, f, t, h=1e-3):
+        cols = [(f(t + e) - f(t - e)) / (2 * h) for e in np.eye(len(t)) * h]
+        return np.stack(cols, axis=-1)
+
+    def pieces(self, t):
+        """Gradient of the discrepancy and expected information, per group summed."""
+        sigmas, mus, _, _ = self.unpack(t)
+        jac = self.jacobian(self.moments, t)
+        grad, info, start = np.zeros(len(t)), np.zeros((len(t), len(t))), 0
+        for x, sigma, mu in zip(self.groups, sigmas, mus):
+            n, p = x.shape
+            v = np.linalg.inv(sigma)
+            r = x.mean(axis=0) - mu
+            s = np.cov(x, rowvar=False, bias=True) + np.outer(r, r)
+            d_sigma = jac[start:start + p * p]
+            d_mu = jac[start + p * p:start + p * p + p]
+            start += p * p + p
+            grad += n * (d_sigma.T @ (v - v @ s @ v).ravel() - 2 * d_mu.T @ v @ r)
+            info += n * (d_sigma.T @ np.kron(v, v) @ d_sigma + 2 * d_mu.T @ v @ d_mu)
+        return grad, info / 2
+
+    def fit(self):
+        t = np.concatenate([np.full(9, 0.8), np.concatenate([x.mean(axis=0) for x in self.groups])
+                            if not self.shared else self.groups[0].mean(axis=0),
+                            np.full(len(self.free), 0.0), np.full(3, 0.3),
+                            [1, 0.3, 1, 0.3, 0.3, 1], np.zeros(3 if self.shared else 0),
+                            np.full(18, 0.5)])
+        if self.shared:
+            t[9 + 9:9 + 9 + len(self.free)] = self.groups[1].mean(axis=0)[self.free]
+        for _ in range(200):
+            grad, info = self.pieces(t)
+            step = np.linalg.solve(info, grad) / 2
+            t = t - step
+            if np.max(np.abs(step)) < 1e-11:
+                break
+        self.grad, info = self.pieces(t)
+        self.acov = np.linalg.inv(info)
+        return t
+
+    def chi_square(self):
+        sigmas, mus, _, _ = self.unpack(self.theta)
+        total = 0.0
+        for x, sigma, mu in zip(self.groups, sigmas, mus):
+            n, p = x.shape
+            s = np.cov(x, rowvar=False, bias=True)
+            r = x.mean(axis=0) - mu
+            total += n * (np.linalg.slogdet(sigma)[1] + np.trace(np.linalg.solve(sigma, s))
+                          + r @ np.linalg.solve(sigma, r) - np.linalg.slogdet(s)[1] - p)
+        return total
+
+    def value_and_se(self, f):
+        jac = self.jacobian(lambda t: f(*self.unpack(t)), self.theta, h=1e-6)
+        return f(*self.unpack(self.theta)), np.sqrt(np.einsum("ik,kl,il->i", jac, self.acov,
+                                                              jac))
+
+
+@pytest.fixture(scope="module")
+def groups_json(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("hs-groups")
+    semopy.examples.holzinger39.get_data().to_csv(folder / "hs.csv", index=False)
+    path = folder / "hs-groups.yaml"
+    path.write_text(GROUPS_STUDY.format(method="normal"), encoding="utf-8")
+    return scalewright.check(path).to_dict()
+
+
+def test_partial_scalar_step_and_latent_comparisons_match_a_likelihood_written_out(groups_json):
+    steps = {s["step"]: s for s in groups_json["invariance"]}
+    released = [(r["step"], r["kind"], r["item"]) for r in groups_json["released"]]
+    # the commonly reported partial scalar model of these data [from memory]; the search
+    # itself is checked in test_invariance.py
+    assert released == [("scalar", "intercept", "x3"), ("scalar", "intercept", "x7")]
+    metric = TwoGroupReference(shared_intercepts=False)
+    scalar = TwoGroupReference(shared_intercepts=True, free_intercepts=("x3", "x7"))
+    for ref_fit in (metric, scalar):
+        assert np.max(np.abs(ref_fit.grad)) < 1e-6 * 301
+    # χ² = Σ_g n_g F_g; the same optimum: 1e-6 relative
+    assert steps["metric"]["fit"]["df"] == 2 * 54 - 42 - 6 - 6 == 54
+    assert_allclose(steps["metric"]["fit"]["chi_square"], metric.chi_square(), rtol=1e-6)
+    assert steps["scalar"]["fit"]["df"] == 2 * 54 - 50
+    assert_allclose(steps["scalar"]["fit"]["chi_square"], scalar.chi_square(), rtol=1e-6)
+    test = steps["scalar"]["difference_test"]
+    assert test["df"] == 4
+    assert_allclose(test["chi_square"], scalar.chi_square() - metric.chi_square(), rtol=1e-5)
+    assert_allclose(test["p_value"], stats.chi2.sf(test["chi_square"], 4), rtol=1e-8)
+    for key in ("cfi", "rmsea", "srmr"):
+        assert_allclose(steps["scalar"]["delta"][key],
+                        steps["scalar"]["fit"][key] - steps["metric"]["fit"][key], atol=1e-12)
+    # latent comparisons in the final scalar model; SEs by the delta method on the inverse
+    # expected information (DEVELOPERS.md: complete data); 1e-4 relative (two engines)
+    n_ref, n_other = (len(x) for x in scalar.groups)
+    order = ["visual", "textual", "speed"]
+
+    def comparisons(sigmas, mus, phis, kappa):
+        pooled = (n_ref * np.diag(phis[0]) + n_other * np.diag(phis[1])) / (n_ref + n_other)
+        sd = np.sqrt(np.diag(phis[1]))
+        corr = phis[1] / np.outer(sd, sd)
+        return np.concatenate([kappa[1], kappa[1] / np.sqrt(pooled), np.diag(phis[1]),
+                               np.diag(phis[1]) - 1, phis[0][[0, 0, 1], [1, 2, 2]],
+                               corr[[0, 0, 1], [1, 2, 2]]])
+
+    value, se = scalar.value_and_se(comparisons)
+    means = {r["construct"]: r for r in groups_json["latent_means"]}
+    got = [means[c][k] for k in ("estimate", "std_difference") for c in order]
+    got_se = [means[c][k] for k in ("se", "std_difference_se") for c in order]
+    variances = {r["construct"]: r for r in groups_json["latent_variances"]
+                 if r["group"] == "Pasteur"}
+    got += [variances[c]["estimate"] for c in order] + [variances[c]["difference"] for c in order]
+    got_se += [variances[c]["se"] for c in order] + [variances[c]["difference_se"] for c in order]
+    correlations = {(r["group"], r["a"], r["b"]): r for r in groups_json["latent_correlations"]}
+    for group in ("Grant-White", "Pasteur"):
+        for a, b in (("visual", "textual"), ("visual", "speed"), ("textual", "speed")):
+            got.append(correlations[group, a, b]["estimate"])
+            got_se.append(correlations[group, a, b]["se"])
+    assert_allclose(got, value, rtol=SEMOPY_RTOL)
+    assert_allclose(got_se, se, rtol=SEMOPY_RTOL)
+    for row in groups_json["latent_means"]:
+        assert_allclose(row["z"], row["estimate"] / row["se"], rtol=EXACT)
+        assert_allclose(row["p_value"], 2 * stats.norm.sf(abs(row["z"])), rtol=1e-8)
