@@ -665,3 +665,49 @@ def test_partial_scalar_step_and_latent_comparisons_match_a_likelihood_written_o
     for row in groups_json["latent_means"]:
         assert_allclose(row["z"], row["estimate"] / row["se"], rtol=EXACT)
         assert_allclose(row["p_value"], 2 * stats.norm.sf(abs(row["z"])), rtol=1e-8)
+
+
+def score_statistic(restricted: TwoGroupReference, freed: tuple[str, ...]) -> float:
+    """Score (Lagrange multiplier) statistic of freeing the last intercept of
+    ``freed`` in the other group, at the restricted ML estimate (Rao 1948;
+    Sörbom 1989): (g/2)ᵀ I⁻¹ (g/2) with g the gradient of −2ℓ and I the
+    expected information of the larger model, both at the restricted θ̂."""
+    larger = TwoGroupReference.__new__(TwoGroupReference)
+    larger.__dict__.update(restricted.__dict__)
+    larger.free = [hz.ITEMS.index(i) for i in freed]
+    larger.sizes = list(restricted.sizes)
+    larger.sizes[1] += 1
+    t = restricted.theta
+    at = 9 + restricted.sizes[1]                     # after the restricted model's ν block
+    theta = np.insert(t, at, t[9 + larger.free[-1]])  # the other group's value = shared one
+    grad, info = larger.pieces(theta)
+    return float((grad / 2) @ np.linalg.solve(info, grad / 2))
+
+
+def test_released_intercepts_score_tests_and_refits_match_a_likelihood_written_out(
+        groups_json):
+    # the search's two releases (scalar step), each from the model before it
+    scalar = TwoGroupReference(shared_intercepts=True)
+    after_x3 = TwoGroupReference(shared_intercepts=True, free_intercepts=("x3",))
+    after_x7 = TwoGroupReference(shared_intercepts=True, free_intercepts=("x3", "x7"))
+    first, second = groups_json["released"]
+    # score statistics with the expected information (DEVELOPERS.md): two ML optima and
+    # one linear solve, 1e-4 relative
+    assert_allclose(first["score_test"]["chi_square"], score_statistic(scalar, ("x3",)),
+                    rtol=SEMOPY_RTOL)
+    assert_allclose(second["score_test"]["chi_square"], score_statistic(after_x3, ("x3", "x7")),
+                    rtol=SEMOPY_RTOL)
+    # Bonferroni over the constraints tested together: the 9 intercepts, then the 6 whose
+    # release keeps two equal intercepts per construct (visual has only x1, x2 left)
+    for release, k in ((first, 9), (second, 6)):
+        test = release["score_test"]
+        assert_allclose(test["p_value"], stats.chi2.sf(test["chi_square"], 1), rtol=1e-8)
+        assert_allclose(test["p_adjusted"], min(1.0, k * test["p_value"]), rtol=1e-12)
+    # the refits after each release, and the released intercepts per group
+    for release, fitted, items in ((first, after_x3, ("x3",)), (second, after_x7, ("x3", "x7"))):
+        assert_allclose(release["fit_after"]["chi_square"], fitted.chi_square(), rtol=1e-6)
+        t = fitted.theta
+        j = hz.ITEMS.index(release["item"])
+        nu_other = t[9 + 9 + items.index(release["item"])]
+        assert_allclose([release["estimates"]["Grant-White"], release["estimates"]["Pasteur"]],
+                        [t[9 + j], nu_other], rtol=SEMOPY_RTOL)
