@@ -711,3 +711,85 @@ def test_released_intercepts_score_tests_and_refits_match_a_likelihood_written_o
         nu_other = t[9 + 9 + items.index(release["item"])]
         assert_allclose([release["estimates"]["Grant-White"], release["estimates"]["Pasteur"]],
                         [t[9 + j], nu_other], rtol=SEMOPY_RTOL)
+
+
+def test_omega_interval_and_item_review_values_follow_from_semopy(normal_json, ref):
+    m = model(normal_json)
+    rows = {r["construct"]: r for r in m["reliability"]}
+    # omega = C/(C + E) of each construct's sum (McDonald 1999) from semopy's matrices, its SE
+    # by the delta method on semopy's Fisher information, and the logit-scale Wald interval
+    # (Raykov 2002; scalequality.omega_interval's stated definition)
+    weights = np.stack([np.isin(hz.ITEMS, items).astype(float)
+                        for items in hz.CONSTRUCTS.values()])
+
+    def omegas(lam, psi, theta):
+        common = np.einsum("kp,pq,kq->k", weights, lam @ psi @ lam.T, weights)
+        return common / (common + np.einsum("kp,pq,kq->k", weights, theta, weights))
+
+    omega, se = ref.value_and_se(omegas)
+    half = stats.norm.ppf(0.975) * se / (omega * (1 - omega))
+    logit = np.log(omega / (1 - omega))
+    interval = special.expit(np.stack([logit - half, logit + half], axis=1))
+    for k, construct in enumerate(hz.CONSTRUCTS):
+        assert_allclose(rows[construct]["omega"], omega[k], rtol=SEMOPY_RTOL)
+        assert_allclose(rows[construct]["omega_ci95"], interval[k], rtol=SEMOPY_RTOL)
+    # item review: a suggested residual pair moves the items' implied correlation by
+    # EPC/√(σ̂_ii σ̂_jj); a suggested cross-loading's value is the standardized EPC
+    sd = np.sqrt(np.diag(ref.fit.implied_cov))
+    hints = {(h.get("item_a"), h.get("item_b")): h for h in m["modification_hints"]
+             if h["kind"] == "residual_covariance"}
+    loadings = {(h["construct"], h["item"]): h for h in m["modification_hints"]
+                if h["kind"] == "loading"}
+    checked = 0
+    for entry in m["item_review"]:
+        for detail in entry["details"]:
+            if detail["flag"] == "residual_pair":
+                pair = (entry["item"], detail["with"])
+                hint = hints.get(pair) or hints[pair[::-1]]
+                expected = hint["epc"] / (sd[ref.item(pair[0])] * sd[ref.item(pair[1])])
+            else:
+                assert detail["flag"] == "cross_loading"
+                expected = loadings[detail["with"], entry["item"]]["std_epc"]
+            assert_allclose(detail["value"], expected, rtol=SEMOPY_RTOL)
+            checked += 1
+    assert checked == 5      # x7–x8 and x8–x9 (each listed under both items), x9 on visual
+
+
+HOLES_STUDY = STUDY.replace("  file: hs.csv", "  file: hs.csv\n  missing: [-9]")
+
+
+def test_missing_data_summary_and_little_test_match_pandas_and_scipy(tmp_path):
+    # seeded MCAR holes, written as the missing code -9
+    frame = hz.data().copy()
+    rng = np.random.default_rng(1939)
+    holes = rng.random(frame.shape) < 0.06
+    frame = frame.mask(holes, -9)
+    frame.to_csv(tmp_path / "hs.csv", index=False)
+    path = tmp_path / "hs-holes.yaml"
+    path.write_text(HOLES_STUDY.format(method="normal"), encoding="utf-8")
+    out = scalewright.check(path).to_dict()
+    missing = out["data"]["missing"]
+    answered = ~holes
+    # counts from pandas / numpy on the same holes
+    assert missing["n_rows"] == len(frame) == out["data"]["n_rows"]
+    assert missing["n_complete"] == int(answered.all(axis=1).sum())
+    assert missing["n_no_answer"] == int((~answered).all(axis=1).sum())
+    counts = pd.Series(answered.sum(axis=0), index=hz.ITEMS)
+    for row in missing["items"]:
+        assert row["n_answered"] == counts[row["item"]]
+        assert_allclose(row["rate_missing"], 1 - counts[row["item"]] / len(frame), rtol=1e-12)
+    patterns = pd.DataFrame(~answered, columns=hz.ITEMS).value_counts()
+    assert missing["n_patterns"] == len(patterns)
+    listed = {tuple(p["missing"]): p["n"] for p in missing["patterns"]}
+    for key, n in patterns.items():
+        names = tuple(item for item, hole in zip(hz.ITEMS, key) if hole)
+        if names in listed:
+            assert listed[names] == n
+    # Little (1988): df = Σ_k p_k − p; the statistic itself is checked against an
+    # independent likelihood maximisation in test_mcar.py
+    little = missing["little_mcar"]
+    assert little["n_patterns"] == len(patterns)
+    assert missing["n_no_answer"] == 0      # so every pattern counts
+    assert little["df"] == sum(int(np.sum(~np.array(k))) for k in patterns.index) - 9
+    assert_allclose(little["p_value"], stats.chi2.sf(little["chi_square"], little["df"]),
+                    rtol=1e-8)
