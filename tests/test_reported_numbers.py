@@ -19,6 +19,8 @@ for the same formula on the same numbers (rounding only).
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -306,6 +308,13 @@ def test_fit_block_matches_semopy_and_scipy(normal_json, name):
     assert_allclose(fit["aic"], -2 * loglik + 2 * k, rtol=1e-8)
     assert_allclose(fit["bic"], -2 * loglik + k * np.log(n), rtol=1e-8)
     assert_allclose(fit["sabic"], -2 * loglik + k * np.log((n + 2) / 24), rtol=1e-8)
+    # the optimiser's objective at its optimum: ½[log|Σ̂| + tr(SΣ̂⁻¹)] (estimate/normal.py),
+    # from semopy's Σ̂; iterations and gradient norm are the optimiser's own state
+    optimizer = model(normal_json, name)["optimizer"]
+    objective = 0.5 * (np.linalg.slogdet(reference.implied_cov)[1]
+                       + np.trace(np.linalg.solve(reference.implied_cov, s)))
+    assert optimizer["converged"] and optimizer["gradient_norm"] < 1e-6
+    assert_allclose(optimizer["objective"], objective, rtol=1e-8)
 
 
 def duplication(p):
@@ -793,3 +802,115 @@ def test_missing_data_summary_and_little_test_match_pandas_and_scipy(tmp_path):
     assert little["df"] == sum(int(np.sum(~np.array(k))) for k in patterns.index) - 9
     assert_allclose(little["p_value"], stats.chi2.sf(little["chi_square"], little["df"]),
                     rtol=1e-8)
+
+
+# --------------------------------------------------------------------------- general factors
+
+DEMO = Path(__file__).resolve().parents[1] / "models" / "teacher-climate.yaml"
+GENERAL_STUDY = """\
+study: General-factor structures of the demo answers
+data:
+  file: {csv}
+  missing: [-9]
+items:
+  scale: [1, 5]
+  reverse: [cs4, ca5]
+models:
+  higher-order:
+    constructs: &three
+      workload: [wl1, wl2, wl3, wl4, wl5, wl6]
+      support: [cs1, cs2, cs3, cs4, cs5, cs6]
+      autonomy: [ca1, ca2, ca3, ca4, ca5, ca6]
+    higher_order:
+      climate: [workload, support, autonomy]
+  bifactor:
+    general: climate
+    constructs: *three
+"""
+
+
+@pytest.fixture(scope="module")
+def general_json(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("general")
+    path = folder / "general.yaml"
+    path.write_text(GENERAL_STUDY.format(csv=DEMO.with_suffix(".csv").as_posix()),
+                    encoding="utf-8")
+    return scalewright.check(path).to_dict()
+
+
+def sum_variances(loadings: dict, residuals: dict, items) -> tuple[float, float]:
+    return (sum(loadings.get(i, 0.0) for i in items), sum(residuals[i] for i in items))
+
+
+def test_bifactor_coefficients_follow_the_published_formulas_from_the_printed_estimates(
+        general_json):
+    # Rodriguez, Reise & Haviland (2016), orthogonal unit-variance factors: for a sum over
+    # items I, with A = (Σ_I λ_gen)², B_s = (Σ_{I∩s} λ_s)², E = Σ_I θ: ωT = (A + Σ B_s)/V,
+    # ωH = A/V, V = A + Σ B_s + E (model-implied variance of the raw sum); ECV and H from
+    # standardized loadings; PUC = share of item pairs in different group factors
+    m = model(general_json, "bifactor")
+    coefficients = m["bifactor"]
+    raw = {}
+    std = {}
+    for row in m["loadings"]:
+        raw.setdefault(row["construct"], {})[row["item"]] = row["estimate"]
+        std.setdefault(row["construct"], {})[row["item"]] = row["std_estimate"]
+    theta = {r["item"]: r["estimate"] for r in m["residual_variances"]}
+    groups = [c for c in raw if c != "climate"]
+    items = coefficients["items"]
+
+    def parts(subset):
+        general = sum(raw["climate"][i] for i in subset) ** 2
+        specific = sum(sum(raw[c].get(i, 0.0) for i in subset) ** 2 for c in groups)
+        return general, specific, general + specific + sum(theta[i] for i in subset)
+
+    general, specific, total = parts(items)
+    assert_allclose(coefficients["omega_total"], (general + specific) / total, rtol=1e-8)
+    assert_allclose(coefficients["omega_hierarchical"], general / total, rtol=1e-8)
+    assert_allclose(coefficients["relative_omega"], general / (general + specific), rtol=1e-8)
+    gen2 = sum(v ** 2 for v in std["climate"].values())
+    spec2 = sum(v ** 2 for c in groups for v in std[c].values())
+    assert_allclose(coefficients["ecv"], gen2 / (gen2 + spec2), rtol=1e-8)
+    k = len(items)
+    assert_allclose(coefficients["puc"],
+                    1 - sum(len(std[c]) * (len(std[c]) - 1) for c in groups) / (k * (k - 1)),
+                    rtol=1e-12)
+
+    def h(values):      # Hancock & Mueller (2001)
+        lam2 = np.asarray(values) ** 2
+        return 1 / (1 + 1 / np.sum(lam2 / (1 - lam2)))
+
+    assert_allclose(coefficients["h"], h(list(std["climate"].values())), rtol=1e-8)
+    for sub in coefficients["subscales"]:
+        g_part = sum(raw["climate"][i] for i in sub["items"]) ** 2
+        s_part = sum(raw[sub["factor"]][i] for i in sub["items"]) ** 2
+        v = g_part + s_part + sum(theta[i] for i in sub["items"])
+        assert_allclose([sub["omega_subscale"], sub["omega_hierarchical_subscale"],
+                         sub["general_share"], sub["h"]],
+                        [(g_part + s_part) / v, s_part / v, g_part / v,
+                         h(list(std[sub["factor"]].values()))], rtol=1e-8)
+
+
+def test_higher_order_keys_follow_from_the_printed_estimates(general_json):
+    # disturbances of the first-order constructs fixed at 1 and the higher-order factor's
+    # variance 1 (as the JSON states): Var(F_f) = γ_f² + 1, so the variance explained is
+    # γ²/(γ² + 1) and the standardized path γ/√(γ² + 1); ωH of the raw sum (Schmid & Leiman
+    # 1957; Zinbarg et al. 2005) = (Σ_i λ_i γ_f(i))² / V with V the implied variance
+    m = model(general_json, "higher-order")
+    gamma = {r["construct"]: r["estimate"] for r in m["higher_order_paths"]}
+    for row in m["higher_order_paths"]:
+        g = row["estimate"]
+        assert_allclose(row["std_estimate"], g / np.sqrt(g ** 2 + 1), rtol=1e-8)
+        assert_allclose(row["z"], g / row["se"], rtol=EXACT)
+    for row in m["higher_order"]["constructs"]:
+        g = gamma[row["construct"]]
+        assert_allclose(row["variance_explained"], g ** 2 / (g ** 2 + 1), rtol=1e-8)
+        assert_allclose(row["loading"], g / np.sqrt(g ** 2 + 1), rtol=1e-8)
+    lam = {r["item"]: (r["construct"], r["estimate"]) for r in m["loadings"]}
+    theta = sum(r["estimate"] for r in m["residual_variances"])
+    general = sum(value * gamma[c] for c, value in lam.values()) ** 2
+    specific = sum(sum(v for c2, v in lam.values() if c2 == c) ** 2 for c in gamma)
+    total = general + specific + theta
+    coefficients = m["higher_order"]["coefficients"]
+    assert_allclose(coefficients["omega_hierarchical"], general / total, rtol=1e-8)
+    assert_allclose(coefficients["omega_total"], (general + specific) / total, rtol=1e-8)
