@@ -10,7 +10,12 @@ semopy ships them; the references are computed in the test:
   its Fisher information ``calc_fim`` for their covariance matrix, and
   central differences of its model-implied matrices for the delta method;
 * pandas, numpy and scipy for sample statistics and distributions;
-* published formulas, named beside each check.
+* published formulas, named beside each check; for the bifactor and
+  higher-order coefficients the formulas applied to the JSON's own printed
+  estimates of the demo answers (the demo data only supply numbers there;
+  those estimates are checked against semopy in test_engine.py);
+* for the invariance steps, a two-group likelihood written out in this file
+  and maximised by Fisher scoring.
 
 Tolerances: 1e-4 relative against semopy's estimates and what is derived from
 them (DEVELOPERS.md: ML estimates and SEs against another engine); 1e-10
@@ -26,7 +31,7 @@ import pandas as pd
 import pytest
 import semopy
 from numpy.testing import assert_allclose
-from scipy import special, stats
+from scipy import linalg, optimize, special, stats
 
 import holzinger as hz
 import scalewright
@@ -263,8 +268,6 @@ def test_standardized_epc_is_the_epc_in_semopy_standard_deviations(normal_json, 
 def rmsea_bounds(chi2, df, n):
     """Browne & Cudeck (1993): λ_L, λ_U with ncx2.cdf(T; df, λ) = .95, .05 (scipy's
     root finder; λ = 0 where the central cdf is already below the target)."""
-    from scipy import optimize
-
     def root(target):
         if stats.chi2.cdf(chi2, df) <= target:
             return 0.0
@@ -330,7 +333,7 @@ def satorra_bentler_traces(x, sigma, delta):
     """tr(UΓ̂) and tr((UΓ̂)²) from the textbook matrices (Satorra & Bentler 1994):
     Γ̂ the sample covariance of vech((x_i − x̄)(x_i − x̄)ᵀ), W = ½Dᵀ(Σ̂⁻¹⊗Σ̂⁻¹)D,
     U = W − WΔ(ΔᵀWΔ)⁻¹ΔᵀW, Δ = ∂vech Σ/∂θ."""
-    n, p = x.shape
+    p = x.shape[1]
     rows, cols = np.tril_indices(p)
     c = x - x.mean(axis=0)
     gamma = np.cov((c[:, :, None] * c[:, None, :])[:, rows, cols], rowvar=False, bias=True)
@@ -398,7 +401,6 @@ def test_coefficient_h_standardized_alpha_and_validity_keys_match_independent_co
         # Hancock & Mueller (2001): H is the largest reliability of any weighted sum of the
         # construct's items, max_w (wᵀλ)²/(wᵀΣ̂w): the largest generalized eigenvalue of
         # (λλᵀ, Σ̂) from semopy's fit (scipy)
-        from scipy import linalg
         h = linalg.eigh(np.outer(lam, lam), sigma[np.ix_(idx, idx)], eigvals_only=True)[-1]
         assert_allclose(rows[construct]["coefficient_h"], h, rtol=SEMOPY_RTOL)
         # simple structure: the construct's share of omega is omega itself
