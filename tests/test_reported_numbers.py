@@ -28,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pingouin
 import pytest
 import semopy
 from numpy.testing import assert_allclose
@@ -916,3 +917,67 @@ def test_higher_order_keys_follow_from_the_printed_estimates(general_json):
     coefficients = m["higher_order"]["coefficients"]
     assert_allclose(coefficients["omega_hierarchical"], general / total, rtol=1e-8)
     assert_allclose(coefficients["omega_total"], (general + specific) / total, rtol=1e-8)
+
+
+# --------------------------------------------------------------------------- refinement path
+
+MERGED_STUDY = """\
+study: Holzinger and Swineford (1939), visual and speed tests as one construct
+data:
+  file: hs.csv
+estimation:
+  method: normal
+models:
+  two:
+    constructs:
+      visual_speed: [x1, x2, x3, x7, x8, x9]
+      textual: [x4, x5, x6]
+"""
+
+
+def test_refinement_steps_and_trials_match_semopy_refits_and_pingouin(tmp_path):
+    hz.data().to_csv(tmp_path / "hs.csv", index=False)
+    path = tmp_path / "merged.yaml"
+    path.write_text(MERGED_STUDY, encoding="utf-8")
+    steps = model(scalewright.check(path).to_dict(), "two")["refinement"]["steps"]
+    assert len(steps) >= 2 and steps[1]["tried"]
+    constructs = {"visual_speed": ["x1", "x2", "x3", "x7", "x8", "x9"],
+                  "textual": ["x4", "x5", "x6"]}
+
+    def semopy_stats(kept):
+        description = "\n".join(f"{c} =~ {' + '.join(i for i in its if i in kept)}"
+                                for c, its in constructs.items())
+        fitted = semopy.Model(description)
+        fitted.fit(hz.data()[kept], options={"ftol": 1e-12})
+        return semopy.calc_stats(fitted).T["Value"]
+
+    def alphas(kept):
+        return {c: pingouin.cronbach_alpha(hz.data()[[i for i in its if i in kept]])[0]
+                for c, its in constructs.items()}
+
+    kept = list(hz.ITEMS)
+    for previous, step in zip([None] + steps[:-1], steps):
+        base = list(kept)
+        # each trial of a step: the refit without the item, and the changes it brings
+        for trial in step["tried"]:
+            without = [i for i in base if i != trial["item"]]
+            values = semopy_stats(without)
+            assert_allclose([trial["cfi"], trial["rmsea"]], [values["CFI"], values["RMSEA"]],
+                            rtol=SEMOPY_RTOL)
+            assert_allclose(trial["cfi_change"], trial["cfi"] - previous["fit"]["cfi"],
+                            atol=1e-12)
+            construct = next(c for c, its in constructs.items() if trial["item"] in its)
+            assert_allclose(trial["alpha_change"],
+                            alphas(without)[construct] - alphas(base)[construct], rtol=1e-8)
+        if step["removed"] is not None:
+            kept.remove(step["removed"])
+        # the step's model: another ML engine on the same reduced data, 1e-4 relative;
+        # alpha: pingouin on the same answers
+        values = semopy_stats(kept)
+        for ours, theirs in [("chi_square", "chi2"), ("cfi", "CFI"), ("rmsea", "RMSEA")]:
+            assert_allclose(step["fit"][ours], values[theirs], rtol=SEMOPY_RTOL)
+        assert step["fit"]["df"] == values["DoF"]
+        now = alphas(kept)
+        assert_allclose([step["reliability"][c] for c in constructs],
+                        [now[c] for c in constructs], rtol=1e-10)
+    assert sum(len(step["tried"]) for step in steps) >= 3
