@@ -981,3 +981,103 @@ def test_refinement_steps_and_trials_match_semopy_refits_and_pingouin(tmp_path):
         assert_allclose([step["reliability"][c] for c in constructs],
                         [now[c] for c in constructs], rtol=1e-10)
     assert sum(len(step["tried"]) for step in steps) >= 3
+
+
+def two_group_robust_pieces(fitted: TwoGroupReference):
+    """Satorra (1993) multi-sample traces and the sandwich covariance, from the
+    textbook matrices: per group the moments (μ, vech Σ), normal-theory weight
+    W_g = diag(Σ⁻¹, ½Dᵀ(Σ⁻¹⊗Σ⁻¹)D), Γ̂_g the covariance of
+    (x_i − x̄, vech((x_i − x̄)(x_i − x̄)ᵀ)); stacked with group shares
+    w_g = n_g/N as W = diag(w_g W_g), Γ = diag(Γ̂_g / w_g);
+    U = W − WΔ(ΔᵀWΔ)⁻¹ΔᵀW, and acov = (ΔᵀWΔ)⁻¹ΔᵀWΓWΔ(ΔᵀWΔ)⁻¹/N
+    (Satorra & Bentler 1994)."""
+    p = TwoGroupReference.P
+    rows, cols = np.tril_indices(p)
+    vech = rows * p + cols
+    sigmas, _, _, _ = fitted.unpack(fitted.theta)
+    jac = fitted.jacobian(fitted.moments, fitted.theta)
+    n_total = sum(len(x) for x in fitted.groups)
+    deltas, weights, gammas, start = [], [], [], 0
+    for x, sigma in zip(fitted.groups, sigmas):
+        share = len(x) / n_total
+        deltas.append(np.vstack([jac[start + p * p:start + p * p + p], jac[start:][vech]]))
+        start += p * p + p
+        v = np.linalg.inv(sigma)
+        w = np.zeros((p + len(vech),) * 2)
+        w[:p, :p] = v
+        w[p:, p:] = 0.5 * duplication(p).T @ np.kron(v, v) @ duplication(p)
+        c = x - x.mean(axis=0)
+        d = np.hstack([c, (c[:, :, None] * c[:, None, :])[:, rows, cols]])
+        weights.append(share * w)
+        gammas.append(np.cov(d, rowvar=False, bias=True) / share)
+    delta, w, gamma = np.vstack(deltas), linalg.block_diag(*weights), linalg.block_diag(*gammas)
+    bread = np.linalg.inv(delta.T @ w @ delta)
+    u = w - w @ delta @ bread @ delta.T @ w
+    ug = u @ gamma
+    acov = bread @ delta.T @ w @ gamma @ w @ delta @ bread / n_total
+    return np.trace(ug), np.trace(ug @ ug), acov
+
+
+def test_robust_invariance_statistics_and_sandwich_se_match_textbook_matrices(tmp_path):
+    semopy.examples.holzinger39.get_data().to_csv(tmp_path / "hs.csv", index=False)
+    path = tmp_path / "hs-groups-robust.yaml"
+    path.write_text(GROUPS_STUDY.format(method="robust"), encoding="utf-8")
+    out = scalewright.check(path).to_dict()
+    steps = {s["step"]: s for s in out["invariance"]}
+    assert [(r["step"], r["item"]) for r in out["released"]] == [("scalar", "x3"),
+                                                                 ("scalar", "x7")]
+    for name, fitted in (("metric", TwoGroupReference(shared_intercepts=False)),
+                         ("scalar", TwoGroupReference(shared_intercepts=True,
+                                                      free_intercepts=("x3", "x7")))):
+        fit = steps[name]["fit"]
+        trace, trace2, acov = two_group_robust_pieces(fitted)
+        df = fit["df"]
+        # c = tr(UΓ)/df, T_SB = T/c, d* = tr(UΓ)²/tr((UΓ)²), T_adj = T·d*/tr(UΓ); the same
+        # optimum and exact derivatives: 1e-4 relative
+        assert_allclose(fit["chi_square"], fitted.chi_square(), rtol=1e-6)
+        assert_allclose(fit["scaling_factor"], trace / df, rtol=SEMOPY_RTOL)
+        assert_allclose(fit["chi_square_scaled"], fit["chi_square"] * df / trace,
+                        rtol=SEMOPY_RTOL)
+        assert_allclose(fit["df_adjusted"], trace ** 2 / trace2, rtol=SEMOPY_RTOL)
+        assert_allclose(fit["chi_square_adjusted"], fit["chi_square"] * trace / trace2,
+                        rtol=SEMOPY_RTOL)
+    # configural: the groups share no parameter, so tr(UΓ) is the sum of each school's
+    # single-group trace (textbook matrices at semopy's per-school fit)
+    frame = semopy.examples.holzinger39.get_data()
+    configural = steps["configural"]["fit"]
+    traces, baselines = [], []
+    for school in ("Grant-White", "Pasteur"):
+        x = frame[frame.school == school][hz.ITEMS].to_numpy(float)
+        per_school = semopy.Model(hz.THREE_FACTOR)
+        per_school.fit(pd.DataFrame(x, columns=hz.ITEMS), options={"ftol": 1e-12})
+        theta = per_school.param_vals.copy()
+        rows, cols = np.tril_indices(9)
+
+        def implied(t, m=per_school):
+            m.update_matrices(t)
+            return m.calc_sigma()[0][rows, cols]
+
+        delta = np.stack([(implied(theta + e) - implied(theta - e)) / 2e-6
+                          for e in np.eye(len(theta)) * 1e-6], axis=1)
+        per_school.update_matrices(theta)
+        traces.append(satorra_bentler_traces(x, per_school.calc_sigma()[0], delta)[0])
+        s = np.cov(x, rowvar=False, bias=True)
+        picks = ((rows == cols)[:, None] * (rows[:, None] == np.arange(9)[None, :])).astype(float)
+        baselines.append(satorra_bentler_traces(x, np.diag(np.diag(s)), picks)[0])
+    assert_allclose(configural["scaling_factor"], sum(traces) / 48, rtol=SEMOPY_RTOL)
+    # robust CFI of every step (Brosseau-Liard & Savalei 2014) with the baseline's scaling
+    # from the same textbook traces (independence within each school, 2 × 36 df)
+    c_b = sum(baselines) / 72
+    for step in steps.values():
+        fit = step["fit"]
+        c = fit["scaling_factor"]
+        assert_allclose(fit["cfi_robust"],
+                        1 - max(fit["chi_square"] - c * fit["df"], 0)
+                        / (fit["baseline_chi_square"] - c_b * 72), rtol=SEMOPY_RTOL)
+    # latent mean differences of the final scalar model with sandwich SEs (delta method)
+    fitted.acov = acov
+    value, se = fitted.value_and_se(lambda sigmas, mus, phis, kappa: kappa[1])
+    means = {r["construct"]: r for r in out["latent_means"]}
+    order = ["visual", "textual", "speed"]
+    assert_allclose([means[c]["estimate"] for c in order], value, rtol=SEMOPY_RTOL)
+    assert_allclose([means[c]["se"] for c in order], se, rtol=SEMOPY_RTOL)
