@@ -19,6 +19,7 @@ import pytest
 from scipy import stats
 
 from conftest import HS_CONSTRUCTS, HS_ITEMS, make_spec
+from two_groups import TwoGroupReference, two_group_robust_pieces
 from scalewright.demo import population
 from scalewright.invariance import (MIN_EQUAL, _scaling_at, compare, conventions,
                                     invariance_keys, measurement_invariance, releasable,
@@ -268,7 +269,7 @@ def test_score_test_follows_chi_square_one_under_invariance():
 
 # ------------------------------------------------------------------------- robust difference tests
 
-def test_satorra_bentler_2010_difference_is_close_to_2001_where_both_exist(hs_moments):
+def test_satorra_bentler_2010_scaling_matches_the_textbook_matrices(hs_moments):
     spec = make_spec(HS_CONSTRUCTS)
     fits = {step: fit_multigroup(build_multigroup_layout(spec, hs_moments, step), hs_moments,
                                  robust=True) for step in (METRIC, SCALAR)}
@@ -278,9 +279,22 @@ def test_satorra_bentler_2010_difference_is_close_to_2001_where_both_exist(hs_mo
                                fits[SCALAR].robust.test.scaling_factor,
                                fits[METRIC].fit.chi_square, fits[METRIC].fit.df, c10, SB2010)
     assert first.method == "Satorra & Bentler (2001)" and first.scaling_factor > 0
-    # theory (Satorra & Bentler 2010): both versions estimate the same scaling of the
-    # difference; in a sample of 301 they differ by several per cent, so 15%
-    np.testing.assert_allclose(second.chi_square, first.chi_square, rtol=0.15)
+    # Satorra & Bentler (2010): c₁₀ is the metric model's scaling factor at its fit to
+    # the scalar model's implied moments, from the textbook multi-sample matrices with
+    # the sample Γ̂ (tests/two_groups.py, written out independently of the engine);
+    # the same optimum and exact derivatives: 1e-4 relative
+    scalar = TwoGroupReference(shared_intercepts=True)
+    sigmas, mus, _, _ = scalar.unpack(scalar.theta)
+    metric_at_scalar = TwoGroupReference(shared_intercepts=False,
+                                         targets=list(zip(mus, sigmas)))
+    np.testing.assert_allclose(c10, two_group_robust_pieces(metric_at_scalar)[0] / 54,
+                               rtol=1e-4)
+    # the 2010 difference from its parts: c_d = (d₀c₀ − d₁c₁₀)/(d₀ − d₁), T_d = ΔT/c_d
+    scalar_fit, metric_fit = fits[SCALAR].fit, fits[METRIC].fit
+    c_d = (scalar_fit.df * fits[SCALAR].robust.test.scaling_factor - metric_fit.df * c10) \
+        / (scalar_fit.df - metric_fit.df)
+    np.testing.assert_allclose(second.chi_square,
+                               (scalar_fit.chi_square - metric_fit.chi_square) / c_d, rtol=1e-10)
 
 
 @pytest.mark.slow

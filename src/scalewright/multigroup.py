@@ -88,7 +88,7 @@ from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline
                                        pattern_moments, saturated_em, saturated_information,
                                        saturated_scores_gram, yuan_bentler)
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
-from scalewright.estimate.robust import RobustML, RobustTest, robust_fit_indices
+from scalewright.estimate.robust import RobustML, RobustTest, baseline_test, robust_fit_indices
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
                                  saturated_loglik)
@@ -431,7 +431,13 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
     per case and ``B_g`` the mean outer product of the casewise scores of the
     saturated parameters ``β_g = (vech Σ_g, μ_g)`` at the model-implied
     moments (with missing answers, over each person's answered items;
-    :mod:`scalewright.estimate.fiml`).  ``A_g`` is the expected information
+    :mod:`scalewright.estimate.fiml`).  For complete data ``B_g`` is instead
+    the covariance of the scores at ``Σ̂_g`` with the rows centred at ``x̄_g``,
+    ``W Γ̂ W`` with Γ̂ the sample covariance of ``(x_i − x̄, vech((x_i − x̄)
+    (x_i − x̄)ᵀ))`` (Satorra & Bentler 1994), as in one group
+    (:func:`scalewright.estimate.robust.robust_ml`): the mean outer product at
+    the implied moments adds the misfit ``r̄ r̄ᵀ`` of the mean score, about
+    ``T/N`` to ``tr(UΓ)``.  ``A_g`` is the expected information
     for complete data (positive definite even where the model misfits; the
     observed one need not be) and the observed information with missing
     answers, where the expected one is not consistent under MAR (Kenward &
@@ -465,8 +471,9 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
         at = pm if moments.full_information else _implied(pm, mats.implied_mean,
                                                            mats.implied_cov)
         a_g, _, _ = saturated_information(at, mats.implied_mean, mats.implied_cov)
-        b_g = saturated_scores_gram(moments.values[g], patterns, mats.implied_mean,
-                                    mats.implied_cov)
+        b_g = (saturated_scores_gram(moments.values[g], patterns, mats.implied_mean,
+                                     mats.implied_cov) if moments.full_information
+               else _centred_scores_covariance(moments.values[g], patterns, mats.implied_cov))
         a_blocks.append(weights[g] * a_g)
         b_blocks.append(weights[g] * b_g)
         deltas.append(pattern_jacobian(pattern, theta, layout.n_params))
@@ -475,6 +482,21 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
     first = delta.T @ a_beta @ delta
     info = FimlInformation(first, first, delta.T @ b_beta @ delta, a_beta, b_beta, delta)
     return yuan_bentler(info, moments.n, chi_square, df)
+
+
+def _centred_scores_covariance(x: np.ndarray, patterns, sigma: np.ndarray) -> np.ndarray:
+    """Covariance of the casewise scores of ``β = (vech Σ, μ)`` at ``Σ̂`` for
+    complete rows centred at their mean: the Gram of the scores minus the
+    outer product of their mean ``(½·vech(VSV − V), 0)`` (halves on the
+    diagonal, as the scores), ``V = Σ̂⁻¹``, ``S`` the ÷N covariance."""
+    mean = x.mean(axis=0)
+    gram = saturated_scores_gram(x, patterns, mean, sigma)
+    v = linalg.inv(sigma)
+    rows, cols = np.tril_indices(len(mean))
+    half = np.where(rows != cols, 1.0, 0.5)
+    score_mean = np.concatenate([(v @ np.cov(x, rowvar=False, bias=True) @ v - v)[rows, cols]
+                                 * half, np.zeros(len(mean))])
+    return gram - np.outer(score_mean, score_mean)
 
 
 def _implied(pm: PatternMoments, mu: np.ndarray, sigma: np.ndarray) -> PatternMoments:
@@ -487,10 +509,16 @@ def _implied(pm: PatternMoments, mu: np.ndarray, sigma: np.ndarray) -> PatternMo
 def baseline_robust_test(moments: GroupMoments) -> RobustTest:
     """Scaled test of the multi-group baseline (independence within each
     group): the groups share no parameter, so ``T``, ``tr(UΓ)`` and
-    ``tr((UΓ)²)`` are sums of the groups' own
-    (:func:`scalewright.estimate.fiml.baseline_yuan_bentler`)."""
-    tests = [baseline_yuan_bentler(x, patterns, pm, saturated)
-             for x, (patterns, pm, saturated) in zip(moments.values, moments.pattern_parts)]
+    ``tr((UΓ)²)`` are sums of the groups' own: with missing answers
+    :func:`scalewright.estimate.fiml.baseline_yuan_bentler`, for complete data
+    the Satorra–Bentler test of one group
+    (:func:`scalewright.estimate.robust.baseline_test`; the saturated means add
+    nothing to its trace, and ``tr((UΓ)²)`` is not computed)."""
+    if not moments.full_information:
+        tests = [baseline_test(x, moments.items) for x in moments.values]
+    else:
+        tests = [baseline_yuan_bentler(x, patterns, pm, saturated)
+                 for x, (patterns, pm, saturated) in zip(moments.values, moments.pattern_parts)]
     return RobustTest(sum(t.chi_square for t in tests), sum(t.df for t in tests),
                       sum(t.trace for t in tests), sum(t.trace_squared for t in tests))
 
