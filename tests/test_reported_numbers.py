@@ -201,42 +201,54 @@ def test_residual_variances_and_r_squared_match_semopy(normal_json, ref):
 
 # --------------------------------------------------------------------------- local misfit
 
-def independent_standardized_residuals(ref) -> tuple[np.ndarray, np.ndarray]:
+def independent_standardized_residuals(ref, robust: bool) -> tuple[np.ndarray, np.ndarray]:
     """Residual correlations and standardized residuals from semopy's fit.
 
     Residual correlation: pandas' sample correlation minus semopy's implied
-    correlation. Standardized residual (Browne 1984; Bollen 1989): under
-    the model and normality, with S the ÷N covariance,
-    Var(s_ij − σ̂_ij) = (σ_ii σ_jj + σ_ij²)/N − Δ_ij acov(θ̂) Δ_ijᵀ, where
-    Δ_ij = ∂σ_ij/∂θ (central differences of semopy's Σ(θ)) and acov is
-    semopy's inverse Fisher information."""
-    x = hz.data()
-    n = len(x)
-    s = np.cov(x.to_numpy(float), rowvar=False, bias=True)
+    correlation. Standardized residual (s_ij − σ̂_ij)/√Var(s_ij − σ̂_ij), S the
+    ÷N covariance, Δ = ∂vech Σ/∂θ by central differences of semopy's Σ(θ)
+    (Browne 1984; Bollen 1989):
+
+    * normal theory: Var = (σ_ii σ_jj + σ_ij²)/N − Δ_ij acov(θ̂) Δ_ijᵀ with
+      acov semopy's inverse Fisher information;
+    * robust ML (distribution-free): Var = diag(PΓ̂Pᵀ)/N with
+      P = I − Δ(ΔᵀWΔ)⁻¹ΔᵀW, W = ½Dᵀ(Σ̂⁻¹⊗Σ̂⁻¹)D and Γ̂ the sample covariance
+      of vech((x_i − x̄)(x_i − x̄)ᵀ)."""
+    x = hz.data().to_numpy(float)
+    n, p = x.shape
+    s = np.cov(x, rowvar=False, bias=True)
     sigma = ref.fit.implied_cov
-    rows, cols = np.triu_indices(9, k=1)
+    rows, cols = np.tril_indices(p)
 
     def implied(lam, psi, theta):
         return (lam @ psi @ lam.T + theta)[rows, cols]
 
     delta = ref.jacobian(implied)
-    var_fitted = np.einsum("ik,kl,il->i", delta, ref.acov, delta)
-    var_sample = (sigma[rows, rows] * sigma[cols, cols] + sigma[rows, cols] ** 2) / n
-    z = np.full((9, 9), np.nan)
-    z[rows, cols] = z[cols, rows] = (s - sigma)[rows, cols] / np.sqrt(var_sample - var_fitted)
+    if robust:
+        c = x - x.mean(axis=0)
+        gamma = np.cov((c[:, :, None] * c[:, None, :])[:, rows, cols], rowvar=False, bias=True)
+        v = np.linalg.inv(sigma)
+        w = 0.5 * duplication(p).T @ np.kron(v, v) @ duplication(p)
+        proj = np.eye(len(rows)) - delta @ np.linalg.solve(delta.T @ w @ delta, delta.T @ w)
+        var = np.einsum("ik,kl,il->i", proj, gamma, proj) / n
+    else:
+        var = (sigma[rows, rows] * sigma[cols, cols] + sigma[rows, cols] ** 2) / n \
+            - np.einsum("ik,kl,il->i", delta, ref.acov, delta)
+    z = np.full((p, p), np.nan)
+    with np.errstate(invalid="ignore"):      # the diagonal (not a residual pair) may round < 0
+        z[rows, cols] = z[cols, rows] = (s - sigma)[rows, cols] / np.sqrt(var)
     sd = np.sqrt(np.diag(sigma))
-    return x.corr().to_numpy() - sigma / np.outer(sd, sd), z
+    return hz.data().corr().to_numpy() - sigma / np.outer(sd, sd), z
 
 
 @pytest.mark.parametrize("route", ["normal", "robust"])
 def test_residual_correlations_and_standardized_residuals_match_semopy(
         route, normal_json, robust_json, ref):
-    # The standardized residual is a normal-theory z (residuals.py): the same
-    # number whichever standard errors the model reports (the robust route's
-    # estimates are the ML ones)
+    # the z of each route as residuals.py states it: normal theory for ML, the
+    # distribution-free residual variance for robust ML (same ML estimates)
     out = normal_json if route == "normal" else robust_json
     block = model(out)["residual_correlations"]
-    corr, z = independent_standardized_residuals(ref)
+    corr, z = independent_standardized_residuals(ref, robust=route == "robust")
     # the JSON matrix is rounded to 4 decimals (for the heat map)
     assert_allclose(block["matrix"], corr, atol=5e-5 + 1e-6)
     items = block["items"]
