@@ -6,6 +6,7 @@ is the outside reference: the data were generated from it)."""
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import subprocess
 import sys
@@ -14,7 +15,10 @@ from pathlib import Path
 import pytest
 
 import scalewright
+from scalewright import output
 from scalewright.cli import main
+from scalewright.errors import StudyError
+from scalewright.output import check_targets
 from scalewright.demo import population
 
 MODELS = Path(__file__).parents[1] / "models"
@@ -144,7 +148,6 @@ def test_cli_bad_model_file_exits_2_without_traceback(demo_copy, edit, message):
     assert done.returncode == 2
     assert "Traceback" not in done.stderr
     assert "teacher-climate.yaml" in done.stderr
-    import re
     assert re.search(message, done.stderr.replace("\n", " "))
 
 
@@ -169,6 +172,31 @@ def test_output_never_overwrites_a_file_the_user_owns(demo_copy, tmp_path):
     mine.write_text("my own notes")
     assert main(["check", str(demo_copy), "--out", str(out)]) == 2
     assert mine.read_text() == "my own notes"
+
+
+def test_output_folder_that_is_a_file_is_refused_before_fitting(demo_copy, tmp_path, capsys):
+    mine = tmp_path / "notes"
+    mine.write_text("my own notes")
+    assert main(["check", str(demo_copy), "--out", str(mine)]) == 2
+    assert re.search(r"notes: the output folder given with --out is a file, so the report "
+                     r"cannot be written into it\. Give the path of a folder",
+                     " ".join(capsys.readouterr().err.split()))
+    assert mine.read_text() == "my own notes"
+
+
+def test_output_folder_below_a_file_is_refused(tmp_path):
+    (tmp_path / "notes").write_text("my own notes")
+    with pytest.raises(StudyError, match=r"the output folder cannot be created because .*notes "
+                                         r"is a file"):
+        check_targets(tmp_path / "notes" / "reports", "study")
+
+
+def test_output_folder_without_write_permission_is_refused(tmp_path, monkeypatch):
+    # the permission bits are not enforced for root, so the access check is simulated
+    monkeypatch.setattr(output.os, "access", lambda path, mode: False)
+    with pytest.raises(StudyError, match=r"the report cannot be written there, because .* is "
+                                         r"not writable for you\. Choose another output folder"):
+        check_targets(tmp_path / "reports", "study")
 
 
 def test_output_replaces_its_own_earlier_report(demo_copy, tmp_path):

@@ -9,6 +9,7 @@ the user is asked to choose another folder.
 from __future__ import annotations
 
 import json
+import os
 from pathlib import Path
 
 from scalewright.errors import StudyError
@@ -29,7 +30,19 @@ def _not_serialisable(value):
 
 
 def check_targets(folder: Path, stem: str) -> None:
-    """Refuse early, before any fitting, if an output would replace a user's file."""
+    """Refuse early, before any fitting, if the output folder cannot hold the
+    report or an output would replace a user's file."""
+    if folder.exists() and not folder.is_dir():
+        raise StudyError(f"{folder}: the output folder given with --out is a file, so the "
+                         "report cannot be written into it. Give the path of a folder (it is "
+                         "created if needed).")
+    existing = next(p for p in (folder.absolute(), *folder.absolute().parents) if p.exists())
+    if not existing.is_dir():
+        raise StudyError(f"{folder}: the output folder cannot be created because {existing} "
+                         "is a file. Give --out a path whose parent folders are folders.")
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise StudyError(f"{folder}: the report cannot be written there, because {existing} "
+                         "is not writable for you. Choose another output folder with --out.")
     for suffix, mark in (("json", JSON_MARK), ("html", HTML_MARK)):
         refuse_foreign(folder / f"{stem}.{suffix}", mark)
 
@@ -41,13 +54,18 @@ def write_outputs(result, folder: Path) -> dict[str, Path]:
     report = result.to_dict()
     stem = result.study.path.stem
     check_targets(folder, stem)
-    folder.mkdir(parents=True, exist_ok=True)
     texts = {"json": to_json(report), "html": render_html(report)}
     paths = {}
-    for suffix, text in texts.items():
-        target = folder / f"{stem}.{suffix}"
-        target.write_text(text, encoding="utf-8")
-        paths[suffix] = target
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        for suffix, text in texts.items():
+            target = folder / f"{stem}.{suffix}"
+            target.write_text(text, encoding="utf-8")
+            paths[suffix] = target
+    except OSError as exc:
+        raise StudyError(f"{exc.filename or folder}: the report could not be written "
+                         f"({exc.strerror or exc}). Check that the folder is writable and the "
+                         "disk is not full, or choose another output folder with --out.") from None
     return paths
 
 
