@@ -378,8 +378,10 @@ def test_item_names_must_be_text(tmp_path):
 
 
 @pytest.mark.parametrize("scale, found", [("[1, 5, 7]", r"a list \(\[1, 5, 7\]\)"),
-                                          ("[1, five]", r"a list \(\[1, 'five'\]\)"),
-                                          ("5", "the number 5")])
+                                          ("[1, five]", r"a list \(\[1, five\]\)"),
+                                          ("5", "the number 5"),
+                                          ("[1, .inf]", r"a list \(\[1, \.inf\]\)"),
+                                          ("[.nan, 5]", r"a list \(\[\.nan, 5\]\)")])
 def test_scale_must_be_two_numbers(tmp_path, scale, found):
     text = add_to_minimal(f"items:\n  scale: {scale}\n")
     with pytest.raises(StudyError, match=rf"line {line_of(text, 'scale:')}: 'scale' should be the "
@@ -395,11 +397,48 @@ def test_scale_low_must_be_below_high(tmp_path):
         load_study(write(tmp_path, text))
 
 
+def test_scale_with_equal_ends_asks_for_two_different_numbers(tmp_path):
+    text = add_to_minimal("items:\n  scale: [5, 5]\n")
+    with pytest.raises(StudyError, match=r"'scale' is \[5, 5\]: the lowest answer must come first "
+                                         r"and be below the highest\. Write the lowest and the "
+                                         r"highest possible answer, two different numbers"):
+        load_study(write(tmp_path, text))
+
+
+def test_values_are_shown_as_written_in_yaml_not_as_python_values(tmp_path):
+    text = MINIMAL.replace("  m1:\n    constructs:", "  m1:\n    - constructs:")
+    message = error_of(tmp_path, text)
+    assert "model 'm1' should hold 'key: value' lines, but it is a list ([{constructs: null, " \
+           "a: [q1, q2, q3], b: [q4, q5, q6]}])" in message
+    assert not re.search(r"[{\[]'|None|<class", message)
+
+
+def test_binary_value_is_described_in_words(tmp_path):
+    text = "study: !!binary aGVsbG8=\n" + MINIMAL
+    with pytest.raises(StudyError, match=r"line 1: 'study' should be text, but it is binary data "
+                                         r"\(a '!!binary' value\)"):
+        load_study(write(tmp_path, text))
+
+
+def test_a_date_where_text_is_expected_is_read_as_text(tmp_path):
+    text = "study: 2024-05-01\nabout:\n  sampling: 2024-05-02\n" + MINIMAL
+    study = load_study(write(tmp_path, text))
+    assert study.title == "2024-05-01" and study.about == {"sampling": "2024-05-02"}
+
+
 def test_hint_threshold_must_be_a_number(tmp_path):
     text = add_to_minimal("estimation:\n  hint_threshold: ten\n")
     with pytest.raises(StudyError, match=rf"line {line_of(text, 'ten')}: 'hint_threshold' under "
                                          r"'estimation' should be a number, but it is the text "
-                                         r"'ten'"):
+                                         r"'ten'\. Write it like this: hint_threshold: 10\."):
+        load_study(write(tmp_path, text))
+
+
+def test_an_infinite_number_is_refused(tmp_path):
+    text = add_to_minimal("estimation:\n  salience: .inf\n")
+    with pytest.raises(StudyError, match=r"'salience' under 'estimation' should be a finite number, "
+                                         r"but it is the number \.inf\. Write it like this: "
+                                         r"salience: 0\.4\."):
         load_study(write(tmp_path, text))
 
 
@@ -578,7 +617,7 @@ def test_cross_loading_on_the_items_own_construct(tmp_path):
 
 
 @pytest.mark.parametrize("pair, message", [
-    ("[q1]", r"entry 1 of 'residual_covariances' in model 'm1' is a list \(\['q1'\]\), not a pair "
+    ("[q1]", r"entry 1 of 'residual_covariances' in model 'm1' is a list \(\[q1\]\), not a pair "
              r"of item names"),
     ("[q1, q1]", r"the residual covariance pair \[q1, q1\] names the same item twice"),
     ("[q1, q9]", r"the residual covariance pair \[q1, q9\] names 'q9', which model 'm1' does not "

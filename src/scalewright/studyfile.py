@@ -19,6 +19,7 @@ against moments, identification) are not made here.
 
 from __future__ import annotations
 
+import datetime as _dt
 import difflib
 import math
 from dataclasses import dataclass, field
@@ -228,20 +229,43 @@ def _suggest(word: str, choices, lead: str = "the names in use are") -> str:
 
 
 def _describe(value) -> str:
-    """How a YAML value looks to a reader: "the number 5", "a list", ..."""
+    """How a YAML value looks to a reader: "the number 5", "a list ([1, five])", ..."""
     if value is None:
         return "nothing"
     if isinstance(value, bool):
         return f"{str(value).lower()} (a yes/no value)"
     if isinstance(value, (int, float)):
-        return f"the number {value}"
+        return f"the number {_flow(value)}"
     if isinstance(value, str):
         return f"the text '{value}'"
     if isinstance(value, list):
-        return f"a list ({value})"
+        return f"a list ({_flow(value)})"
     if isinstance(value, dict):
         return "a set of 'key: value' lines"
-    return f"'{value}' ({type(value).__name__})"
+    if isinstance(value, _dt.date):
+        return f"the date {value.isoformat()}"
+    if isinstance(value, bytes):
+        return "binary data (a '!!binary' value)"
+    return f"a value of a kind model files do not use ({_flow(value)})"
+
+
+def _flow(value, limit: int = 60) -> str:
+    """A value written back the way YAML's flow style shows it: [1, five], {a: 1},
+    cut to about `limit` characters."""
+    if value is None:
+        text = "null"
+    elif isinstance(value, bool):
+        text = str(value).lower()
+    elif isinstance(value, float) and not math.isfinite(value):
+        text = ".nan" if math.isnan(value) else ("-.inf" if value < 0 else ".inf")
+    elif isinstance(value, (list, tuple, set)):
+        text = "[" + ", ".join(_flow(v, limit) for v in value) + "]"
+    elif isinstance(value, dict):
+        text = "{" + ", ".join(f"{_flow(k, limit)}: {_flow(v, limit)}"
+                               for k, v in value.items()) + "}"
+    else:
+        text = str(value)
+    return text if len(text) <= limit else text[:limit - 3] + "..."
 
 
 def _name(keys: tuple) -> str:
@@ -378,6 +402,8 @@ class _Reader:
         """A non-empty string (numbers too, as text, where `numbers_ok`)."""
         if numbers_ok and isinstance(value, (int, float)) and not isinstance(value, bool):
             value = format_code(value)
+        if numbers_ok and isinstance(value, _dt.date):   # YAML reads 2024-05-01 as a date
+            value = value.isoformat()
         if not isinstance(value, str) or not value.strip():
             self.fail(keys, f"{_full(keys)} should be text, but it is {_describe(value)}",
                       f"Write it like this: {example}")
@@ -398,8 +424,9 @@ class _Reader:
         if value is None:
             return default
         if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            self.fail(keys, f"{_full(keys)} should be a number, but it is {_describe(value)}",
-                      f"Write it like this: {keys[-1]}: {default}")
+            kind = "a finite number" if isinstance(value, float) else "a number"
+            self.fail(keys, f"{_full(keys)} should be {kind}, but it is {_describe(value)}",
+                      f"Write it like this: {keys[-1]}: {default:g}")
         return float(value)
 
     def choice(self, keys: tuple, value, allowed: tuple, default: str) -> str:
@@ -636,15 +663,18 @@ def _items(r: _Reader, raw, models: tuple[ModelSpec, ...]):
     if raw.get("scale") is not None:
         value = raw["scale"]
         ok = (isinstance(value, list) and len(value) == 2
-              and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value))
+              and all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                      and math.isfinite(v) for v in value))
         if not ok:
             r.fail(keys + ("scale",), f"'scale' should be the lowest and highest answer, two "
                                       f"numbers, but it is {_describe(value)}",
                    "Write it like this: scale: [1, 5]")
         if not value[0] < value[1]:
-            r.fail(keys + ("scale",), f"'scale' is [{value[0]}, {value[1]}]: the lowest answer "
-                                      f"must come first and be below the highest",
-                   f"Write it as scale: [{min(value)}, {max(value)}] (two different numbers)")
+            r.fail(keys + ("scale",), f"'scale' is {_flow(value)}: the lowest answer must come "
+                                      f"first and be below the highest",
+                   "Write the lowest and the highest possible answer, two different numbers, "
+                   "e.g. scale: [1, 5]" if value[0] == value[1] else
+                   f"Write it as scale: {_flow([value[1], value[0]])}")
         scale = (float(value[0]), float(value[1]))
 
     wording_raw = raw.get("wording")
