@@ -7,6 +7,7 @@ are written by pandas, openpyxl, pyarrow and pyreadstat.  Values are compared
 exactly: the answers are small integers, exactly representable in float64.
 """
 
+import dataclasses
 import hashlib
 import textwrap
 import tracemalloc
@@ -280,6 +281,57 @@ def test_unreadable_data_file_says_which_format_was_expected(tmp_path):
     with pytest.raises(StudyError, match=r"line 2: the data file 'answers\.xlsx' could not be read "
                                          r"as a \.xlsx file \(.*\)\. Check that it opens"):
         read_items(study_for(tmp_path, "answers.xlsx"))
+
+
+def test_unreadable_data_file_names_the_reason_without_the_exception_class(tmp_path):
+    (tmp_path / "answers.csv").write_text("q1,q2,q3,q4\n1,2,3,4\n1,2,3\n")
+    with pytest.raises(StudyError) as info:
+        read_items(study_for(tmp_path, "answers.csv"))
+    # the reason is the CSV reader's (pyarrow) own words; the class name is left out
+    assert "could not be read as a .csv file (CSV parse error: Expected 4 columns, got 3" \
+        in str(info.value)
+    assert "Error:" not in str(info.value)
+
+
+def test_data_file_that_is_not_utf8_says_how_to_save_it(tmp_path):
+    frame = answers().rename(columns={"phase": "gr\u00fcppe"})
+    (tmp_path / "answers.csv").write_bytes(frame.to_csv(index=False).encode("latin-1"))
+    with pytest.raises(StudyError, match=r"line 2: the data file 'answers\.csv' is not UTF-8 text "
+                                         r"\(byte 0xfc at position \d+ is not UTF-8\)\. Save it as "
+                                         r"UTF-8 text \(in a spreadsheet program: CSV UTF-8\)"):
+        read_items(study_for(tmp_path, "answers.csv"))
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".xlsx"])
+def test_a_column_name_repeated_in_the_header_is_an_error(tmp_path, suffix):
+    # the readers would silently rename the second 'q2' to 'q2.1' and use the first
+    frame = answers()
+    frame.columns = [*frame.columns[:-1], "q2"]
+    name = "answers" + suffix
+    if suffix == ".csv":
+        frame.to_csv(tmp_path / name, index=False)
+    else:
+        frame.to_excel(tmp_path / name, index=False)
+    with pytest.raises(StudyError, match=r"line 2: the column name 'q2' appears 2 times in the "
+                                         rf"header of the data file 'answers\{suffix}' \(columns 3 "
+                                         r"and 6\), so it is not clear which column holds its "
+                                         r"answers\. Rename or delete the extra columns"):
+        read_items(study_for(tmp_path, name))
+
+
+@pytest.mark.parametrize("scale", [True, False])
+def test_an_infinite_answer_names_item_and_row(tmp_path, scale):
+    frame = answers()
+    frame.loc[6, "q3"] = np.inf
+    text = (tmp_path / write_csv(tmp_path, frame)).read_text()
+    assert "inf" in text  # written by pandas as 'inf', read back as infinity
+    study = study_for(tmp_path, "answers.csv")
+    if not scale:
+        study = dataclasses.replace(study, scale=None)
+    with pytest.raises(StudyError, match=r"line 2: in the data file 'answers\.csv', the item 'q3' "
+                                         r"holds an infinite value in 1 cell \(data row 7: inf\)\. "
+                                         r"Replace it with the answer given"):
+        read_items(study)
 
 
 def test_empty_data_file(tmp_path):

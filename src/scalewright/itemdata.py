@@ -85,8 +85,9 @@ def read_items(study: Study) -> ItemData:
     Raises
     ------
     StudyError
-        When the file is missing or unreadable, an item or the grouping column
-        is absent, an item column holds text, answers lie outside the response
+        When the file is missing, unreadable or not UTF-8 text, an item or the
+        grouping column is absent or its name is repeated in the header, an
+        item column holds text or an infinite value, answers lie outside the response
         range, an item is constant or has no answers, or there are more than
         10 groups without ``allow_many: true``.
     """
@@ -236,15 +237,46 @@ class _Source:
         return pyreadstat.read_sav if self.suffix == ".sav" else pyreadstat.read_dta
 
     def _unreadable(self, exc: Exception):
+        if isinstance(exc, UnicodeDecodeError):
+            self.fail(f"the data file '{self.shown}' is not UTF-8 text (byte "
+                      f"0x{exc.object[exc.start]:02x} at position {exc.start} is not UTF-8)",
+                      "Save it as UTF-8 text (in a spreadsheet program: CSV UTF-8), or as .xlsx")
+        reason = " ".join(str(exc).split())[:200] or "no reason given"
         self.fail(f"the data file '{self.shown}' could not be read as a {self.suffix} file "
-                  f"({type(exc).__name__}: {str(exc)[:200]})",
+                  f"({reason})",
                   "Check that it opens in the program that wrote it, that its extension "
                   "matches its format and that text files are saved as UTF-8")
+
+    def header(self) -> list[str]:
+        """The column names exactly as the file writes them (the readers rename a
+        repeated name, e.g. to 'q1.1'); only text files and workbooks can repeat one."""
+        try:
+            if self.suffix in (".csv", ".tsv", ".txt"):
+                row = pd.read_csv(self.path, sep=self._separator(), header=None, nrows=1,
+                                  dtype=str, encoding="utf-8")
+            elif self.suffix == ".xlsx":
+                row = pd.read_excel(self.path, sheet_name=self._sheet(), header=None, nrows=1,
+                                    dtype=str, engine="openpyxl")
+            else:
+                return []
+        except _READ_ERRORS as exc:
+            self._unreadable(exc)
+        return [str(name) for name in row.iloc[0] if not pd.isna(name)] if len(row) else []
 
     # columns present ---------------------------------------------------------
     def require(self, columns: dict[str, object]):
         """Every item, the id column and the grouping column must be columns of the file."""
         study = self.study
+        header = self.header()
+        for name in dict.fromkeys([*study.items, study.data.id_column,
+                                   study.groups and study.groups.column]):
+            where = [k + 1 for k, written in enumerate(header) if written == name]
+            if len(where) > 1:
+                self.fail(f"the column name '{name}' appears {len(where)} times in the header of "
+                          f"the data file '{self.shown}' (columns "
+                          f"{', '.join(map(str, where[:-1]))} and {where[-1]}), so it is not "
+                          f"clear which column holds its answers",
+                          "Rename or delete the extra columns in the data file")
         folded = {name.strip().casefold(): name for name in columns}
         absent = [item for item in study.items if item not in columns]
         if absent:
@@ -409,6 +441,15 @@ def _numbers(column: pd.Series, item: str, codes: _Codes, source: _Source, row_i
 def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
     """Answers inside the response range; no constant or empty item."""
     study = source.study
+    infinite = np.isinf(values)
+    if infinite.any():
+        j = int(np.flatnonzero(infinite.any(axis=0))[0])
+        rows = np.flatnonzero(infinite[:, j])
+        source.fail(f"in the data file '{source.shown}', the item '{items[j]}' holds an infinite "
+                    f"value in {rows.size} cell{'s' if rows.size > 1 else ''} "
+                    f"({_rows(rows, row_ids, [format_code(v) for v in values[rows[:_SHOW], j]])})",
+                    "Replace it with the answer given, or leave the cell empty if there was "
+                    "none")
     if study.scale is not None:
         low, high = study.scale
         with np.errstate(invalid="ignore"):
