@@ -69,3 +69,16 @@ def test_bifactor_with_one_specific_factor_is_refused(tmp_path, rng):
     models = "  m:\n    general: g\n    constructs:\n      a: [i1, i2, i3, i4]\n"
     with pytest.raises(StudyError, match=r"bifactor model 'm' has one specific factor"):
         scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_items_never_answered_together_are_named_not_a_crash(tmp_path, rng):
+    # with fewer complete rows than items the singularity check used the raw
+    # answers and numpy failed on NaN; now the pair is named
+    answers = likert(rng, 300, 6).astype(float)
+    answers[::2, 0] = np.nan
+    answers[1::2, 3] = np.nan
+    data = pd.DataFrame(answers, columns=[f"i{k}" for k in range(1, 7)])
+    models = "  m:\n    constructs:\n      a: [i1, i2, i3]\n      b: [i4, i5, i6]\n"
+    with pytest.raises(StudyError, match=r"answers\.csv: items 'i1' and 'i4' were never answered "
+                                         r"by the same person \(0 of 300 rows have both\)"):
+        scalewright.check(write_study(tmp_path, models, data))

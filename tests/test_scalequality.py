@@ -18,12 +18,15 @@ from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
+import pandas as pd
 import pingouin
 import pytest
 import semopy
 from numpy.testing import assert_allclose
+from scipy import optimize, stats
 
 import holzinger as hz
+import scalewright
 from scalewright.demo import population
 from scalewright.evaluate import evaluate_normal
 from scalewright.itemdata import read_items
@@ -484,3 +487,47 @@ def test_demo_bifactor_and_higher_order_models_get_their_keys(demo_keys):
     # the report reads these shapes (report/tables.py)
     assert {"omega_total", "omega_hierarchical", "ecv", "puc", "subscales"} <= set(
         higher["coefficients"])
+
+
+def test_alpha_without_complete_rows_uses_the_ml_covariance_of_every_answer(tmp_path):
+    # a three-form planned-missing design: every pair of items is answered together
+    # by someone, nobody answers all items of a construct, so there are no complete
+    # rows; alpha then comes from the saturated ML covariance, checked here against
+    # the observed-data normal likelihood maximised with scipy (an independent fit)
+    rng = np.random.default_rng(11)
+    n = 600
+    factors = rng.multivariate_normal([0, 0], [[1, 0.4], [0.4, 1]], n)
+    x = np.repeat(factors, 3, axis=1) * 0.7 + 0.7 * rng.standard_normal((n, 6))
+    form = np.arange(n) % 3
+    for k in range(3):
+        x[np.ix_(form == k, [k, k + 3])] = np.nan
+    items = [f"q{j}" for j in range(1, 7)]
+    pd.DataFrame(x, columns=items).to_csv(tmp_path / "answers.csv", index=False)
+    (tmp_path / "study.yaml").write_text(
+        "data: {file: answers.csv}\nmodels:\n  m:\n    constructs:\n"
+        "      a: [q1, q2, q3]\n      b: [q4, q5, q6]\n", encoding="utf-8")
+    entry = scalewright.check(tmp_path / "study.yaml").model("m").extra["reliability"][0]
+
+    block = x[:, :3]
+    lower = np.tril_indices(3)
+
+    def minus_loglik(theta):
+        chol = np.zeros((3, 3))
+        chol[lower] = theta[3:]
+        cov = chol @ chol.T
+        total = 0.0
+        for k in range(3):
+            seen = [j for j in range(3) if j != k]
+            rows = block[form == k][:, seen]
+            total -= stats.multivariate_normal(theta[:3][seen], cov[np.ix_(seen, seen)]
+                                               ).logpdf(rows).sum()
+        return total
+
+    start = np.concatenate([np.nanmean(block, axis=0), np.eye(3)[lower]])
+    fit = optimize.minimize(minus_loglik, start, method="BFGS", options={"gtol": 1e-8})
+    chol = np.zeros((3, 3))
+    chol[lower] = fit.x[3:]
+    cov = chol @ chol.T
+    alpha = 1.5 * (1 - np.trace(cov) / cov.sum())   # Cronbach (1951), k = 3
+    assert entry["alpha"] == pytest.approx(alpha, abs=1e-4)   # scipy ML fit above
+    assert any("estimated by EM from every answer" in note["message"] for note in entry["notes"])

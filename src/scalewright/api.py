@@ -235,7 +235,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         return model
     incomplete = np.isnan(x).any(axis=1)
     complete = x[~incomplete] if incomplete.any() else x
-    _check_sample_covariance(study, spec, complete if len(complete) > len(columns) else x)
+    _check_sample_covariance(spec, np.cov(complete, rowvar=False) if len(complete) > len(columns)
+                             else saturated_covariance(x, spec.items, data.file.name))
     model = evaluate_answers(spec, x, choice, data.file.name)
     saturated = None
     if model.estimate.method.endswith("fiml"):
@@ -290,9 +291,13 @@ def _merged_sparse_categories(study: Study, spec, choice, x: np.ndarray) -> np.n
     return merged
 
 
-def _check_sample_covariance(study: Study, spec, x: np.ndarray) -> None:
-    """A singular sample covariance matrix: name the linearly dependent items."""
-    cov = np.cov(x, rowvar=False)
+def _check_sample_covariance(spec, cov: np.ndarray) -> None:
+    """A singular sample covariance matrix: name the linearly dependent items.
+
+    ``cov`` is the covariance of the complete rows, or, when fewer rows than
+    items are complete (planned missingness), the saturated model's ML
+    covariance (EM), whose reading of the answers refuses items never answered
+    together."""
     values, vectors = np.linalg.eigh(cov / np.outer(np.sqrt(np.diag(cov)), np.sqrt(np.diag(cov))))
     if values[0] > 1e-10 * values[-1]:
         return

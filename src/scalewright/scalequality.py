@@ -27,6 +27,7 @@ from scipy import special, stats
 from scalewright.bifactor import bifactor_coefficients, higher_order_coefficients
 from scalewright.coefficient_types import Note, plain
 from scalewright.errors import StudyError
+from scalewright.estimate.fiml import saturated_covariance
 from scalewright.estimate.result import Estimate
 from scalewright.evaluate import estimate_columns
 from scalewright.itemreview import without_item
@@ -141,11 +142,10 @@ def _reliability(model_result: ModelResult, spec, x: np.ndarray, constructs: Seq
     out = []
     for k, (j, name, items) in enumerate(zip(constructs, names, members)):
         rows = [row[i] for i in items]
-        answered = x[:, rows][~np.isnan(x[:, rows]).any(axis=1)]
-        block = np.cov(answered, rowvar=False)
-        alpha = alpha_report(block, items, name, n_obs=len(answered), level=LEVEL)
+        block, used, from_em = _item_covariance(x[:, rows], items)
+        alpha = alpha_report(block, items, name, n_obs=used, level=LEVEL)
         analysis = item_analysis(block, items, name)
-        notes = list(alpha.notes) + _complete_rows_notes(name, len(answered), len(x))
+        notes = list(alpha.notes) + _complete_rows_notes(name, used, len(x), from_em)
         entry = {"construct": name, "n_items": len(items), "alpha": alpha.alpha,
                  "alpha_ci95": [alpha.interval.lower, alpha.interval.upper],
                  "standardized_alpha": alpha.standardized_alpha}
@@ -346,7 +346,26 @@ def _direction_notes(loadings: np.ndarray, items: Sequence[str], construct: str,
         "otherwise check the coding, or whether the construct joins two opposite ones."))]
 
 
-def _complete_rows_notes(construct: str, used: int, rows: int) -> list[Note]:
+def _item_covariance(x: np.ndarray, items: Sequence[str]) -> tuple[np.ndarray, int, bool]:
+    """The items' covariance for alpha, item analysis and HTMT: that of the rows
+    answering every item, or, when there are no more such rows than items (a
+    planned-missing design), the saturated model's ML covariance from every
+    answer (EM; Dempster, Laird & Rubin 1977).  Returns the matrix, the number of rows
+    behind it (complete rows, or rows with any answer) and whether EM gave it."""
+    complete = x[~np.isnan(x).any(axis=1)]
+    if len(complete) > x.shape[1]:
+        return np.cov(complete, rowvar=False), len(complete), False
+    answered = x[~np.isnan(x).all(axis=1)]
+    return saturated_covariance(answered, tuple(items), "the data file"), len(answered), True
+
+
+def _complete_rows_notes(construct: str, used: int, rows: int, from_em: bool) -> list[Note]:
+    if from_em:
+        return [Note(code="complete_rows", subject=construct, message=(
+            f"Too few rows answer all items of construct '{construct}' for a covariance matrix "
+            f"of complete answers, so alpha and the item analysis use the items' covariance "
+            f"estimated by EM from every answer, and the interval counts the {used} of {rows} "
+            "rows with any answer to them (approximate)."))]
     if used == rows:
         return []
     return [Note(code="complete_rows", subject=construct, message=(
@@ -390,14 +409,17 @@ def _validity(model_result: ModelResult, x: np.ndarray, constructs: Sequence[int
     factors = list(layout.factors)
     primary = np.array([factors.index(layout.primary[i]) if i in layout.primary else -1
                         for i in layout.items])
-    complete = x[~np.isnan(x).any(axis=1)]
-    ratio = htmt(np.corrcoef(complete, rowvar=False), primary, constructs, factors)
+    cov, used, from_em = _item_covariance(x, layout.items)
+    sd = np.sqrt(np.diag(cov))
+    ratio = htmt(cov / np.outer(sd, sd), primary, constructs, factors)
     out = {"htmt": [{"a": r.construct_a, "b": r.construct_b, "value": r.htmt,
                      "conventions": [c.to_dict() for c in r.conventions]} for r in ratio.rows],
            "notes": [n.to_dict() for n in ratio.notes]}
-    if len(complete) < len(x) and ratio.rows:
+    if used < len(x) and ratio.rows:
         out["notes"].append(Note(code="complete_rows", subject=layout.name, message=(
-            f"HTMT uses the {len(complete)} of {len(x)} rows that answer every item of model "
+            f"HTMT uses the item correlations estimated by EM from every answer, as too few "
+            f"rows answer every item of model '{layout.name}'." if from_em else
+            f"HTMT uses the {used} of {len(x)} rows that answer every item of model "
             f"'{layout.name}'.")).to_dict())
     if not model_result.converged:
         out["notes"].append(Note(code="not_converged", subject=layout.name, message=(
