@@ -82,3 +82,18 @@ def test_items_never_answered_together_are_named_not_a_crash(tmp_path, rng):
     with pytest.raises(StudyError, match=r"answers\.csv: items 'i1' and 'i4' were never answered "
                                          r"by the same person \(0 of 300 rows have both\)"):
         scalewright.check(write_study(tmp_path, models, data))
+
+
+def test_a_problem_the_estimation_core_finds_is_placed_at_the_model(tmp_path, rng):
+    # the ordinal route's category check knows no file; the message gets the
+    # model's line, and the scale is written as in the file (1-5, not 1.0-5.0)
+    answers = likert(rng, 300, 6)
+    answers[answers[:, 0] == 3, 0] = 2
+    data = pd.DataFrame(answers, columns=[f"i{k}" for k in range(1, 7)])
+    models = "  m:\n    constructs:\n      a: [i1, i2, i3]\n      b: [i4, i5, i6]\n"
+    extra = "items:\n  scale: [1, 5]\n  treat_as: ordinal\n"
+    with pytest.raises(StudyError, match=r"^study\.yaml, line 8: in model 'm': Item 'i1' is "
+                                         r"declared on a 1-5 scale but nobody answered 3 .* by "
+                                         r"setting collapse_sparse: true under items: in the "
+                                         r"model file"):
+        scalewright.check(write_study(tmp_path, models, data, extra))

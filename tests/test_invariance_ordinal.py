@@ -413,7 +413,7 @@ def test_a_group_that_never_uses_a_category_is_named_with_the_item_and_the_categ
     frame.loc[secondary & (frame["y2"] == 1), "y2"] = 2
     path = write_study(tmp_path, frame)
     with pytest.raises(StudyError, match=r"in group 'secondary' \(grouping column 'phase'\) "
-                       r"nobody answered 1 to item 'y2'.*`collapse_sparse: true` under `items:`"):
+                       r"nobody answered 1 to item 'y2'.*collapse_sparse: true under items:"):
         api.check(path)
 
 

@@ -306,7 +306,7 @@ def test_unused_category_in_declared_scale_offers_collapsing():
     x = np.repeat([1.0, 2.0, 3.0, 5.0], [12, 40, 33, 15])
     with pytest.raises(StudyError, match=r"Item 'q3' is declared on a 1-5 scale but nobody answered 4 "
                                          r"\(answers per category: 1: 12, 2: 40, 3: 33, 4: 0, 5: 15\)"
-                                         r".*`collapse_sparse: true` under `items:`"):
+                                         r".*collapse_sparse: true under items:"):
         thresholds(x, item="q3", scale=(1, 5))
 
 

@@ -146,7 +146,7 @@ def _checked(study: Study) -> CheckResult:
     choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
-    models = tuple(_fit_model(study, spec, data, rows, choice) for spec in study.models)
+    models = tuple(_fit_placed(study, spec, data, rows, choice) for spec in study.models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models],
                                 {m.name: m.fitted for m in models
@@ -203,6 +203,17 @@ def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
             f"fewer than the {p_max + 1} needed for {p_max} items. Check the missing-value codes "
             "under data: missing:, or drop items that many people left unanswered.")
     return rows
+
+
+def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:
+    """:func:`_fit_model`; a problem the estimation core finds (it knows no files)
+    is said at the model's place in the model file."""
+    try:
+        return _fit_model(study, spec, data, rows, choice)
+    except StudyError as exc:
+        if str(exc).startswith((study.path.name, data.file.name)):
+            raise
+        raise StudyError(f"{spec.place}: in model '{spec.name}': {exc}") from None
 
 
 def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:

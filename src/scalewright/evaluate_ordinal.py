@@ -283,7 +283,7 @@ def sparse_category_notes(items: Sequence[str], categories: Sequence[np.ndarray]
             out.append(f"Item '{item}' has sparse categories: {listed}. Their thresholds rest "
                        f"on fewer than {min_count} answers each and make the polychoric "
                        "correlations of this item unstable; to merge them into a neighbouring "
-                       "category, set `collapse_sparse: true` under `items:` in the model file.")
+                       "category, set collapse_sparse: true under items: in the model file.")
     return out
 
 

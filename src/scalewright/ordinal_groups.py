@@ -214,7 +214,7 @@ def _require_every_category(x, index, labels, items, scale, column, place) -> No
             f"'{labels[g]}': {tally}; answers of {format_code(categories[k])} in the other "
             f"groups: {', '.join(others)}). Thresholds can be compared across groups only when "
             f"every group uses every category, because a threshold is not defined in a group "
-            f"where one side of it is empty. Set `collapse_sparse: true` under `items:` in "
+            f"where one side of it is empty. Set collapse_sparse: true under items: in "
             f"the model file to merge sparse categories into a neighbour the same way in every "
             f"group, or leave '{item}' out of the model.")
 
@@ -233,7 +233,7 @@ def _sparse_notes(x, index, labels, items, min_count) -> list[str]:
             out.append(f"Item '{item}' has sparse categories within groups: {listed}. Their "
                        f"thresholds rest on fewer than {min_count} answers in that group; to "
                        "merge them into a neighbouring category in every group, set "
-                       "`collapse_sparse: true` under `items:` in the model file.")
+                       "collapse_sparse: true under items: in the model file.")
     return out
 
 

@@ -506,7 +506,7 @@ def _observed_categories(x, item, scale):
         outside = categories[(categories < scale[0]) | (categories > scale[1])]
         if outside.size:
             raise StudyError(
-                f"Item '{item}' is declared on a {scale[0]}-{scale[1]} scale but has "
+                f"Item '{item}' is declared on a {_fmt(scale[0])}-{_fmt(scale[1])} scale but has "
                 f"the answer {_fmt(outside[0])}. Correct the declared range, or "
                 f"declare {_fmt(outside[0])} as a missing-value code in the model file."
             )
@@ -521,11 +521,11 @@ def _require_all_used(categories, counts, item, scale):
             f"{_fmt(v)}: {c}" for v, c in zip(declared, _counts_on(declared, categories, counts))
         )
         raise StudyError(
-            f"Item '{item}' is declared on a {scale[0]}-{scale[1]} scale but nobody "
+            f"Item '{item}' is declared on a {_fmt(scale[0])}-{_fmt(scale[1])} scale but nobody "
             f"answered {' or '.join(_fmt(v) for v in unused)} (answers per category: "
             f"{tally}). Every category needs answers for its thresholds: merge "
             f"sparse categories into their neighbours by setting "
-            f"`collapse_sparse: true` under `items:` in the model file, or correct "
+            f"collapse_sparse: true under items: in the model file, or correct "
             f"the declared range."
         )
 
@@ -625,7 +625,7 @@ def _require_inside(rho, tables, lower, upper, jj, ll, items):
             f"perfectly ordered with each other, which usually means the two items "
             f"are duplicates or a category is almost empty. Leave one of the two "
             f"items out of the model, or merge sparse categories by setting "
-            f"`collapse_sparse: true` under `items:` in the model file."
+            f"collapse_sparse: true under items: in the model file."
         )
 
 
