@@ -159,6 +159,16 @@ def test_xlsx_sheet_is_chosen_by_name(tmp_path):
     np.testing.assert_array_equal(data.values, expected(frame))
 
 
+def test_items_absent_from_the_first_sheet_point_to_the_other_sheets(tmp_path):
+    with pd.ExcelWriter(tmp_path / "book.xlsx", engine="openpyxl") as book:
+        pd.DataFrame({"note": ["not the data"]}).to_excel(book, sheet_name="Notes", index=False)
+        answers().to_excel(book, sheet_name="Answers", index=False)
+    with pytest.raises(StudyError, match=r"The file's columns are: note\. Only the workbook's first "
+                                         r"sheet, 'Notes', was read; to read another \('Answers'\), "
+                                         r"name it with sheet: under data:\.$"):
+        read_items(study_for(tmp_path, "book.xlsx"))
+
+
 def test_sav_value_labels_are_not_applied(tmp_path):
     frame = answers()
     labels = {"q1": {1.0: "never", 2.0: "rarely", 3.0: "sometimes", 4.0: "often", 5.0: "always"}}
@@ -429,6 +439,13 @@ def test_constant_item_is_an_error(tmp_path):
     with pytest.raises(StudyError, match=r"line 10: .*everyone who answered the item 'q2' gave the "
                                          r"same answer \(3; 38 answers\)\. An item without "
                                          r"variation"):
+        read_items(study_for(tmp_path, write_csv(tmp_path, frame)))
+
+
+def test_an_item_answered_once_is_constant_in_the_singular(tmp_path):
+    frame = answers()
+    frame["q2"] = np.where(frame.index == 0, 3.0, -9.0)
+    with pytest.raises(StudyError, match=r"gave the same answer \(3; 1 answer\)\. An item"):
         read_items(study_for(tmp_path, write_csv(tmp_path, frame)))
 
 

@@ -219,12 +219,7 @@ class _Source:
         sheet = self.study.data.sheet
         if sheet is None:
             return 0
-        try:
-            book = openpyxl.load_workbook(self.path, read_only=True)
-        except _READ_ERRORS as exc:
-            self._unreadable(exc)
-        names = book.sheetnames
-        book.close()
+        names = self._sheet_names()
         if sheet not in names:
             close = difflib.get_close_matches(sheet, names, n=1)
             hint = f"Did you mean '{close[0]}'? " if close else ""
@@ -232,6 +227,26 @@ class _Source:
                       f"{hint}Its sheets are: {', '.join(names)}",
                       self.study.place_of("data", "sheet"))
         return sheet
+
+    def _sheet_names(self) -> list[str]:
+        try:
+            book = openpyxl.load_workbook(self.path, read_only=True)
+        except _READ_ERRORS as exc:
+            self._unreadable(exc)
+        names = book.sheetnames
+        book.close()
+        return names
+
+    def _other_sheets(self) -> str:
+        """A hint when the first sheet of a workbook was read by default and there are others."""
+        if self.suffix != ".xlsx" or self.study.data.sheet is not None:
+            return ""
+        names = self._sheet_names()
+        if len(names) < 2:
+            return ""
+        others = ", ".join(f"'{name}'" for name in names[1:])
+        return (f" Only the workbook's first sheet, '{names[0]}', was read; to read another "
+                f"({others}), name it with sheet: under data:.")
 
     def _stat_reader(self):
         return pyreadstat.read_sav if self.suffix == ".sav" else pyreadstat.read_dta
@@ -292,7 +307,7 @@ class _Source:
                       f"{'a column' if len(absent) == 1 else 'columns'} of the data file "
                       f"'{self.shown}'",
                       f"Use the column names exactly as written in the file's header, or "
-                      f"rename the columns.{listing}")
+                      f"rename the columns.{listing}{self._other_sheets()}")
         for keys, column, role in ((("data", "id"), study.data.id_column, "id column"),
                                    (("groups", "column"),
                                     study.groups and study.groups.column, "grouping column")):
@@ -481,7 +496,7 @@ def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
         value = float(np.nanmin(values[:, j]))
         source.fail(f"in the data file '{source.shown}', everyone who answered the item "
                     f"'{items[j]}' gave the same answer ({format_code(value)}; "
-                    f"{answered[j]} answers)",
+                    f"{answered[j]} answer{'s' if answered[j] > 1 else ''})",
                     "An item without variation carries no information: remove it from the "
                     "models, or check that the right column was exported",
                     _item_place(study, items[j]))
