@@ -58,3 +58,26 @@ def test_draft_writes_where_asked(demo_csv, tmp_path):
     target.parent.mkdir()
     path = draft_model_file(demo_csv, target)
     assert path == target and load_study(target).data.file == demo_csv.resolve()
+
+
+@pytest.mark.parametrize("name, content, message", [
+    ("answers.xlsx", b"not a workbook", r"answers\.xlsx: the file could not be read \(File is not "
+                                        r"a zip file\)\. Check that it opens"),
+    ("answers.sav", b"\x00garbage", r"answers\.sav: the file could not be read \(.+\)\. Check that "
+                                    r"it opens"),
+    ("answers.csv", b"", r"answers\.csv: the file is empty\. Name a file with a header row"),
+    ("answers.csv", "q1,gr\u00fcppe\n1,2\n".encode("latin-1"),
+     r"answers\.csv: the file is not UTF-8 text \(byte 0xfc is not UTF-8\)\. Save it as UTF-8"),
+])
+def test_draft_of_an_unreadable_data_file_says_why(tmp_path, name, content, message):
+    (tmp_path / name).write_bytes(content)
+    with pytest.raises(StudyError, match=message):
+        draft_model_file(tmp_path / name)
+
+
+def test_draft_of_a_folder_or_into_a_missing_folder(demo_csv, tmp_path):
+    with pytest.raises(StudyError, match=r"this is a folder, not a data file"):
+        draft_model_file(tmp_path)
+    with pytest.raises(StudyError, match=r"model\.yaml: the draft could not be written \(No such "
+                                         r"file or directory\)\. Check that the folder exists"):
+        draft_model_file(demo_csv, tmp_path / "nowhere" / "model.yaml")

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from scalewright.errors import StudyError
+from scalewright.itemdata import READ_ERRORS
 from scalewright.studyfile import DATA_FORMATS
 
 PREVIEW_ROWS = 5000
@@ -42,13 +43,22 @@ def draft_model_file(data_file: str | Path, target: str | Path | None = None) ->
             "file with --to PATH, or move the existing one away.")
     scale, codes = _scale_and_codes(table[items].to_numpy(float))
     text = _render(data_path, target, items, others, scale, codes, _constructs(items))
-    target.write_text(text, encoding="utf-8")
+    try:
+        with open(target, "x", encoding="utf-8") as handle:   # "x": never replace a file
+            handle.write(text)
+    except OSError as exc:
+        raise StudyError(f"{target}: the draft could not be written ({exc.strerror}). Check "
+                         "that the folder exists and is writable, or name another file with "
+                         "--to PATH.") from None
     return target
 
 
 def _preview(path: Path) -> pd.DataFrame:
     """The first rows of a data file, for guessing its items."""
     suffix = path.suffix.lower()
+    if path.is_dir():
+        raise StudyError(f"{path}: this is a folder, not a data file. Give the path of the "
+                         "data file itself.")
     if not path.is_file():
         raise StudyError(f"{path}: no such data file. Check the path and the file name.")
     if suffix not in DATA_FORMATS:
@@ -66,10 +76,19 @@ def _preview(path: Path) -> pd.DataFrame:
         import pyreadstat
         reader = pyreadstat.read_sav if suffix == ".sav" else pyreadstat.read_dta
         return reader(path, row_limit=PREVIEW_ROWS, apply_value_formats=False)[0]
-    except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise StudyError(f"{path.name}: the file could not be read ({exc}). Check that it "
+    except pd.errors.EmptyDataError:
+        raise StudyError(f"{path.name}: the file is empty. Name a file with a header row of "
+                         "column names and one row per person.") from None
+    except UnicodeDecodeError as exc:
+        raise StudyError(f"{path.name}: the file is not UTF-8 text (byte "
+                         f"0x{exc.object[exc.start]:02x} is not UTF-8). "
+                         "Save it as UTF-8 text (in a spreadsheet program: CSV UTF-8), or as "
+                         ".xlsx.") from None
+    except READ_ERRORS as exc:
+        reason = " ".join(str(exc).split())[:200] or "no reason given"
+        raise StudyError(f"{path.name}: the file could not be read ({reason}). Check that it "
                          "opens in the program that wrote it and that its extension matches "
-                         "its format.") from exc
+                         "its format.") from None
 
 
 def _split_columns(table: pd.DataFrame) -> tuple[list[str], list[str]]:

@@ -34,7 +34,8 @@ _CHUNK = 1 << 20  # bytes per read when hashing the data file
 _SHOW = 5  # example cells quoted in a message
 _MANY_GROUPS = 10  # more groups than this must be confirmed with allow_many: true
 _CELLS_AT_ONCE = 1 << 21  # cells of numeric item columns converted to float per step (16 MB)
-_READ_ERRORS = (OSError, ValueError, pa.ArrowException, pyreadstat.ReadstatError,
+#: what the readers raise for a file they cannot read (also caught by ``draft``)
+READ_ERRORS = (OSError, ValueError, pa.ArrowException, pyreadstat.ReadstatError,
                 zipfile.BadZipFile, KeyError)
 
 
@@ -188,7 +189,7 @@ class _Source:
         except pd.errors.EmptyDataError:
             self.fail(f"the data file '{self.shown}' is empty",
                       "Name a file with a header row of column names and one row per person")
-        except _READ_ERRORS as exc:
+        except READ_ERRORS as exc:
             self._unreadable(exc)
         columns = {str(label): label for label in labels}
         if self.suffix == ".csv" and len(columns) == 1:
@@ -231,7 +232,7 @@ class _Source:
     def _sheet_names(self) -> list[str]:
         try:
             book = openpyxl.load_workbook(self.path, read_only=True)
-        except _READ_ERRORS as exc:
+        except READ_ERRORS as exc:
             self._unreadable(exc)
         names = book.sheetnames
         book.close()
@@ -254,7 +255,7 @@ class _Source:
     def _unreadable(self, exc: Exception):
         if isinstance(exc, UnicodeDecodeError):
             self.fail(f"the data file '{self.shown}' is not UTF-8 text (byte "
-                      f"0x{exc.object[exc.start]:02x} at position {exc.start} is not UTF-8)",
+                      f"0x{exc.object[exc.start]:02x} is not UTF-8)",
                       "Save it as UTF-8 text (in a spreadsheet program: CSV UTF-8), or as .xlsx")
         reason = " ".join(str(exc).split())[:200] or "no reason given"
         self.fail(f"the data file '{self.shown}' could not be read as a {self.suffix} file "
@@ -274,7 +275,7 @@ class _Source:
                                     dtype=str, engine="openpyxl")
             else:
                 return []
-        except _READ_ERRORS as exc:
+        except READ_ERRORS as exc:
             self._unreadable(exc)
         return [str(name) for name in row.iloc[0] if not pd.isna(name)] if len(row) else []
 
@@ -336,7 +337,7 @@ class _Source:
             if self.suffix == ".parquet":
                 return pd.read_parquet(self.path, columns=labels)
             return self._stat_reader()(self.path, usecols=labels, apply_value_formats=False)[0]
-        except _READ_ERRORS as exc:
+        except READ_ERRORS as exc:
             self._unreadable(exc)
 
 
