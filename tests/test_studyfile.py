@@ -373,8 +373,28 @@ def test_item_list_must_be_a_list(tmp_path):
 def test_item_names_must_be_text(tmp_path):
     text = MINIMAL.replace("a: [q1, q2, q3]", "a: [q1, 7, q3]")
     with pytest.raises(StudyError, match=r"entry 2 of 'a' under 'constructs' in model 'm1' is "
-                                         r"the number 7, not an item name.*in quotes"):
+                                         r"the number 7, not an item name.*in quotes, e\.g\. "
+                                         r"'7'\."):
         load_study(write(tmp_path, text))
+
+
+@pytest.mark.parametrize("entry, found", [("null", "nothing"), ("''", "the text ''")])
+def test_an_empty_item_entry_asks_for_the_name(tmp_path, entry, found):
+    text = MINIMAL.replace("a: [q1, q2, q3]", f"a: [q1, {entry}, q3]")
+    with pytest.raises(StudyError, match=rf"entry 2 of 'a' under 'constructs' in model 'm1' is "
+                                         rf"{found}, not an item name\. Write the item name there, "
+                                         rf"or remove the empty entry\.$"):
+        load_study(write(tmp_path, text))
+
+
+@pytest.mark.parametrize("old, new, message", [
+    ("      a: [q1", "      '': [q1", r"line 6: the name the text '' under 'constructs' in model "
+                                      r"'m1' is not a name"),
+    ("  m1:", "  ' ':", r"line 4: the model name the text ' ' is not a name"),
+])
+def test_blank_construct_and_model_names_are_refused(tmp_path, old, new, message):
+    with pytest.raises(StudyError, match=message):
+        load_study(write(tmp_path, MINIMAL.replace(old, new)))
 
 
 @pytest.mark.parametrize("scale, found", [("[1, 5, 7]", r"a list \(\[1, 5, 7\]\)"),

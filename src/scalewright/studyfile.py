@@ -447,10 +447,12 @@ class _Reader:
         for index, name in enumerate(value):
             if not isinstance(name, str) or not name.strip():
                 article = "an" if what[0] in "aeiou" else "a"
+                fix = (f"Write {what} names as text; put a name that looks like a number or "
+                       f"yes/no in quotes, e.g. '{_flow(name)}'"
+                       if isinstance(name, (int, float)) else
+                       f"Write the {what} name there, or remove the empty entry")
                 self.fail(keys + (index,), f"entry {index + 1} of {_full(keys)} is "
-                                           f"{_describe(name)}, not {article} {what} name",
-                          f"Write {what} names as text; put a name that looks like a number "
-                          f"or yes/no in quotes, e.g. '{name}'")
+                                           f"{_describe(name)}, not {article} {what} name", fix)
         seen: dict[str, int] = {}
         for index, name in enumerate(value):
             if name in seen:
@@ -468,10 +470,10 @@ class _Reader:
                             f"{_describe(value)}", f"Write it like this: {example}")
         out = {}
         for name, entries in value.items():
-            if not isinstance(name, str):
+            if not isinstance(name, str) or not name.strip():
                 self.fail(keys + (name,), f"the name {_describe(name)} under {_full(keys)} is "
-                                          f"not text", "Use a name that starts with a letter, "
-                                                       "or put it in quotes")
+                                          f"not {'text' if not isinstance(name, str) else 'a name'}",
+                          "Use a name that starts with a letter, or put it in quotes")
             out[name] = self.names(keys + (name,), entries, what, example)
         return out
 
@@ -735,8 +737,9 @@ def _models(r: _Reader, raw, default_identification: str) -> tuple[ModelSpec, ..
                "[wl1, wl2, wl3]}}}")
     models = []
     for name, body in raw.items():
-        if not isinstance(name, str):
-            r.fail(("models", name), f"the model name {_describe(name)} is not text",
+        if not isinstance(name, str) or not name.strip():
+            r.fail(("models", name), f"the model name {_describe(name)} is not "
+                                     f"{'text' if not isinstance(name, str) else 'a name'}",
                    "Start the name with a letter, or put it in quotes")
         models.append(_model(r, name, body, default_identification))
 
