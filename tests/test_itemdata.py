@@ -344,6 +344,19 @@ def test_an_infinite_answer_names_item_and_row(tmp_path, scale):
         read_items(study)
 
 
+def test_an_answer_whose_square_overflows_is_an_error(tmp_path):
+    # sqrt(float64 max / 40 rows) is about 2.1e153: the sum of squares of 1e160 overflows
+    frame = answers()
+    frame.loc[3, "q1"] = 1e160
+    study = dataclasses.replace(study_for(tmp_path, write_csv(tmp_path, frame)), scale=None)
+    with pytest.raises(StudyError, match=r"the item 'q1' holds a value too large to compute with "
+                                         r"in 1 cell \(data row 4: 1e\+160\)\. Correct the cell"):
+        read_items(study)
+    frame.loc[3, "q1"] = 1e150     # large, but every sum of squares stays finite
+    study = dataclasses.replace(study_for(tmp_path, write_csv(tmp_path, frame)), scale=None)
+    assert read_items(study).values[3, 0] == 1e150
+
+
 def test_empty_data_file(tmp_path):
     (tmp_path / "answers.csv").write_text("")
     with pytest.raises(StudyError, match=r"the data file 'answers\.csv' is empty"):

@@ -88,7 +88,8 @@ def read_items(study: Study) -> ItemData:
     StudyError
         When the file is missing, unreadable or not UTF-8 text, an item or the
         grouping column is absent or its name is repeated in the header, an
-        item column holds text or an infinite value, answers lie outside the response
+        item column holds text or an infinite or overflowing value, answers lie
+        outside the response
         range, an item is constant or has no answers, or there are more than
         10 groups without ``allow_many: true``.
     """
@@ -466,6 +467,17 @@ def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
                     f"({_rows(rows, row_ids, [format_code(v) for v in values[rows[:_SHOW], j]])})",
                     "Replace it with the answer given, or leave the cell empty if there was "
                     "none")
+    # beyond this size the sum of squares over the rows overflows float64
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(values) > np.sqrt(np.finfo(np.float64).max / max(values.shape[0], 1))
+    if huge.any():
+        j = int(np.flatnonzero(huge.any(axis=0))[0])
+        rows = np.flatnonzero(huge[:, j])
+        source.fail(f"in the data file '{source.shown}', the item '{items[j]}' holds a value too "
+                    f"large to compute with in {rows.size} cell{'s' if rows.size > 1 else ''} "
+                    f"({_rows(rows, row_ids, [f'{v:.3g}' for v in values[rows[:_SHOW], j]])})",
+                    "Correct the cell; giving the response range with scale: under items: "
+                    "catches such values as answers outside the range")
     if study.scale is not None:
         low, high = study.scale
         with np.errstate(invalid="ignore"):
