@@ -199,6 +199,16 @@ def test_output_folder_without_write_permission_is_refused(tmp_path, monkeypatch
         check_targets(tmp_path / "reports", "study")
 
 
+def test_a_foreign_tables_folder_is_refused_before_fitting(demo_copy, tmp_path):
+    tables = tmp_path / "t"
+    tables.mkdir()
+    (tables / "thesis.docx").write_text("mine")
+    assert main(["check", str(demo_copy), "--out", str(tmp_path / "r"), "--tables",
+                 str(tables)]) == 2
+    assert not (tmp_path / "r").exists()        # nothing was fitted or written
+    assert [p.name for p in tables.iterdir()] == ["thesis.docx"]
+
+
 def test_output_replaces_its_own_earlier_report(demo_copy, tmp_path):
     out = tmp_path / "r"
     out.mkdir()

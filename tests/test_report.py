@@ -30,6 +30,7 @@ import pytest
 
 from scalewright import api
 from scalewright.errors import StudyError
+from scalewright.output import to_json
 from scalewright.report.checklist import checklist_rows
 from scalewright.report.document import build_document, export_tables
 from scalewright.report.narrative import favoured, methods_paragraphs, summary_paragraphs
@@ -957,6 +958,15 @@ def test_tables_are_not_written_into_a_folder_of_other_files(tmp_path):
     (tmp_path / "thesis.docx").write_text("mine")
     with pytest.raises(StudyError, match="holds files that scalewright did not write"):
         export_tables(demo_report(), tmp_path)
+
+
+def test_tables_may_share_the_folder_of_the_report(tmp_path):
+    # --out and --tables naming one folder: the report written there first is scalewright's
+    report = demo_report()
+    (tmp_path / "study.json").write_text(to_json(report), encoding="utf-8")
+    (tmp_path / "study.html").write_text(render_html(report), encoding="utf-8")
+    export_tables(report, tmp_path)
+    assert (tmp_path / "01-summary-fit.csv").is_file()
 
 
 def test_tables_of_an_earlier_run_are_replaced(tmp_path):

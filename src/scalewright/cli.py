@@ -59,6 +59,9 @@ def _parser() -> argparse.ArgumentParser:
 def _run(args) -> int:
     from scalewright import api
     if args.command == "check":
+        if args.tables is not None:       # refused before the models are fitted
+            from scalewright.report.tables import check_tables_folder
+            check_tables_folder(args.tables)
         result = api.check(args.model_file, out=args.out)
         _summarise(result, args.out)
         _extras(result, args)

@@ -43,8 +43,8 @@ def check_targets(folder: Path, stem: str) -> None:
     if not os.access(existing, os.W_OK | os.X_OK):
         raise StudyError(f"{folder}: the report cannot be written there, because {existing} "
                          "is not writable for you. Choose another output folder with --out.")
-    for suffix, mark in (("json", JSON_MARK), ("html", HTML_MARK)):
-        refuse_foreign(folder / f"{stem}.{suffix}", mark)
+    for suffix in ("json", "html"):
+        refuse_foreign(folder / f"{stem}.{suffix}")
 
 
 def write_outputs(result, folder: Path) -> dict[str, Path]:
@@ -69,13 +69,21 @@ def write_outputs(result, folder: Path) -> dict[str, Path]:
     return paths
 
 
-def refuse_foreign(target: Path, mark: str) -> None:
+def written_by_scalewright(path: Path) -> bool:
+    """Whether ``path`` is a file scalewright wrote: a report's JSON, HTML or PDF."""
+    if path.suffix == ".pdf":
+        from scalewright.report.pdf import printed_by_scalewright
+        return printed_by_scalewright(path)
+    mark = {".json": JSON_MARK, ".html": HTML_MARK}.get(path.suffix)
+    if mark is None or not path.is_file():
+        return False
+    with open(path, encoding="utf-8", errors="replace") as fh:
+        return mark in fh.read(4096)
+
+
+def refuse_foreign(target: Path) -> None:
     """Raise StudyError if ``target`` exists and was not written by scalewright."""
-    if not target.exists():
-        return
-    with open(target, encoding="utf-8", errors="replace") as fh:
-        head = fh.read(4096)
-    if mark not in head:
+    if target.exists() and not written_by_scalewright(target):
         raise StudyError(
             f"{target}: this file already exists and was not written by scalewright, so it "
             "will not be overwritten. Choose another output folder with --out, or move the "

@@ -28,13 +28,17 @@ INSTALL_HINT = ("To print the report to PDF, install Chromium, e.g. on Debian or
 _TITLE_MARK = "— structure check".encode("utf-16-be").hex().upper().encode()
 
 
+def printed_by_scalewright(pdf_path: Path) -> bool:
+    """Whether ``pdf_path`` is a file holding a report scalewright printed."""
+    if not pdf_path.is_file():
+        return False
+    with open(pdf_path, "rb") as fh:   # Chromium writes the document information first
+        return _TITLE_MARK in fh.read(65536)
+
+
 def _refuse_foreign(pdf_path: Path) -> None:
     """A StudyError if ``pdf_path`` exists and is not a report scalewright printed."""
-    if not pdf_path.exists():
-        return
-    with open(pdf_path, "rb") as fh:   # Chromium writes the document information first
-        head = fh.read(65536)
-    if _TITLE_MARK not in head:
+    if pdf_path.exists() and not printed_by_scalewright(pdf_path):
         raise StudyError(f"{pdf_path}: this file already exists and is not a report printed by "
                          "scalewright, so it will not be overwritten. Choose another output "
                          "folder with --out, or move the file away.")

@@ -17,6 +17,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from scalewright.errors import StudyError
+from scalewright.output import written_by_scalewright
 from scalewright.report.charts import frequency_chart, frequency_text
 from scalewright.report.conventions import (FIT_CUTOFFS, MEETS, MISSES, RELIABILITY_MINIMUM,
                                             RELIABILITY_SOURCE, ROBUST, SALIENCE, cutoff_note,
@@ -882,24 +883,33 @@ def checklist_table(rows: list[dict]) -> Table:
 MANIFEST = ".scalewright-tables"
 
 
+def check_tables_folder(folder: Path) -> None:
+    """Refuse a tables folder that is a file or holds files scalewright did not
+    write (its own reports count as its own: --out and --tables may name the
+    same folder); called before the check runs and again before writing."""
+    if folder.exists() and not folder.is_dir():
+        raise StudyError(f"{folder}: the tables folder given with --tables is a file. Give the "
+                         "path of a folder (it is created if needed).")
+    if folder.is_dir() and not (folder / MANIFEST).exists() and not all(
+            written_by_scalewright(path) for path in folder.iterdir()):
+        raise StudyError(f"{folder}: this folder already holds files that scalewright did not "
+                         "write, so the tables will not be written there. Give --tables a new "
+                         "or empty folder.")
+
+
 def write_tables(tables, folder: Path) -> list[Path]:
     """Write each table as ``NN-key.csv`` and ``NN-key.md`` into ``folder``.
 
-    The folder must be new, empty, or one scalewright wrote tables into
-    before (it holds the manifest file :data:`MANIFEST`); the tables of the
-    earlier run are replaced.  Any other folder is refused with a
-    StudyError, so that no file scalewright did not write is overwritten.
+    The folder must be new, empty, hold only scalewright's reports, or be one
+    scalewright wrote tables into before (it holds the manifest file
+    :data:`MANIFEST`); the tables of the earlier run are replaced.  Any other
+    folder is refused with a StudyError (:func:`check_tables_folder`), so that
+    no file scalewright did not write is overwritten.
     Returns the paths written, in table order.
     """
     folder = Path(folder)
     manifest = folder / MANIFEST
-    if folder.exists() and not folder.is_dir():
-        raise StudyError(f"{folder}: the tables folder given with --tables is a file. Give the "
-                         "path of a folder (it is created if needed).")
-    if folder.is_dir() and any(folder.iterdir()) and not manifest.exists():
-        raise StudyError(f"{folder}: this folder already holds files that scalewright did not "
-                         "write, so the tables will not be written there. Give --tables a new "
-                         "or empty folder.")
+    check_tables_folder(folder)
     folder.mkdir(parents=True, exist_ok=True)
     if manifest.exists():
         for name in manifest.read_text(encoding="utf-8").split():
