@@ -235,3 +235,10 @@ def test_summary_says_when_bic_does_not_separate_the_favourite(demo_result):
     close = [n for n, r in rows.items() if r["delta_bic"] is not None and 0 < r["delta_bic"] < 2]
     text = " ".join(summary_paragraphs(d))
     assert ("within 2 BIC points" in text) == bool(close)
+
+
+def test_python_dash_m_scalewright_runs_the_command_line():
+    done = subprocess.run([sys.executable, "-m", "scalewright", "check", "--help"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0
+    assert "MODEL_FILE" in done.stdout

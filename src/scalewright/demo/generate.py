@@ -180,8 +180,8 @@ def write_demo(folder: Path, overwrite: bool = False) -> Path:
     if existing and not overwrite:
         raise StudyError(
             f"Not writing the demo study into '{folder}': it already holds {' and '.join(existing)}, "
-            "which would be replaced. Choose another folder, move those files away, or ask to "
-            "replace them (overwrite=True)."
+            "which would be replaced. Choose another folder or move those files away (from "
+            "Python, write_demo(folder, overwrite=True) replaces them)."
         )
     folder.mkdir(parents=True, exist_ok=True)
     with open(targets[0], "w", encoding="utf-8", newline="") as handle:
