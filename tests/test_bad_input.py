@@ -97,3 +97,45 @@ def test_a_problem_the_estimation_core_finds_is_placed_at_the_model(tmp_path, rn
                                          r"setting collapse_sparse: true under items: in the "
                                          r"model file"):
         scalewright.check(write_study(tmp_path, models, data, extra))
+
+
+def test_a_model_that_does_not_converge_exits_2_at_its_line_after_writing_the_report(
+        tmp_path, hs_data):
+    # Holzinger & Swineford's nine tests do not support a bifactor structure: the
+    # engine does not converge there (test_engine.py).  The check still writes the
+    # report (the correlated model is fine), then the command line says where the
+    # model is and what to try, with exit code 2.
+    from conftest import HS_ITEMS
+
+    from scalewright.cli import main
+
+    hs_data[list(HS_ITEMS)].to_csv(tmp_path / "hs.csv", index=False)
+    model_file = tmp_path / "hs.yaml"
+    model_file.write_text(
+        "study: Nine ability tests\ndata:\n  file: hs.csv\nmodels:\n"
+        "  three:\n    constructs:\n      visual: [x1, x2, x3]\n      textual: [x4, x5, x6]\n"
+        "      speed: [x7, x8, x9]\n"
+        "  with-general:\n    general: g\n    constructs:\n      visual: [x1, x2, x3]\n"
+        "      textual: [x4, x5, x6]\n      speed: [x7, x8, x9]\n")
+    out = tmp_path / "out"
+    assert main(["check", str(model_file), "--out", str(out)]) == 2
+    assert (out / "hs.html").exists() and (out / "hs.json").exists()
+
+
+def test_non_convergence_message_names_the_model_line_and_the_fix(tmp_path, hs_data, capsys):
+    from conftest import HS_ITEMS
+
+    from scalewright.cli import main
+
+    hs_data[list(HS_ITEMS)].to_csv(tmp_path / "hs.csv", index=False)
+    model_file = tmp_path / "hs.yaml"
+    model_file.write_text(
+        "study: Nine ability tests\ndata:\n  file: hs.csv\nmodels:\n"
+        "  with-general:\n    general: g\n    constructs:\n      visual: [x1, x2, x3]\n"
+        "      textual: [x4, x5, x6]\n      speed: [x7, x8, x9]\n")
+    assert main(["check", str(model_file), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert "hs.yaml, line 5: the estimation of model 'with-general' did not converge" in \
+        " ".join(err.split())
+    assert "did not converge" in err and "identification: marker" in err
+    assert "Traceback" not in err

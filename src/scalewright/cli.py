@@ -65,6 +65,7 @@ def _run(args) -> int:
         result = api.check(args.model_file, out=args.out)
         _summarise(result, args.out)
         _extras(result, args)
+        _refuse_non_convergence(result, args.out)
     elif args.command == "init":
         from scalewright.draft import draft_model_file
         path = draft_model_file(args.data_file, args.to)
@@ -88,6 +89,25 @@ def _extras(result, args) -> None:
         from scalewright.report.pdf import print_pdf
         stem = result.study.path.stem
         print(f"PDF: {print_pdf(args.out / (stem + '.html'), args.out / (stem + '.pdf'))}")
+
+
+def _refuse_non_convergence(result, out: Path) -> None:
+    """A rival model whose estimation did not converge is something to fix:
+    exit 2 with a message at its line in the model file, after the report
+    (which shows every model and says which numbers to ignore) was written."""
+    stuck = [m for m in result.models if not m.converged]
+    if not stuck:
+        return
+    study = result.study
+    places = "; ".join(f"{study.place_of('models', m.name)}: the estimation of model "
+                       f"'{m.name}' did not converge ({m.estimate.record.message})"
+                       for m in stuck)
+    written = f" The report in {out} shows every model and marks these." if out else ""
+    raise StudyError(
+        f"{places}, so {'its' if len(stuck) == 1 else 'their'} numbers are not estimates. "
+        "Check that every construct has items that correlate with each other, remove "
+        "cross-loadings or residual covariances that are not needed, or try the other "
+        f"identification (estimation: identification: marker).{written}")
 
 
 def _summarise(result, out: Path) -> None:
