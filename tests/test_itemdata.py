@@ -446,6 +446,14 @@ def test_answers_outside_the_scale_show_the_first_examples(tmp_path):
         read_items(study_for(tmp_path, write_csv(tmp_path, frame)))
 
 
+def test_infinity_declared_as_a_missing_code_is_missing(tmp_path):
+    frame = answers().astype({"q2": object})
+    frame.loc[3, "q2"] = "inf"
+    data = read_items(study_for(tmp_path, write_csv(tmp_path, frame), missing="[-9, 'inf']"))
+    assert np.isnan(data.values[3, 1])
+    assert np.isfinite(data.values[~np.isnan(data.values)]).all()
+
+
 def test_constant_item_is_an_error(tmp_path):
     frame = answers()
     frame["q2"] = np.where(frame["q2"] == -9, -9, 3.0)
