@@ -87,6 +87,25 @@ def test_items_with_three_categories_go_the_ordinal_route(tmp_path):
     assert any("Rhemtulla, Brosseau-Liard & Savalei 2012" in r for r in choice.reasons)
 
 
+def test_items_with_more_categories_that_join_the_ordinal_route_are_named(tmp_path):
+    # q1-q3 have three categories (ordinal by the Rhemtulla et al. 2012 rule); q4-q6 have
+    # six whole-number categories and are analysed by polychoric correlations with them
+    # (module docstring). The reasons and ordinal_items named only q1-q3, so a reader
+    # could not tell how q4-q6 were analysed.
+    rng = np.random.default_rng(5)
+    x = normal_answers(rng)
+    x[:, :3] = np.digitize(x[:, :3], [-0.5, 0.5]) + 1.0
+    x[:, 3:] = np.digitize(x[:, 3:], [-1.2, -0.6, 0.0, 0.6, 1.2]) + 1.0
+    study, data = write_study(tmp_path, x)
+    choice = choose_method(study, data)
+    assert choice.estimator == "ordinal"
+    assert choice.ordinal_items == tuple(ITEMS)
+    assert choice.reasons[0].startswith("'q1', 'q2' and 'q3' are treated as ordinal")
+    assert choice.reasons[1] == ("'q4', 'q5' and 'q6' have more than 4 answer categories, all "
+                                 "whole numbers, so they are analysed as ordinal too: every "
+                                 "correlation in the model is polychoric.")
+
+
 def test_full_information_with_ordinal_method_raises(tmp_path):
     rng = np.random.default_rng(6)
     x = np.digitize(normal_answers(rng), [-0.5, 0.5]) + 1.0

@@ -122,6 +122,11 @@ def choose_method(study: Study, data: ItemData, screening: Screening | None = No
                 "values). Write method: auto or method: robust, or declare the ordinal items "
                 "under items: treat_as:.")
         reasons.append(_mixed_reason(ordinal, continuous))
+    elif estimator == ORDINAL:
+        joining = tuple(it for it in used if it not in ordinal)
+        if joining and ordinal:
+            reasons.append(_joining_reason(joining))
+        ordinal = tuple(used)
     missing = _missing(study, data, estimator, reasons)
     return MethodChoice(estimator, missing, tuple(reasons),
                         ordinal if estimator in (ORDINAL, MIXED) else (), continuous)
@@ -134,6 +139,13 @@ def _can_be_ordinal(data: ItemData, item: str, stats) -> bool:
     x = data.values[:, data.items.index(item)]
     x = x[~np.isnan(x)]
     return bool(np.all(x == np.round(x)))
+
+
+def _joining_reason(joining) -> str:
+    one = len(joining) == 1
+    return (f"{_list(joining)} {'has' if one else 'have'} more than {ORDINAL_MAX_CATEGORIES} "
+            f"answer categories, all whole numbers, so {'it is' if one else 'they are'} analysed "
+            "as ordinal too: every correlation in the model is polychoric.")
 
 
 def _mixed_reason(ordinal, continuous) -> str:
