@@ -315,6 +315,16 @@ def test_answer_outside_declared_scale_is_named():
         thresholds(np.array([1.0, 2.0, 9.0, 3.0]), item="q3", scale=(1, 5))
 
 
+def test_declared_scale_is_written_as_in_the_model_file():
+    # the model file's scale: [1, 5] reaches the checks as floats (studyfile.Study.scale),
+    # and the messages said "a 1.0-5.0 scale"
+    x = np.repeat([1.0, 2.0, 3.0, 5.0], [12, 40, 33, 15])
+    with pytest.raises(StudyError, match=r"Item 'q3' is declared on a 1-5 scale but nobody answered 4 "):
+        thresholds(x, item="q3", scale=(1.0, 5.0))
+    with pytest.raises(StudyError, match=r"Item 'q3' is declared on a 1-5 scale but has the answer 9"):
+        thresholds(np.array([1.0, 2.0, 9.0, 3.0]), item="q3", scale=(1.0, 5.0))
+
+
 def test_item_with_all_rows_missing_is_named():
     data = np.column_stack([np.tile([1.0, 2.0, 3.0], 10), np.full(30, np.nan)])
     with pytest.raises(StudyError, match=r"Item 'q5' has no answers: all 30 rows are missing"):
