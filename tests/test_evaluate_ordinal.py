@@ -161,7 +161,7 @@ def test_missing_answers_are_reported_as_handled_pairwise(report, answers):
     note = report["ordinal_notes"][1]
     assert note.startswith("Missing answers were handled pairwise")
     assert f"({counts.min()} to {counts.max()} of 597 rows)" in note
-    assert "3 row(s) without any answer to these items were left out." in note
+    assert "3 rows without any answer to these items were left out." in note
 
 
 # --------------------------------------------------------------------------

@@ -56,6 +56,7 @@ from scalewright.estimate.mixed import MixedMoments, mixed_moments
 from scalewright.evaluate_ordinal import (
     dwls_model_result,
     evaluate_ordinal,
+    rows_left_out,
     sparse_category_notes,
 )
 from scalewright.layout import CONSTRUCT, Layout, Matrices
@@ -155,8 +156,7 @@ def _notes(moments: MixedMoments, x: np.ndarray, empty_rows: int) -> list[str]:
             f"answered both items ({pairs.min()} to {pairs.max()} of {moments.n_rows} rows), and "
             "each threshold, mean and standard deviation every answer to its item. This assumes "
             "the answers are missing completely at random."
-            + (f" {empty_rows} row(s) without any answer to these items were left out."
-               if empty_rows else ""))
+            + (f" {rows_left_out(empty_rows)}" if empty_rows else ""))
     else:
         notes.append("No answers were missing; every correlation uses all "
                      f"{moments.n_rows} rows (pairwise handling was not needed).")

@@ -258,13 +258,18 @@ def _notes(moments: OrdinalMoments, x: np.ndarray, empty_rows: int) -> list[str]
             f"Missing answers were handled pairwise: each polychoric correlation uses every "
             f"respondent who answered both items ({pairs.min()} to {pairs.max()} of "
             f"{moments.n_rows} rows). This assumes the answers are missing completely at "
-            "random." + (f" {empty_rows} row(s) without any answer to these items were left "
-                         "out." if empty_rows else ""))
+            "random." + (f" {rows_left_out(empty_rows)}" if empty_rows else ""))
     else:
         notes.append("No answers were missing; every polychoric correlation uses all "
                      f"{moments.n_rows} rows (pairwise handling was not needed).")
     notes.extend(moments.collapse_notes)
     return notes
+
+
+def rows_left_out(n: int) -> str:
+    """The sentence on rows without any answer to the model's items."""
+    return (f"{n} row without any answer to these items was left out." if n == 1 else
+            f"{n} rows without any answer to these items were left out.")
 
 
 def sparse_category_notes(items: Sequence[str], categories: Sequence[np.ndarray],

@@ -393,7 +393,7 @@ def _notes(spec, step: str, labels, released, binary) -> tuple[str, ...]:
                      "constructs mean 0, so each group is fitted as it would be on its own.")
         return tuple(notes)
     notes.append(f"Equal across groups: {', '.join(shared)}"
-                 + (f", except {len(released)} released parameter(s)" if released else "") + ".")
+                 + (f", except {len(released)} released parameter{'s' * (len(released) != 1)}" if released else "") + ".")
     if INTERCEPTS not in shared:
         notes.append(f"Latent-response intercepts are 0 in '{reference}' and estimated in the "
                      "other groups" + (" (those of items with two answer categories once "

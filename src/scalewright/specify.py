@@ -306,7 +306,8 @@ def _identification_notes(spec) -> tuple[str, ...]:
         notes.append(f"The general factor '{spec.general}' is uncorrelated with the specific "
                      "factors, and the specific factors with each other (bifactor).")
     if spec.residual_covariances:
-        notes.append(f"{len(spec.residual_covariances)} residual covariance(s) are estimated.")
+        n = len(spec.residual_covariances)
+        notes.append(f"{n} residual covariance{' is' if n == 1 else 's are'} estimated.")
     return tuple(notes)
 
 
@@ -322,7 +323,7 @@ def _check_structure(spec) -> None:
         if len(cs) < 3:
             raise StudyError(
                 f"{place}: the higher-order factor '{h}' in model '{spec.name}' explains "
-                f"{len(cs)} construct(s) ({', '.join(cs)}); with fewer than three its paths "
+                f"{len(cs)} construct{'s' * (len(cs) != 1)} ({', '.join(cs)}); with fewer than three its paths "
                 "cannot be identified (the constructs' one correlation cannot determine two "
                 "paths). Let it explain at least three constructs, or keep the constructs "
                 "correlated without a higher-order factor.")
