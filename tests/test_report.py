@@ -33,7 +33,8 @@ from scalewright.errors import StudyError
 from scalewright.output import to_json
 from scalewright.report.checklist import checklist_rows
 from scalewright.report.document import build_document, export_tables
-from scalewright.report.narrative import favoured, methods_paragraphs, summary_paragraphs
+from scalewright.report.narrative import (abstract_sentence, favoured, methods_paragraphs,
+                                          summary_paragraphs)
 from scalewright.report.references import references_used
 from scalewright.report.render import css_string, render_html
 
@@ -373,6 +374,39 @@ def test_summary_says_which_rivals_are_within_two_bic_points():
     assert f"‘{best}’" not in sentence and "Raftery 1995" in text
     far = _rivals(first="A")   # C is 4.4 BIC points from the favourites
     assert "within 2 BIC points" not in " ".join(summary_paragraphs(far))
+
+
+def _one_model_report() -> dict:
+    """The demo's result dict cut to its first model, as a model file with one model gives."""
+    report = demo_report()
+    keep = report["models"][0]["name"]
+    report["models"] = report["models"][:1]
+    comparison = report["comparison"]
+    comparison["models"] = [r for r in comparison["models"] if r["name"] == keep]
+    comparison["nested_tests"] = []
+    return report
+
+
+def test_a_single_model_is_not_called_a_rival_or_compared():
+    # a one-model file (Holzinger–Swineford, political democracy) gave "Of the one rival
+    # models, BIC favours 'pd' (BIC weight 1.00)" and a BIC-weight chart of one bar
+    report = _one_model_report()
+    name = report["models"][0]["name"]
+    summary = " ".join(summary_paragraphs(report))
+    assert "rival" not in summary and "BIC weight" not in summary
+    assert "specified first" not in summary
+    assert f"the model ‘{name}’ gave χ²(" in abstract_sentence(report)
+    # with no construct at the .70 minimum (Nunnally & Bernstein 1994), "below it" had
+    # nothing to refer to: "Omega in 'one-general' is below it for climate (.55 ...)"
+    (row,) = report["models"][0]["reliability"]
+    assert row["omega"] < RELIABILITY_MINIMUM
+    assert f"Omega in ‘{name}’ is below .70 for {row['construct']} ({apa(row['omega'], 2)}" in summary
+    assert methods_paragraphs(report)[0].startswith(
+        f"We fitted one confirmatory factor model (‘{name}’) to the answers of")
+    section = _section(render_html(report), "comparison")
+    assert "The model file names one model, so there is no rival to compare it with" in section
+    assert "BIC weights of the rival models" not in section
+    assert "No pair of these models is nested" not in section
 
 
 def test_summary_never_claims_more_than_the_numbers():

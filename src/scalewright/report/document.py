@@ -151,6 +151,13 @@ def _comparison(doc: Document) -> None:
     if not comparison:
         return
     s = Section("comparison", "Rival models compared")
+    if len(comparison["models"]) == 1:
+        s.p("The model file names one model, so there is no rival to compare it with; the "
+            "table gives its information criteria for comparison with models fitted elsewhere "
+            "to the same answers.")
+        doc.table(s, tables.comparison_table(r))
+        doc.sections.append(s)
+        return
     first = [row["name"] for row in comparison["models"] if row.get("first")]
     s.p(f"The model specified first is ‘{first[0]}’." if first else
         "The model file does not mark which model was specified first; add ‘first: true’ "

@@ -189,6 +189,8 @@ def _comparison_paragraph(report: dict, fav: dict) -> str | None:
     if not comparison or not fav["bic"]:
         return None
     n = len(comparison["models"])
+    if n < 2:                     # nothing to compare: a weight of 1 says nothing
+        return None
     if len(fav["bic"]) > 1:
         text = (f"Of the {_number(n)} rival models, BIC favours {_names(fav['bic'])}, which are "
                 f"equivalent here (they fit identically and cannot be told apart by the data); "
@@ -277,7 +279,8 @@ def _coefficient_sentence(what: str, name: str, named: list) -> str:
     if high:
         parts.append(f"at least {coef(RELIABILITY_MINIMUM, 2)} for {_plain_list(high)}")
     if low:
-        parts.append(f"below it for {_plain_list(low)}")
+        parts.append(f"below it for {_plain_list(low)}" if high else
+                     f"below {coef(RELIABILITY_MINIMUM, 2)} for {_plain_list(low)}")
     return f"{what} in ‘{name}’ is {' and '.join(parts)}"
 
 
@@ -342,22 +345,24 @@ def summary_paragraphs(report: dict) -> list[str]:
 
 def abstract_sentence(report: dict) -> str:
     """One sentence for an abstract: two global fit statistics, local fit,
-    and whether the model described is the one specified first."""
+    and, when the file has rival models, whether the model described is the one
+    specified first."""
     fav = favoured(report)
     model = _models(report).get(fav["focus"])
     if model is None:
         return ""
     fit = shown_fit(model["fit"])
     first = _first_name(report)
-    origin = ("the model specified first" if fav["focus"] == first
-              else "not the model specified first" if first else
-              "the model file does not say which model was specified first")
+    origin = ("" if len(report.get("models", ())) == 1
+              else " (the model specified first)" if fav["focus"] == first
+              else " (not the model specified first)" if first else
+              " (the model file does not say which model was specified first)")
     residuals = model.get("residual_correlations") or {}
     largest = residuals.get("largest") or []
     local = (f"the largest residual correlation was {coef(largest[0]['value'], 2)}"
              if largest else "local fit was not examined")
-    return (f"In {count(report['data']['n_used'])} respondents, the model ‘{model['name']}’ "
-            f"({origin}) gave χ²({fit.get('df')}) = {dec(fit.get('chi_square'), 2)}, "
+    return (f"In {count(report['data']['n_used'])} respondents, the model ‘{model['name']}’"
+            f"{origin} gave χ²({fit.get('df')}) = {dec(fit.get('chi_square'), 2)}, "
             f"{p_equals(fit.get('p_value'))}, CFI = {coef(fit.get('cfi'))}, RMSEA = "
             f"{coef(fit.get('rmsea'))}, 90% CI {interval(fit.get('rmsea_ci90'))}, SRMR = "
             f"{coef(fit.get('srmr'))}; {local}.")
@@ -415,7 +420,7 @@ def methods_paragraphs(report: dict) -> list[str]:
     software = f"scalewright {tool['version']}" + (
         " (" + ", ".join(f"{k} {v}" for k, v in deps.items()) + ")" if deps else "")
     out = [" ".join([
-        f"We fitted {_number(len(models))} rival confirmatory factor model"
+        f"We fitted {_number(len(models))} {'rival ' * (len(models) > 1)}confirmatory factor model"
         f"{'s' * (len(models) != 1)} ({_names(names)}) to the answers of "
         + (f"all {count(data['n_rows'])}" if data["n_used"] == data["n_rows"]
            else f"{count(data['n_used'])} of {count(data['n_rows'])}")
