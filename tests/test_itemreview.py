@@ -10,6 +10,7 @@ correlation .10 are common practice, no source.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import shutil
 from pathlib import Path
@@ -107,6 +108,21 @@ def test_residual_pair_flags_both_items_and_no_other():
     assert set(review) == {"q1", "q4"}
     assert [(f.kind, f.other) for f in review["q1"].flags] == [(PAIR, "q4")]
     assert [(f.kind, f.other) for f in review["q4"].flags] == [(PAIR, "q1")]
+
+
+def test_an_undefined_residual_correlation_is_left_out_of_the_flag_text():
+    # in an improper solution (a negative residual variance, as in the ordinal bifactor
+    # model of Holzinger-Swineford cut into categories) the standardized EPC of a residual
+    # covariance is EPC / sqrt(θ_ii θ_jj), undefined; the flag said "residual correlation
+    # about nan"
+    x, constructs, _ = _population(5, pair=(0, 3))
+    result = evaluate_normal(make_spec(constructs), x)
+    tests = score_tests(result.estimate)
+    undefined = dataclasses.replace(tests, std_epc=np.full_like(tests.std_epc, np.nan))
+    flag, = {r.item: r for r in review_items(result, undefined, Settings())}["q1"].flags
+    k = int(np.argmax(tests.mi))
+    assert flag.text.endswith(f"(modification index {tests.mi[k]:.1f})")
+    assert "nan" not in flag.text
 
 
 def test_estimated_residual_covariance_flags_both_items_on_the_correlation_scale():

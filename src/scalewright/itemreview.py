@@ -178,13 +178,13 @@ def _estimated_pairs(result: ModelResult, settings: Settings, flags: dict) -> No
         i, k = layout.items.index(prm.a), layout.items.index(prm.b)
         share = float(mats.residuals[i, k] / (sd[i] * sd[k]))
         if abs(share) >= settings.residual_threshold:
-            corr = float(result.std.residual_correlations[i, k])
+            corr = _defined(" (residual correlation {:.2f})",
+                            result.std.residual_correlations[i, k])
             for item, other in ((prm.a, prm.b), (prm.b, prm.a)):
                 flags[item].append(Flag(
                     PAIR, other, share,
                     f"its estimated residual covariance with '{other}' {_moves(share)} their "
-                    f"model-implied correlation by {abs(share):.2f} (residual correlation "
-                    f"{corr:.2f})"))
+                    f"model-implied correlation by {abs(share):.2f}{corr}"))
 
 
 def _suggested(result: ModelResult, tests: ScoreTests, settings: Settings, flags: dict) -> None:
@@ -210,7 +210,14 @@ def _suggested(result: ModelResult, tests: ScoreTests, settings: Settings, flags
                 PAIR, b, share,
                 f"freeing its residual covariance with '{b}' would {_moves(share, False)} their "
                 f"model-implied correlation by about {abs(share):.2f} (modification index "
-                f"{tests.mi[k]:.1f}, residual correlation about {tests.std_epc[k]:.2f})"))
+                f"{tests.mi[k]:.1f}"
+                f"{_defined(', residual correlation about {:.2f}', tests.std_epc[k])})"))
+
+
+def _defined(template: str, value: float) -> str:
+    """`template` filled with `value`, or nothing where the value is undefined: a
+    residual correlation has no value when a residual variance is negative."""
+    return template.format(value) if np.isfinite(value) else ""
 
 
 def _moves(share: float, present: bool = True) -> str:
