@@ -12,6 +12,7 @@ planted non-invariant item (src/scalewright/demo/population.py).
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +22,7 @@ from scipy import stats
 from conftest import HS_CONSTRUCTS, HS_ITEMS, make_spec
 from two_groups import TwoGroupReference, two_group_robust_pieces
 from scalewright.demo import population
+from scalewright.groups import INCOMPLETE
 from scalewright.invariance import (MIN_EQUAL, _scaling_at, compare, conventions,
                                     invariance_keys, measurement_invariance, releasable,
                                     run_sequence, score_tests)
@@ -149,6 +151,22 @@ def test_result_converts_to_json_with_the_issue_keys(hs_moments):
     assert "Lozenges" in first["text"]
     assert set(out["latent_means"][0]) >= {"construct", "group", "estimate", "se",
                                           "std_difference"}
+
+
+def test_decisions_give_p_as_the_tables_do_and_missing_handling_as_it_was(hs_moments):
+    result = measurement_invariance(make_spec(HS_CONSTRUCTS), hs_moments)
+    out = result.to_dict()
+    for step in out["invariance"][1:]:
+        test = step["difference_test"]
+        # scipy.stats.chi2: the p-value of the difference, shown in APA style (".311",
+        # "< .001") as in the step table; the text said "p = 0.311" and "p = 0.0622"
+        p = stats.chi2.sf(test["chi_square"], test["df"])
+        shown = "p < .001" if p < 0.001 else "p = " + f"{p:.3f}".lstrip("0")
+        assert f"on {test['df']} df, {shown})." in step["decision"]["text"]
+    # Holzinger–Swineford has no missing answer: nothing was deleted listwise
+    assert out["invariance_setup"]["missing_handling"] == "none needed (no answer is missing)"
+    holes = replace(result, dropped={"no group": 0, INCOMPLETE: 4})
+    assert holes.to_dict()["invariance_setup"]["missing_handling"] == "listwise deletion"
 
 
 def test_robust_result_reports_scaled_statistics_and_scaled_differences(hs_moments):

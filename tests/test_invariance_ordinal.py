@@ -474,6 +474,10 @@ def test_a_model_file_with_groups_and_ordinal_items_gives_the_ordinal_sequence(c
     entry = next(r for r in checked["released"] if r["item"] == "y3")
     assert "I look forward to the lessons." in entry["text"]
     assert checked["invariance_setup"]["parameterization"] == "theta"
+    # draw() leaves no answer missing (the study's own method reasons say so); the setup
+    # said "pairwise" handling all the same
+    assert checked["method"]["missing_handling"] == "none"
+    assert checked["invariance_setup"]["missing_handling"] == "none needed (no answer is missing)"
 
 
 def test_the_report_shows_the_ordinal_steps_and_cites_the_identification(checked):

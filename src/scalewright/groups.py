@@ -37,6 +37,9 @@ from scalewright.estimate.fiml import (independence_fiml, missing_patterns, patt
 from scalewright.multigroup import GroupMoments, complete_moments
 from scalewright.studyfile import format_code
 
+#: why listwise deletion left a row with a group out (a key of ``GroupedData.dropped``)
+INCOMPLETE = "incomplete answers (among rows with a group)"
+
 
 @dataclass(frozen=True)
 class GroupedData:
@@ -104,8 +107,7 @@ class GroupedData:
         """Rows left out, by reason (for the report)."""
         answered = ~np.isnan(self.values)
         lost = (~answered.any(axis=1)) if full_information else ~self.complete
-        reason = ("no answer to any item" if full_information
-                  else "incomplete answers (among rows with a group)")
+        reason = "no answer to any item" if full_information else INCOMPLETE
         return {"no group": self.n_group_missing, reason: int(lost.sum())}
 
 

@@ -85,7 +85,7 @@ from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.normal import Block, NormalFit, fit_normal
 from scalewright.estimate.result import invert_information
-from scalewright.groups import split_groups
+from scalewright.groups import INCOMPLETE, split_groups
 from scalewright.methods import LISTWISE, ORDINAL, ROBUST, choose_method
 from scalewright.modelresult import STANDARD_ERRORS
 from scalewright.layout import CONSTRUCT, INTERCEPT, LOADING, PATH, Layout, Param
@@ -118,6 +118,12 @@ class Convention:
 
     def to_dict(self) -> dict:
         return {"source": self.source, "rule": self.rule, "met": self.met}
+
+
+def p_in_words(p: float) -> str:
+    """A p-value as the report's tables show it (APA style: three decimals without
+    the leading zero, "< .001" below that)."""
+    return "< .001" if p < 0.001 else "= " + f"{p:.3f}".lstrip("0")
 
 
 def convention_verdict(conventions) -> tuple[str, str]:
@@ -161,7 +167,7 @@ class Comparison:
         kind = "scaled chi-square difference test" if self.scaled else \
             "chi-square difference test"
         test = (f"The {kind} {verb} equality "
-                f"(Δχ² = {self.chi_square:.2f} on {self.df} df, p = {self.p_value:.3g}).")
+                f"(Δχ² = {self.chi_square:.2f} on {self.df} df, p {p_in_words(self.p_value)}).")
         return (f"{what} {verdict} ({rules}); these published conventions are rules of "
                 f"thumb, not tests. {test}")
 
@@ -403,7 +409,7 @@ def release_search(step, first, comparison, released: frozenset, limit: int, nee
         if best.p_adjusted >= ALPHA:
             return current, releases, released, (
                 "no single constraint stands out (largest score test "
-                f"χ² = {best.chi_square:.2f}, Bonferroni-adjusted p = {best.p_adjusted:.3g})")
+                f"χ² = {best.chi_square:.2f}, Bonferroni-adjusted p {p_in_words(best.p_adjusted)})")
         released = released | {best.param}
         current, comparison = refit(current, released)
         releases.append(Release(step, best, current))
@@ -548,7 +554,9 @@ class InvarianceResult:
                               "maximum likelihood (normal theory)"),
                 "method_note": self.method_note,
                 "missing_handling": ("full-information ML (every answer given counts)"
-                                     if self.full_information else "listwise deletion"),
+                                     if self.full_information else "listwise deletion"
+                                     if self.dropped.get(INCOMPLETE) else
+                                     "none needed (no answer is missing)"),
                 "standard_errors": ("sandwich" if self.robust else
                                     STANDARD_ERRORS["fiml" if self.full_information else "ml"]),
                 "difference_test": ("scaled, Satorra & Bentler (2001; 2010 when the 2001 "

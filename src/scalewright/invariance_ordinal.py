@@ -99,10 +99,10 @@ from scalewright.estimate.generalized_score import dense_score_statistics
 from scalewright.groups import split_groups
 from scalewright.invariance import (ALPHA, MIN_EQUAL, RELEASE_SHARE, Convention, LatentComparison,
                                     Release, ScoreTest, convention_verdict, conventions,
-                                    latent_comparison, releasable, release_entry,
+                                    latent_comparison, p_in_words, releasable, release_entry,
                                     release_search, released_item, sequence_keys, step_entry)
 from scalewright.layout import INTERCEPT, LOADING, PATH, RESIDUAL_COV, Param
-from scalewright.methods import LISTWISE
+from scalewright.methods import LISTWISE, NONE
 from scalewright.multigroup import carry_start
 from scalewright.multigroup_ordinal import (BINARY_ADDS, BINARY_IDENTIFICATION, IDENTIFICATION,
                                             INTERCEPTS, LABELS, LOADINGS, SHARED, STEPS,
@@ -158,7 +158,7 @@ class OrdinalComparison:
         return (f"{what} {verdict} ({rules}); these published conventions are rules of thumb, "
                 f"not tests. The mean-and-variance adjusted difference test {verb} equality "
                 f"(Δχ² = {self.test.chi_square:.2f} on {self.test.df} df, "
-                f"p = {self.test.p_value:.3g}).")
+                f"p {p_in_words(self.test.p_value)}).")
 
     def to_dict(self, step: str) -> dict:
         return {"delta": dict(self.delta),
@@ -344,7 +344,9 @@ class OrdinalInvarianceResult:
                 "method_note": f"Each difference test is {METHOD}. Chen's (2007) values for "
                 "intercepts are applied to thresholds and latent-response intercepts, those "
                 "for residual variances to unique variances.",
-                "missing_handling": ("pairwise (each polychoric correlation uses everyone in "
+                "missing_handling": ("none needed (no answer is missing)"
+                                     if self.missing_handling == NONE else
+                                     "pairwise (each polychoric correlation uses everyone in "
                                      "the group who answered both items)"
                                      if self.missing_handling != LISTWISE else
                                      "listwise deletion"),

@@ -302,7 +302,7 @@ def _notes(spec, step: str, labels, released) -> tuple[str, ...]:
     shared = SHARED[step]
     if shared:
         notes.append(f"Equal across groups: {', '.join(shared)}"
-                     + (f", except {len(released)} released parameter(s)" if released else "")
+                     + (f", except {len(released)} released parameter{'s' * (len(released) != 1)}" if released else "")
                      + ".")
     else:
         notes.append("No parameter is equal across groups (configural model): every group "
