@@ -106,6 +106,27 @@ def test_items_with_more_categories_that_join_the_ordinal_route_are_named(tmp_pa
                                  "correlation in the model is polychoric.")
 
 
+@pytest.mark.parametrize("answers, found", [
+    (lambda x: x, lambda q: r"answers that are not whole numbers \(for example -?\d+\.\d+\)"),
+    # the count of different answers from numpy.unique
+    (lambda x: np.round(4 * x), lambda q: rf"{np.unique(q).size} different answers \(at most 10 "
+                                          r"can be ordinal categories\)"),
+])
+def test_an_item_declared_ordinal_that_cannot_be_names_the_line_and_the_fix(tmp_path, answers,
+                                                                             found):
+    # q1 keeps continuous answers (normal draws: fractions, or some 20 rounded values);
+    # the polychoric checks refused it with a message naming no file or line
+    x = normal_answers(np.random.default_rng(5))
+    x[:, 0] = answers(x[:, 0])
+    x[:, 1:] = np.digitize(x[:, 1:], [-0.5, 0.5]) + 1.0
+    study, data = write_study(tmp_path, x, "items:\n  treat_as: {q1: ordinal}\n")
+    with pytest.raises(StudyError, match=r"^study\.yaml, line 5: the item 'q1' is declared "
+                                         rf"ordinal, but it has {found(x[:, 0])}\. Declare it continuous "
+                                         r"\(treat_as: \{q1: continuous\}\), or recode its "
+                                         r"answers into whole-number categories\.$"):
+        choose_method(study, data)
+
+
 def test_full_information_with_ordinal_method_raises(tmp_path):
     rng = np.random.default_rng(6)
     x = np.digitize(normal_answers(rng), [-0.5, 0.5]) + 1.0

@@ -111,6 +111,8 @@ def choose_method(study: Study, data: ItemData, screening: Screening | None = No
     if estimator == ORDINAL:
         continuous = tuple(it for it in used if study.items[it].treat_as == "continuous" or (
             study.items[it].treat_as == "auto" and not _can_be_ordinal(data, it, stats[it])))
+    if estimator == ORDINAL:
+        _require_declared_ordinal(study, data, stats, used)
     if continuous:
         estimator = MIXED
         ordinal = tuple(it for it in used if it not in continuous)
@@ -130,6 +132,25 @@ def choose_method(study: Study, data: ItemData, screening: Screening | None = No
     missing = _missing(study, data, estimator, reasons)
     return MethodChoice(estimator, missing, tuple(reasons),
                         ordinal if estimator in (ORDINAL, MIXED) else (), continuous)
+
+
+def _require_declared_ordinal(study: Study, data: ItemData, stats, used) -> None:
+    """An item declared ordinal must have whole-number answers in at most
+    ``MAX_CATEGORIES`` categories."""
+    for item in used:
+        if study.items[item].treat_as != ORDINAL or _can_be_ordinal(data, item, stats[item]):
+            continue
+        x = data.values[:, data.items.index(item)]
+        x = x[~np.isnan(x)]
+        fractional = x[x != np.round(x)]
+        found = (f"answers that are not whole numbers (for example {fractional[0]:g})"
+                 if fractional.size else
+                 f"{stats[item].n_distinct} different answers (at most {MAX_CATEGORIES} can be "
+                 "ordinal categories)")
+        raise StudyError(
+            f"{study.place_of('items', 'treat_as', item)}: the item '{item}' is declared "
+            f"ordinal, but it has {found}. Declare it continuous (treat_as: {{{item}: "
+            "continuous}), or recode its answers into whole-number categories.")
 
 
 def _can_be_ordinal(data: ItemData, item: str, stats) -> bool:
