@@ -125,6 +125,34 @@ def test_an_undefined_residual_correlation_is_left_out_of_the_flag_text():
     assert "nan" not in flag.text
 
 
+def test_a_model_that_did_not_converge_gets_no_item_review_and_says_so(tmp_path):
+    # Holzinger & Swineford (1939), first 12 of 301 cases, three factors: too few cases for
+    # nine items; the fit stops at the iteration limit with Heywood cases, and the item
+    # review read "raise their model-implied correlation by about 34565.23" off that point
+    import holzinger
+    from scalewright import api
+    from scalewright.report.narrative import summary_paragraphs
+    from scalewright.report.tables import hints_table, model_tables
+    holzinger.data().iloc[:12].to_csv(tmp_path / "hs12.csv", index=False)
+    (tmp_path / "hs12.yaml").write_text(
+        "study: twelve cases\ndata:\n  file: hs12.csv\nestimation:\n  method: normal\n"
+        "models:\n  three:\n    constructs:\n" + "".join(
+            f"      {c}: [{', '.join(i)}]\n" for c, i in holzinger.CONSTRUCTS.items()))
+    with pytest.warns(Warning):
+        report = api.check(tmp_path / "hs12.yaml").to_dict()
+    model, = report["models"]
+    assert not model["converged"]
+    assert model["item_review"] == []
+    assert model["refinement"]["stopped"].startswith("The model as specified did not converge, "
+                                                     "so no item was reviewed")
+    assert not any(p.startswith("Where ‘three’ is strained") for p in summary_paragraphs(report))
+    note = model["modification_hint_notes"]["not_converged"]
+    assert note in hints_table(model, "m1").notes
+    # AVE and composite reliability need the estimates: no table of headers without rows
+    assert not model["validity"].get("ave") and "validity" not in model_tables(model, 1)
+    assert "htmt" in model_tables(model, 1)          # HTMT comes from the data alone
+
+
 def test_estimated_residual_covariance_flags_both_items_on_the_correlation_scale():
     x, constructs, _ = _population(5, pair=(0, 3))
     review = _review(x, constructs, residual_covariances=[("q1", "q4")])

@@ -483,7 +483,8 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     -------
     dict
         ``modification_hints``, ``modification_hint_notes``,
-        ``residual_correlations``, ``item_review``, ``refinement``.
+        ``residual_correlations``, ``item_review`` (empty when the model did not
+        converge), ``refinement``.
     """
     settings = Settings.from_study(study)
     spec = study.model(model_result.name)
@@ -505,13 +506,17 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
             answers=answers).to_dict()
     except ValueError as exc:
         out["residual_correlations"] = {"not_computed": str(exc)}
-    review = review_items(model_result, tests, settings)
-    out["item_review"] = [r.to_dict() for r in review]
     if model_result.converged:
+        review = review_items(model_result, tests, settings)
+        out["item_review"] = [r.to_dict() for r in review]
         out["refinement"] = refinement_path(spec, x, settings, result=model_result,
                                             review=review, max_steps=max_steps,
                                             fit=fit).to_dict()
     else:
+        # flags read off a point that is not the estimate (loadings beyond 1, a
+        # "correlation" raised by 34565) would be advice without a basis
+        out["item_review"] = []
         out["refinement"] = {"steps": [], "stopped": "The model as specified did not converge, "
-                             "so no refinement path was computed.", "note": NOTE}
+                             "so no item was reviewed and no refinement path was computed.",
+                             "note": NOTE}
     return out

@@ -285,6 +285,8 @@ def _coefficient_sentence(what: str, name: str, named: list) -> str:
 
 
 def _strain_paragraph(model: dict) -> str | None:
+    if not model.get("converged", True):     # the summary already says not to interpret it
+        return None
     parts = []
     weak = weak_items(model)
     if weak:

@@ -587,8 +587,8 @@ def hints_table(m: dict, prefix: str) -> Table:
             "here." if len(hints) > MAX_HINT_ROWS else None)
     return Table(f"{prefix}-hints", f"Modification hints for ‘{m['name']}’, strongest first",
                  ("Parameter", "Kind", "MI", "EPC", "Std. EPC", "Reading"), tuple(rows),
-                 tuple(n for n in (notes.get("statistic"), notes.get("caution"),
-                                   notes.get("judging"), more) if n),
+                 tuple(n for n in (notes.get("not_converged"), notes.get("statistic"),
+                                   notes.get("caution"), notes.get("judging"), more) if n),
                  left=2)
 
 
@@ -692,15 +692,18 @@ def model_tables(m: dict, index: int, standard_errors: str = "") -> dict[str, Ta
         out["reliability_continuous"] = continuous_reliability_table(m, prefix)
     if m.get("validity"):
         validity = m["validity"]
-        out["validity"] = validity_table(m, prefix)
-        last = "validity"
+        last = None
+        if validity.get("ave") or validity.get("composite_reliability"):
+            out["validity"] = validity_table(m, prefix)   # not a header without rows
+            last = "validity"
         if validity.get("fornell_larcker"):
             last = "fornell_larcker"
             out["fornell_larcker"] = fornell_larcker_table(m, prefix)
         if validity.get("htmt"):
             last = "htmt"
             out["htmt"] = htmt_table(m, prefix)
-        out[last] = with_notes(out[last], validity.get("notes"))
+        if last is not None:
+            out[last] = with_notes(out[last], validity.get("notes"))
     if isinstance(m.get("bifactor"), dict):
         out["bifactor"] = with_notes(
             bifactor_table(m["bifactor"], f"{prefix}-bifactor",
