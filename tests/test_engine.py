@@ -72,6 +72,23 @@ def test_standardized_loadings_match_semopy_and_do_not_depend_on_scaling(hs_data
     assert_allclose(marker.fit.chi_square, unit.fit.chi_square, rtol=1e-9)
 
 
+def test_items_in_wildly_different_units_give_the_same_fit_and_standardized_solution(hs_x):
+    # theory: normal-theory ML is scale invariant, so rescaling item i by c_i leaves χ² and the
+    # standardized solution unchanged and multiplies loadings and their SEs by c_i. Items
+    # measured in units 10⁸ apart (variances 10¹⁶ apart) are legal input; on these data
+    # semopy 2.3.11 stops at χ² = 1152 instead of 85.3, so the check is against theory
+    scales = np.array([1e-4, 1.0, 1e4, 1e-2, 1.0, 1e3, 1e2, 1.0, 1e-3])
+    plain = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).to_dict()
+    scaled = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x * scales).to_dict()
+    assert scaled["converged"]
+    assert_allclose(scaled["fit"]["chi_square"], plain["fit"]["chi_square"], rtol=1e-8)
+    factor = dict(zip(HS_ITEMS, scales))
+    for a, b in zip(plain["loadings"], scaled["loadings"]):
+        assert_allclose(b["std_estimate"], a["std_estimate"], rtol=RTOL)
+        assert_allclose(b["estimate"], a["estimate"] * factor[a["item"]], rtol=RTOL)
+        assert_allclose(b["se"], a["se"] * factor[a["item"]], rtol=RTOL)
+
+
 def test_published_standardized_loadings_and_correlations(hs_x):
     # shared/design/references.md [computed with semopy 2.3.11], three decimals
     result = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).to_dict()
