@@ -418,6 +418,20 @@ def test_text_in_an_item_column_gives_cells_rows_and_a_missing_code_hint(tmp_pat
         read_items(study_for(tmp_path, write_csv(tmp_path, frame), data_extra="  id: pid\n"))
 
 
+def test_numbers_with_decimal_commas_are_named_as_such(tmp_path):
+    # a ';'-separated .txt with decimal commas (pandas to_csv(decimal=",")), the usual
+    # export where the comma is the decimal mark: every cell was "text" with the advice
+    # "Recode the answers as numbers"
+    frame = answers()
+    frame["q1"] = frame["q1"] + 0.5
+    frame.to_csv(tmp_path / "answers.txt", sep=";", decimal=",", index=False)
+    with pytest.raises(StudyError, match=r"the item column 'q1' holds text in 40 cells \(data row "
+                                         r"1: '\d,5';.*\)\. These are numbers written with a "
+                                         r"decimal comma, which scalewright does not read: save the "
+                                         r"data with decimal points \(e\.g\. 3\.5, not 3,5\)\.$"):
+        read_items(study_for(tmp_path, "answers.txt"))
+
+
 def test_answer_words_in_an_item_column_ask_for_numbers(tmp_path):
     frame = answers().astype({"q1": object})
     frame.loc[0:5, "q1"] = ["agree", "disagree", "neutral", "agree a lot", "agree", "no"]

@@ -440,7 +440,10 @@ def _numbers(column: pd.Series, item: str, codes: _Codes, source: _Source, row_i
         distinct = list(dict.fromkeys(found))
         count = int(bad.sum())
         fix = "Recode the answers as numbers"
-        if len(distinct) <= 3 and not any(ch.isdigit() for value in distinct for ch in value):
+        if _decimal_commas(found):
+            fix = ("These are numbers written with a decimal comma, which scalewright does not "
+                   "read: save the data with decimal points (e.g. 3.5, not 3,5)")
+        elif len(distinct) <= 3 and not any(ch.isdigit() for value in distinct for ch in value):
             shown = " or ".join(repr(v) for v in distinct)
             written = [repr(c) if isinstance(c, str) else format_code(c)
                        for c in source.study.data.missing]
@@ -453,6 +456,14 @@ def _numbers(column: pd.Series, item: str, codes: _Codes, source: _Source, row_i
     out = np.full(len(cells), np.nan)
     out[present] = numbers
     return out
+
+
+def _decimal_commas(found: np.ndarray) -> bool:
+    """Whether every text cell reads as a number once its one comma is a point ('3,5')."""
+    text = pd.Series(found, dtype=object)
+    one_comma = text.str.count(",").eq(1)
+    points = pd.to_numeric(text.str.replace(",", ".", regex=False), errors="coerce")
+    return bool(one_comma.all() and points.notna().all())
 
 
 def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
