@@ -49,8 +49,14 @@ def test_draft_refuses_to_overwrite(demo_csv):
 def test_draft_needs_item_like_columns(tmp_path):
     data = tmp_path / "names.csv"
     pd.DataFrame({"name": ["a", "b", "c"], "age": [31.5, 40.2, 28.9]}).to_csv(data, index=False)
-    with pytest.raises(StudyError, match="found 0 column"):
+    with pytest.raises(StudyError, match="found 0 columns that look like questionnaire items"):
         draft_model_file(data)
+
+
+def test_draft_of_a_folder_says_it_is_a_folder(tmp_path):
+    # "init ." answered "no such data file" for a folder that exists
+    with pytest.raises(StudyError, match=r": this is a folder, not a data file\. Give the path"):
+        draft_model_file(tmp_path)
 
 
 def test_draft_writes_where_asked(demo_csv, tmp_path):

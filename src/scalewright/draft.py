@@ -33,7 +33,8 @@ def draft_model_file(data_file: str | Path, target: str | Path | None = None) ->
     items, others = _split_columns(table)
     if len(items) < 3:
         raise StudyError(
-            f"{data_path.name}: found {len(items)} column(s) that look like questionnaire "
+            f"{data_path.name}: found {len(items)} column{'' if len(items) == 1 else 's'} that "
+            f"{'looks' if len(items) == 1 else 'look'} like questionnaire "
             "items (numeric, whole-number answers on a short scale). A model needs at least "
             "three; check that the answers are stored as numbers, not as text labels.")
     target = Path(target) if target else data_path.with_suffix(".yaml")
