@@ -599,6 +599,15 @@ def test_outlier_and_correlation_tables_follow_the_dict():
     data["outliers"]["n_flagged"] = 1
     html = render_html(report)
     assert "T999" in html and "61.2" in html and "kept in the analysis" in html
+    assert "every item flag 1 row at p &lt; .001" in html
+    # political democracy (semopy's data): no row flagged, no item reverse-keyed; the report
+    # said "flag 0 rows" and explained an (R) mark that no item carried
+    data["outliers"]["largest"], data["outliers"]["n_flagged"] = [], 0
+    for item in report["study"]["items"]:
+        item["reverse"] = False
+    html = render_html(report)
+    assert "every item flag no row at p &lt; .001." in html
+    assert "(R)" not in _table(build_document(report), "The items").notes[0]
 
 
 # --------------------------------------------------------------------------- the data section

@@ -313,8 +313,9 @@ def _data(doc: Document) -> None:
     if outliers:
         s.h3("Rows far from the others")
         flagged = outliers["n_flagged"]
+        rows = "no row" if flagged == 0 else f"{count(flagged)} row{'' if flagged == 1 else 's'}"
         s.p(f"Mahalanobis distances of the {count(outliers['n_checked'])} rows that answer every "
-            f"item flag {count(flagged)} row{'' if flagged == 1 else 's'} at p < .001"
+            f"item flag {rows} at p < .001"
             + ("; they were kept in the analysis, and the most distant are listed below so "
                "that their answers can be looked at." if flagged else "."))
         if outliers["largest"]:

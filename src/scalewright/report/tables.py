@@ -744,8 +744,10 @@ def screening_table(report: dict) -> Table:
                  ("Item", "Wording", "n", "Missing", "Mean", "SD", "Skewness", "Excess kurtosis",
                   "Answers per category"),
                  tuple(rows),
-                 ("(R) reverse-keyed: answers were turned round before analysis. n counts the "
-                  "answers given; statistics after reverse keying and before any row was left out.",),
+                 (("(R) reverse-keyed: answers were turned round before analysis. " if reverse
+                   else "") + "n counts the answers given; statistics "
+                  + ("after reverse keying and " if reverse else "")
+                  + "before any row was left out.",),
                  left=2)
 
 
