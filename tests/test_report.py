@@ -666,6 +666,12 @@ def test_omega_is_shown_with_its_interval_and_marked_at_the_conventional_minimum
             lo, hi = r["omega_ci95"]
             assert cells[r["construct"]].text == f"{apa(r['omega'], 2)} [{apa(lo, 2)}, {apa(hi, 2)}]"
             assert cells[r["construct"]].mark == ("✓" if r["omega"] >= RELIABILITY_MINIMUM else "✗")
+    # a model that did not converge has no omega (Holzinger–Swineford, 12 cases): one dash,
+    # where the table showed "– –"
+    m = report["models"][0]
+    m["reliability"][0].update(omega=None, omega_ci95=None)
+    table = _table(build_document(report), f"Reliability of the constructs of ‘{m['name']}’")
+    assert table.rows[0][3].text == "–"
 
 
 def test_the_part_of_omega_due_to_the_construct_alone_is_shown_where_it_differs_from_omega():

@@ -367,6 +367,11 @@ def _reliability_minimum_note(coefficient: str) -> str:
             "individuals need more.")
 
 
+def _with_interval(value, pair) -> str:
+    """``.86 [.63, .96]``; one dash when there is no value (not a dash for each part)."""
+    return DASH if value is None else f"{coef(value, 2)} {interval(pair, 2)}"
+
+
 def reliability_table(m: dict, prefix: str) -> Table:
     """Per construct: alpha and omega, each with its 95% interval, and H; the
     part of omega due to the construct alone where a general factor makes it
@@ -376,9 +381,9 @@ def reliability_table(m: dict, prefix: str) -> Table:
     for r in m["reliability"]:
         omega = r.get("omega")
         rows.append((_h(r["construct"]), _c(count(r.get("n_items"))),
-                     _c(f"{coef(r.get('alpha'), 2)} {interval(r.get('alpha_ci95'), 2)}"),
+                     _c(_with_interval(r.get("alpha"), r.get("alpha_ci95"))),
                      _marked(omega, None if omega is None else omega >= RELIABILITY_MINIMUM,
-                             f"{coef(omega, 2)} {interval(r.get('omega_ci95'), 2)}"))
+                             _with_interval(omega, r.get("omega_ci95"))))
                     + ((_c(coef(r.get("omega_construct"), 2)),) if alone else ())
                     + (_c(coef(r.get("coefficient_h"), 2)),))
     notes = ["Alpha (Cronbach 1951) with the Feldt interval (Feldt, Woodruff & Salih 1987); "
