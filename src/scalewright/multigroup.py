@@ -76,6 +76,7 @@ Methods 8, 16–37.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, replace
 from functools import cached_property
 
@@ -86,10 +87,11 @@ from threadpoolctl import threadpool_limits
 from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline_yuan_bentler,
                                        missing_patterns, observed_information, pattern_jacobian,
                                        pattern_moments, saturated_em, saturated_information,
-                                       saturated_scores_gram, yuan_bentler)
+                                       saturated_score_chunks, yuan_bentler)
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
 from scalewright.estimate.robust import RobustML, RobustTest, baseline_test, robust_fit_indices
 from scalewright.estimate.result import Estimate, invert_information
+from scalewright.estimate.yuan_bentler import score_traces
 from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
                                  saturated_loglik)
 from scalewright.layout import (FACTOR_COV, INTERCEPT, LATENT_MEAN, LOADING, PATH,
@@ -443,7 +445,8 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
     answers, where the expected one is not consistent under MAR (Kenward &
     Molenberghs 1998).  Groups are independent, so for
     the whole sample ``A_β = ⊕ w_g A_g`` and ``B_β = ⊕ w_g B_g`` (block
-    diagonal), and with ``Δ`` the stacked ``∂β_g/∂θ`` the Yuan–Bentler
+    diagonal; never formed: the groups' score traces add,
+    :class:`scalewright.estimate.yuan_bentler.ScoreTraces`), and with ``Δ`` the stacked ``∂β_g/∂θ`` the Yuan–Bentler
     correction (:func:`scalewright.estimate.fiml.yuan_bentler`) gives
     ``tr(UΓ) = tr(A_β⁻¹B_β) − tr((ΔᵀA_βΔ)⁻¹ΔᵀB_βΔ)``, the scaling factor
     ``c = tr(UΓ)/df`` and the sandwich covariance
@@ -465,38 +468,37 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
     Sociological Methodology 30, 165–200.
     """
     weights = np.asarray(moments.ns, dtype=float) / moments.n
-    a_blocks, b_blocks, deltas = [], [], []
+    first, traces = 0.0, None
     for g, (pattern, (patterns, pm, _)) in enumerate(zip(layout.patterns, moments.pattern_parts)):
         mats = pattern.matrices(theta)
-        at = pm if moments.full_information else _implied(pm, mats.implied_mean,
-                                                           mats.implied_cov)
-        a_g, _, _ = saturated_information(at, mats.implied_mean, mats.implied_cov)
-        b_g = (saturated_scores_gram(moments.values[g], patterns, mats.implied_mean,
-                                     mats.implied_cov) if moments.full_information
-               else _centred_scores_covariance(moments.values[g], patterns, mats.implied_cov))
-        a_blocks.append(weights[g] * a_g)
-        b_blocks.append(weights[g] * b_g)
-        deltas.append(pattern_jacobian(pattern, theta, layout.n_params))
-    a_beta, b_beta, delta = linalg.block_diag(*a_blocks), linalg.block_diag(*b_blocks), \
-        np.vstack(deltas)
-    first = delta.T @ a_beta @ delta
-    info = FimlInformation(first, first, delta.T @ b_beta @ delta, a_beta, b_beta, delta)
+        mu, sigma = mats.implied_mean, mats.implied_cov
+        at = pm if moments.full_information else _implied(pm, mu, sigma)
+        a_g = weights[g] * saturated_information(at, mu, sigma)[0]
+        delta = pattern_jacobian(pattern, theta, layout.n_params)
+        first = first + delta.T @ a_g @ delta
+        # B_β = ⊕ w_g B_g = GᵀG/N, since B_g averages over the group's n_g = w_g N rows
+        scores = (saturated_score_chunks(moments.values[g], patterns, mu, sigma)
+                  if moments.full_information else
+                  _centred_score_chunks(moments.values[g], patterns, sigma))
+        group = score_traces(a_g, scores, patterns.n, delta)
+        traces = group if traces is None else traces + group
+    info = FimlInformation(first, first, traces.meat / moments.n, traces)
     return yuan_bentler(info, moments.n, chi_square, df)
 
 
-def _centred_scores_covariance(x: np.ndarray, patterns, sigma: np.ndarray) -> np.ndarray:
-    """Covariance of the casewise scores of ``β = (vech Σ, μ)`` at ``Σ̂`` for
-    complete rows centred at their mean: the Gram of the scores minus the
-    outer product of their mean ``(½·vech(VSV − V), 0)`` (halves on the
-    diagonal, as the scores), ``V = Σ̂⁻¹``, ``S`` the ÷N covariance."""
+def _centred_score_chunks(x: np.ndarray, patterns, sigma: np.ndarray) -> Iterator[np.ndarray]:
+    """The casewise scores of ``β = (vech Σ, μ)`` at ``Σ̂`` for complete rows
+    centred at their mean, less the scores' mean ``(½·vech(VSV − V), 0)``
+    (halves on the diagonal, as the scores), ``V = Σ̂⁻¹``, ``S`` the ÷N
+    covariance: their Gram over ``N`` is the scores' covariance."""
     mean = x.mean(axis=0)
-    gram = saturated_scores_gram(x, patterns, mean, sigma)
     v = linalg.inv(sigma)
     rows, cols = np.tril_indices(len(mean))
     half = np.where(rows != cols, 1.0, 0.5)
     score_mean = np.concatenate([(v @ np.cov(x, rowvar=False, bias=True) @ v - v)[rows, cols]
                                  * half, np.zeros(len(mean))])
-    return gram - np.outer(score_mean, score_mean)
+    for chunk in saturated_score_chunks(x, patterns, mean, sigma):
+        yield chunk - score_mean
 
 
 def _implied(pm: PatternMoments, mu: np.ndarray, sigma: np.ndarray) -> PatternMoments:

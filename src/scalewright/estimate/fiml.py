@@ -36,7 +36,9 @@ moments), ``Δ = ∂β/∂θ``, ``A_θ = ΔᵀA_βΔ`` and ``B_θ = ΔᵀB_βΔ`
 * ``U = A_β − A_βΔA_θ⁻¹ΔᵀA_β`` and ``Γ = A_β⁻¹B_βA_β⁻¹``, so that
   ``tr(UΓ) = tr(A_β⁻¹B_β) − tr(A_θ⁻¹B_θ)`` and ``UΓ = (1 − A_βΔA_θ⁻¹Δᵀ) B_β A_β⁻¹``;
   the scaled and adjusted statistics follow as in
-  :mod:`scalewright.estimate.robust`.
+  :mod:`scalewright.estimate.robust`.  Both traces come from the casewise
+  scores and one factorisation of ``A_β``, without ``B_β``, ``Γ`` or ``U``
+  (:mod:`scalewright.estimate.yuan_bentler`).
 
 The casewise score of ``β`` for a person with answered items ``o`` and
 ``z = Ṽ(x − μ)`` is ``∂ℓ_i/∂Σ_jk = (zzᵀ − Ṽ)_jk`` (half that on the
@@ -71,6 +73,7 @@ Methodology 30, 165–200.
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -82,6 +85,7 @@ from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
 from scalewright.estimate.pattern_products import mean_pair_form, pair_form
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
+from scalewright.estimate.yuan_bentler import ScoreTraces, corrected_traces, score_traces
 from scalewright.layout import (INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives,
                                 cell_factors)
 
@@ -438,24 +442,22 @@ def saturated_information(moments: PatternMoments, mu: np.ndarray, sigma: np.nda
     return info, grad_sigma, grad_mu
 
 
-def saturated_scores_gram(values: np.ndarray, patterns: Patterns, mu: np.ndarray,
-                          sigma: np.ndarray, emb: _Embedded | None = None) -> np.ndarray:
-    """``B_β = (1/N) Σ_i s_i s_iᵀ`` from the casewise scores of ``β``, in chunks."""
+def saturated_score_chunks(values: np.ndarray, patterns: Patterns, mu: np.ndarray,
+                           sigma: np.ndarray, emb: _Embedded | None = None
+                           ) -> Iterator[np.ndarray]:
+    """The casewise scores ``s_i`` of ``β = (vech Σ, μ)`` at ``(μ, Σ)`` (module
+    docstring), ``CHUNK`` rows at a time (rows with an answer, in data order)."""
     p = len(mu)
     emb = _embedded_inverses(sigma, patterns.masks) if emb is None else emb
     rows, cols, off = _vech_index(p)
     half = np.where(off, 1.0, 0.5)
     rows_used = np.nonzero(patterns.index >= 0)[0]
-    dim = len(rows) + p
-    gram = np.zeros((dim, dim))
     for start in range(0, len(rows_used), CHUNK):
         r_idx = rows_used[start:start + CHUNK]
         v = emb.v[patterns.index[r_idx]]
         z = np.einsum("nij,nj->ni", v, np.nan_to_num(values[r_idx] - mu))
         s_sigma = (z[:, rows] * z[:, cols] - v[:, rows, cols]) * half
-        s = np.hstack([s_sigma, z])
-        gram += s.T @ s
-    return gram / len(rows_used)
+        yield np.hstack([s_sigma, z])
 
 
 def _second_order_term(pattern: Pattern, n_params: int, theta: np.ndarray,
@@ -486,9 +488,7 @@ class FimlInformation:
     observed: np.ndarray        # Ã_θ, full observed information
     first_order: np.ndarray     # A_θ = ΔᵀA_βΔ
     meat: np.ndarray            # B_θ = ΔᵀB_βΔ
-    a_beta: np.ndarray
-    b_beta: np.ndarray
-    delta: np.ndarray
+    traces: ScoreTraces         # what tr(UΓ), tr((UΓ)²) need of A_β and the scores
 
 
 @dataclass(frozen=True)
@@ -547,19 +547,21 @@ def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
 
 def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
                      patterns: Patterns, moments: PatternMoments) -> FimlInformation:
-    """Observed information and casewise-score outer products of a FIML fit
+    """Observed information and casewise-score products of a FIML fit
     (``layout`` with intercepts, one group): what the Yuan–Bentler
-    corrections need (:func:`yuan_bentler`).  The standard errors alone need
-    only :func:`observed_information`, without the ``p* × p*`` matrices
-    ``A_β`` and ``B_β``."""
+    corrections need (:func:`yuan_bentler`).  ``A_β`` is built and factored
+    once; ``B_β`` is never formed (:mod:`~scalewright.estimate.yuan_bentler`).
+    The standard errors alone need only :func:`observed_information`."""
     pattern = layout.patterns[0]
     info = observed_information(pattern, layout.n_params, theta, moments)
     mats = pattern.matrices(theta)
-    a_beta, _, _ = saturated_information(moments, mats.implied_mean, mats.implied_cov)
+    mu, sigma = mats.implied_mean, mats.implied_cov
+    emb = _embedded_inverses(sigma, moments.masks)
+    a_beta, _, _ = saturated_information(moments, mu, sigma, emb)
     delta = pattern_jacobian(pattern, theta, layout.n_params)
-    b_beta = saturated_scores_gram(values, patterns, mats.implied_mean, mats.implied_cov)
-    return FimlInformation(info.observed, info.first_order, delta.T @ b_beta @ delta,
-                           a_beta, b_beta, delta)
+    traces = score_traces(a_beta, saturated_score_chunks(values, patterns, mu, sigma, emb),
+                          patterns.n, delta)
+    return FimlInformation(info.observed, info.first_order, traces.meat / patterns.n, traces)
 
 
 def observed_acov(info: FimlInformation, n: int) -> np.ndarray:
@@ -569,29 +571,12 @@ def observed_acov(info: FimlInformation, n: int) -> np.ndarray:
 
 def yuan_bentler(info: FimlInformation, n: int, chi_square: float, df: int) -> RobustML:
     """Sandwich covariance of θ̂ and the scaled/adjusted statistics under
-    missing data (Yuan & Bentler 2000; formulas in the module docstring)."""
+    missing data (Yuan & Bentler 2000; formulas in the module docstring, the
+    traces by :func:`~scalewright.estimate.yuan_bentler.corrected_traces`)."""
     obs_inv = linalg.inv(info.observed)
     acov = obs_inv @ info.meat @ obs_inv / n
-    first_inv = linalg.inv(info.first_order)
-    gamma_part = _times_inverse(info.b_beta, info.a_beta)         # B A⁻¹
-    # the projection A Δ F⁻¹ Δᵀ has rank q: applied as two thin products, not as a
-    # p* × p* matrix times B A⁻¹
-    ug = gamma_part - (info.a_beta @ (info.delta @ first_inv)) @ (info.delta.T @ gamma_part)
-    trace = float(np.trace(ug))
-    return RobustML(acov, RobustTest(float(chi_square), int(df), trace, float(np.sum(ug * ug.T))))
-
-
-def _times_inverse(b: np.ndarray, a: np.ndarray) -> np.ndarray:
-    """``B A⁻¹`` for symmetric ``A`` and ``B``, as ``(A⁻¹B)ᵀ`` by one Cholesky
-    factorisation and solve (6 s instead of 9 s at ``p* = 5,150``); when ``A``
-    is not positive definite (seen for the independence model's ``A_β``), by
-    the inverse and a product (a general solve with ``p*`` right-hand sides
-    took 85 s there)."""
-    try:
-        return linalg.cho_solve(linalg.cho_factor(a, check_finite=False), b,
-                                check_finite=False).T
-    except linalg.LinAlgError:
-        return b @ linalg.inv(a)
+    trace, square = corrected_traces(info.traces, info.first_order, n)
+    return RobustML(acov, RobustTest(float(chi_square), int(df), trace, square))
 
 
 def baseline_yuan_bentler(values: np.ndarray, patterns: Patterns, moments: PatternMoments,
