@@ -419,20 +419,26 @@ def saturated_information(moments: PatternMoments, mu: np.ndarray, sigma: np.nda
                           emb: _Embedded | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Observed information per case of ``β = (vech Σ, μ)`` at ``(μ, Σ)``,
     and the derivatives ``G = ∂f/∂Σ`` (full symmetric) and ``g = ∂f/∂μ`` of
-    ``f = −ℓ/N`` (see the module docstring for the formula)."""
+    ``f = −ℓ/N`` (see the module docstring for the formula).
+
+    With ``D_k = M_k − ½Ṽ_k``, the docstring's ``Σ``-block
+    ``−½ tr(ṼYṼX) + ½[tr(YṼXM) + tr(XṼYM)]`` is ``½[tr(YṼXD) + tr(XṼYD)]``,
+    which in single-entry directions is ``Σ_k w_k Ṽ_k ⊗ D_k`` summed over
+    both orders of each vech pair: one product ``Σ_k w_k vec Ṽ_k vec D_kᵀ``
+    (``p² × p²``), one axis permutation and the pair sums (no second
+    product, and no transposed ``p⁴`` additions)."""
     p = len(mu)
     emb = _embedded_inverses(sigma, moments.masks) if emb is None else emb
     w = moments.counts / moments.counts.sum()
     v = emb.v
+    k = len(w)
     r = (moments.means - mu) * moments.masks
     z = np.einsum("kij,kj->ki", v, r)
     m = v @ (moments.covs + r[:, :, None] * r[:, None, :]) @ v
-    vf, mf = v.reshape(len(w), p * p), m.reshape(len(w), p * p)
-    pvv = (vf * w[:, None]).T @ vf
-    pvm = (vf * w[:, None]).T @ mf
-    q = -0.5 * pvv + 0.5 * (pvm + pvm.T)                        # [(j,k),(l,i)]
-    h4 = q.reshape(p, p, p, p).transpose(3, 0, 1, 2).reshape(p * p, p * p)
-    a_ss = _reduce_pairs(_reduce_pairs(h4, p, 1), p, 0)
+    pairs = (v.reshape(k, p * p) * w[:, None]).T @ (m - 0.5 * v).reshape(k, p * p)
+    kron = pairs.reshape(p, p, p, p).transpose(0, 2, 1, 3).reshape(p * p, p * p)   # ⊗
+    del pairs                                   # p⁴ doubles: not held through the sums
+    a_ss = _reduce_pairs(_reduce_pairs(kron, p, 1), p, 0)
     h3 = np.einsum("k,ki,kjm->ijm", w, z, v).reshape(p * p, p)
     a_sm = _reduce_pairs(h3, p, 0)
     a_mm = np.einsum("k,kij->ij", w, v)
