@@ -141,20 +141,39 @@ def test_model_traces_and_sandwich_match_the_dense_formulas(one_group, route):
                                rtol=RTOL, atol=1e-14)
 
 
-def test_baseline_traces_match_the_dense_formulas_where_a_is_indefinite(one_group, route):
+def test_baseline_trace_matches_the_dense_formula_where_a_is_indefinite(one_group, route):
     x, _, patterns, moments, saturated = one_group
     _, mean, var = independence_fiml(x)
     layout = with_intercepts(independence_layout(HS_ITEMS, var), mean)
     theta = np.concatenate([var, mean])
     a, g = dense_pieces(x, mean, np.diag(var))
     # the observed information at the independence model is not positive definite
-    # here, so the LU factorisation stands in for the Cholesky factor
+    # here, so the Bunch–Kaufman factorisation stands in for the Cholesky factor
     assert np.linalg.eigvalsh(a).min() < 0
-    trace, square = dense_traces(a, g.T @ g / len(x), dense_delta(layout.patterns[0], theta))
+    trace, _ = dense_traces(a, g.T @ g / len(x), dense_delta(layout.patterns[0], theta))
     test = baseline_yuan_bentler(x, patterns, moments, saturated)
-    # Yuan & Bentler (2000), dense, built above
+    # Yuan & Bentler (2000), dense, built above; the robust fit indices need only the
+    # baseline's scaling factor, so its tr((UΓ)²) is not computed
     assert test.trace == pytest.approx(trace, rel=RTOL)
-    assert test.trace_squared == pytest.approx(square, rel=RTOL)
+    assert np.isnan(test.trace_squared)
+
+
+def test_indefinite_model_information_takes_the_bunch_kaufman_route(one_group, route,
+                                                                   monkeypatch):
+    # the model's own A_β is positive definite; its traces with the Cholesky
+    # factor refused must come out the same through the Bunch–Kaufman factor
+    x, fitted, patterns, moments, _ = one_group
+    info = fiml_information(fitted.layout, fitted.theta, x, patterns, moments)
+    expected = yuan_bentler(info, fitted.n, fitted.chi_square, fitted.df).test
+
+    def refuse(*args, **kwargs):
+        raise linalg.LinAlgError("refused by the test")
+    monkeypatch.setattr(traces_module.linalg, "cholesky", refuse)
+    info = fiml_information(fitted.layout, fitted.theta, x, patterns, moments)
+    test = yuan_bentler(info, fitted.n, fitted.chi_square, fitted.df).test
+    # the same algebra through another factorisation: equal up to rounding
+    assert test.trace == pytest.approx(expected.trace, rel=RTOL)
+    assert test.trace_squared == pytest.approx(expected.trace_squared, rel=RTOL)
 
 
 def test_multigroup_traces_add_over_groups_as_the_block_diagonal_formulas(hs_data, route):

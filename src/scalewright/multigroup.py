@@ -446,8 +446,8 @@ def robust_test(layout: Layout, theta: np.ndarray, moments: GroupMoments, chi_sq
     Molenberghs 1998).  Groups are independent, so for
     the whole sample ``A_β = ⊕ w_g A_g`` and ``B_β = ⊕ w_g B_g`` (block
     diagonal; never formed: the groups' score traces add,
-    :class:`scalewright.estimate.yuan_bentler.ScoreTraces`), and with ``Δ`` the stacked ``∂β_g/∂θ`` the Yuan–Bentler
-    correction (:func:`scalewright.estimate.fiml.yuan_bentler`) gives
+    :class:`scalewright.estimate.yuan_bentler.ScoreTraces`), and with ``Δ``
+    the stacked ``∂β_g/∂θ`` the Yuan–Bentler correction (:func:`scalewright.estimate.fiml.yuan_bentler`) gives
     ``tr(UΓ) = tr(A_β⁻¹B_β) − tr((ΔᵀA_βΔ)⁻¹ΔᵀB_βΔ)``, the scaling factor
     ``c = tr(UΓ)/df`` and the sandwich covariance
     ``(ΔᵀA_βΔ)⁻¹ ΔᵀB_βΔ (ΔᵀA_βΔ)⁻¹ / N`` (the first-order information, which
@@ -510,19 +510,20 @@ def _implied(pm: PatternMoments, mu: np.ndarray, sigma: np.ndarray) -> PatternMo
 
 def baseline_robust_test(moments: GroupMoments) -> RobustTest:
     """Scaled test of the multi-group baseline (independence within each
-    group): the groups share no parameter, so ``T``, ``tr(UΓ)`` and
-    ``tr((UΓ)²)`` are sums of the groups' own: with missing answers
+    group): the groups share no parameter, so ``T`` and ``tr(UΓ)`` are sums
+    of the groups' own: with missing answers
     :func:`scalewright.estimate.fiml.baseline_yuan_bentler`, for complete data
     the Satorra–Bentler test of one group
     (:func:`scalewright.estimate.robust.baseline_test`; the saturated means add
-    nothing to its trace, and ``tr((UΓ)²)`` is not computed)."""
+    nothing to its trace).  The robust fit indices need only the scaling
+    factor, so neither computes ``tr((UΓ)²)`` and ``trace_squared`` is NaN."""
     if not moments.full_information:
         tests = [baseline_test(x, moments.items) for x in moments.values]
     else:
         tests = [baseline_yuan_bentler(x, patterns, pm, saturated)
                  for x, (patterns, pm, saturated) in zip(moments.values, moments.pattern_parts)]
     return RobustTest(sum(t.chi_square for t in tests), sum(t.df for t in tests),
-                      sum(t.trace for t in tests), sum(t.trace_squared for t in tests))
+                      sum(t.trace for t in tests), float("nan"))
 
 
 def srmr_with_means(moments: GroupMoments, implied_covs, implied_means) -> float:

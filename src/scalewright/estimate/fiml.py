@@ -552,12 +552,15 @@ def observed_information(pattern: Pattern, n_params: int, theta: np.ndarray,
 
 
 def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
-                     patterns: Patterns, moments: PatternMoments) -> FimlInformation:
+                     patterns: Patterns, moments: PatternMoments, *,
+                     variance: bool = True) -> FimlInformation:
     """Observed information and casewise-score products of a FIML fit
     (``layout`` with intercepts, one group): what the Yuan–Bentler
     corrections need (:func:`yuan_bentler`).  ``A_β`` is built and factored
     once; ``B_β`` is never formed (:mod:`~scalewright.estimate.yuan_bentler`).
-    The standard errors alone need only :func:`observed_information`."""
+    Without ``variance``, what ``tr((UΓ)²)`` alone needs is skipped (the
+    adjusted statistic is then NaN).  The standard errors alone need only
+    :func:`observed_information`."""
     pattern = layout.patterns[0]
     info = observed_information(pattern, layout.n_params, theta, moments)
     mats = pattern.matrices(theta)
@@ -566,7 +569,7 @@ def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
     a_beta, _, _ = saturated_information(moments, mu, sigma, emb)
     delta = pattern_jacobian(pattern, theta, layout.n_params)
     traces = score_traces(a_beta, saturated_score_chunks(values, patterns, mu, sigma, emb),
-                          patterns.n, delta)
+                          patterns.n, delta, variance=variance)
     return FimlInformation(info.observed, info.first_order, traces.meat / patterns.n, traces)
 
 
@@ -587,11 +590,14 @@ def yuan_bentler(info: FimlInformation, n: int, chi_square: float, df: int) -> R
 
 def baseline_yuan_bentler(values: np.ndarray, patterns: Patterns, moments: PatternMoments,
                           saturated: Saturated) -> RobustTest:
-    """Scaled test of the independence model under missing data (for robust CFI/TLI)."""
+    """Scaled test of the independence model under missing data (for robust
+    CFI/TLI, which need only its scaling factor: as for complete data,
+    :func:`scalewright.estimate.robust.baseline_test`, ``tr((UΓ)²)`` is not
+    computed and ``trace_squared`` is NaN)."""
     loglik, mean, var = independence_fiml(values)
     layout = with_intercepts(independence_layout(patterns.items, var), mean)
     theta = np.concatenate([var, mean])
-    info = fiml_information(layout, theta, values, patterns, moments)
+    info = fiml_information(layout, theta, values, patterns, moments, variance=False)
     chi2 = 2.0 * (saturated.loglik - loglik)
     return yuan_bentler(info, patterns.n, chi2, layout.df()).test
 

@@ -17,18 +17,23 @@ and ``Z = GΔ`` (``N × q``, the casewise scores of θ),
     tr((UΓ)²)  = [‖K₁‖²_F − 2 tr(F⁻¹ ZᵀK₁Z) + tr((F⁻¹ZᵀZ)²)] / N²,
     K₁ = G A⁻¹ Gᵀ     (N × N, symmetric).
 
-Only ``K₁`` involves ``A``.  Two exact routes, the cheaper taken:
+Only ``K₁`` involves ``A``, through one symmetric factorisation
+``A = L S Lᵀ``: Cholesky (``S = 1``) where ``A`` is positive definite, else
+Bunch–Kaufman (``S`` block diagonal with 1 × 1 and 2 × 2 blocks, ``L``
+unit lower triangular after a symmetric permutation; Bunch & Kaufman 1977):
+the observed information need not be positive definite, and is not at the
+independence baseline of real data.  Two exact routes, the cheaper taken:
 
-* **kernel** (``N ≤ 1.4 p*``): ``K₁ = YᵀY`` with ``Y = L⁻¹Gᵀ`` from one
-  Cholesky factor ``A = LLᵀ``: about ``p*³/3 + p*²N + N²p*`` flops instead
-  of the ``p*³`` solve with ``p*`` right-hand sides of ``A⁻¹B``;
-* **Gram** (more rows): ``H = GᵀG`` accumulated over chunks of cases, then
-  ``tr K₁ = tr(A⁻¹H)``, ``‖K₁‖²_F = tr((A⁻¹H)²)`` and
-  ``ZᵀK₁Z = ΔᵀH(A⁻¹H)Δ``: ``p*²N + 2p*³`` flops.
+* **kernel** (``N ≤ 1.4 p*``): ``K₁ = YᵀS⁻¹Y`` with ``Y = L⁻¹Gᵀ``: about
+  ``p*³/3 + p*²N + N²p*`` flops instead of the ``p*³`` solve of ``A⁻¹B``
+  with ``p*`` right-hand sides;
+* **Gram** (more rows): ``H = GᵀG`` accumulated over chunks of cases; with
+  ``Ĥ = L⁻¹HL⁻ᵀ``, ``tr K₁ = tr(S⁻¹Ĥ)``, ``‖K₁‖²_F = tr((S⁻¹Ĥ)²)`` and
+  ``ZᵀK₁Z = (L⁻¹HΔ)ᵀS⁻¹(L⁻¹HΔ)``: ``p*²N + 2p*³`` flops.
 
-The observed information ``A`` need not be positive definite (it is not at
-the independence baseline of real data); then an LU factorisation takes
-the Cholesky factor's place (``K₁ = G·A⁻¹Gᵀ``).
+Where only the scaling factor is wanted (the baseline of the robust fit
+indices), ``‖K₁‖²_F`` and ``ZᵀK₁Z`` are skipped: ``tr K₁ = Σ_i y_iᵀS⁻¹y_i``
+needs no ``N × N`` product.
 
 In a multi-group model the groups are independent: ``A = ⊕ w_g A_g`` and
 ``B = ⊕ w_g B_g`` (``w_g = N_g/N``), so ``K₁`` is block diagonal, and its
@@ -39,6 +44,9 @@ References
 Yuan, K.-H. & Bentler, P. M. (2000). Three likelihood-based methods for mean
 and covariance structure analysis with nonnormal missing data. Sociological
 Methodology 30, 165–200.
+Bunch, J. R. & Kaufman, L. (1977). Some stable methods for calculating
+inertia and solving symmetric linear systems. Mathematics of Computation 31,
+163–179.
 """
 
 from __future__ import annotations
@@ -72,52 +80,86 @@ class ScoreTraces:
 
 
 def score_traces(a_beta: np.ndarray, chunks: Iterable[np.ndarray], n: int,
-                 delta: np.ndarray) -> ScoreTraces:
+                 delta: np.ndarray, *, variance: bool = True) -> ScoreTraces:
     """:class:`ScoreTraces` of one group from its information ``a_beta``
     (``p* × p*``, weighted by the group's share of the cases in a
     multi-group model), the casewise scores of ``β`` in ``chunks`` of rows
-    (``n`` rows in all) and ``delta = ∂β/∂θ`` (``p* × q``)."""
+    (``n`` rows in all) and ``delta = ∂β/∂θ`` (``p* × q``).  Without
+    ``variance`` only ``norm`` and ``meat`` are computed (``square`` is NaN,
+    ``cross`` zero): all that ``tr(UΓ)`` needs."""
+    factor = _Factor.of(a_beta)
     if n <= KERNEL_ROWS * len(a_beta):
-        return _kernel_route(a_beta, np.vstack(list(chunks)), delta)
-    return _gram_route(a_beta, chunks, delta)
+        return _kernel_route(factor, np.vstack(list(chunks)), delta, variance)
+    return _gram_route(factor, chunks, delta, variance)
 
 
-def _cholesky(a: np.ndarray) -> np.ndarray | None:
-    """The lower Cholesky factor of ``a``, ``None`` when it is not positive definite."""
-    try:
-        return linalg.cholesky(a, lower=True, check_finite=False)
-    except linalg.LinAlgError:
-        return None
+@dataclass(frozen=True)
+class _Factor:
+    """``A = L S Lᵀ`` (module docstring): ``half(R) = L⁻¹R`` and ``middle(Y) = S⁻¹Y``."""
+
+    low: np.ndarray                 # L, rows permuted to lower triangular
+    perm: np.ndarray | None         # the row permutation (None: Cholesky)
+    bands: np.ndarray | None        # S in banded storage (None: S = 1)
+
+    @classmethod
+    def of(cls, a: np.ndarray) -> _Factor:
+        try:
+            return cls(linalg.cholesky(a, lower=True, check_finite=False), None, None)
+        except linalg.LinAlgError:
+            pass
+        low, s, perm = linalg.ldl(a, lower=True, check_finite=False)
+        bands = np.zeros((3, len(a)))
+        bands[0, 1:] = np.diagonal(s, 1)
+        bands[1] = np.diagonal(s)
+        bands[2, :-1] = np.diagonal(s, -1)
+        return cls(low[perm], perm, bands)
+
+    def half(self, r: np.ndarray) -> np.ndarray:
+        rows = r if self.perm is None else r[self.perm]
+        return linalg.solve_triangular(self.low, rows, lower=True,
+                                       unit_diagonal=self.perm is not None, check_finite=False)
+
+    def middle(self, y: np.ndarray) -> np.ndarray:
+        if self.bands is None:
+            return y
+        return linalg.solve_banded((1, 1), self.bands, y, check_finite=False)
 
 
-def _kernel_route(a: np.ndarray, g: np.ndarray, delta: np.ndarray) -> ScoreTraces:
-    """``K₁ = GA⁻¹Gᵀ`` (``N × N``) by one factorisation of ``A``."""
-    low = _cholesky(a)
-    if low is not None:
-        y = linalg.solve_triangular(low, g.T, lower=True, check_finite=False)   # L⁻¹Gᵀ
-        kernel = blas.dsyrk(1.0, y, trans=1, lower=1)                           # YᵀY, lower half
+def _kernel_route(factor: _Factor, g: np.ndarray, delta: np.ndarray,
+                  variance: bool) -> ScoreTraces:
+    """``K₁ = YᵀS⁻¹Y`` (``N × N``) with ``Y = L⁻¹Gᵀ``."""
+    y = factor.half(g.T)
+    sy = factor.middle(y)
+    z = g @ delta
+    if not variance:
+        return ScoreTraces(float(np.sum(y * sy)), float("nan"), np.zeros((len(z.T),) * 2),
+                           z.T @ z)
+    if factor.bands is None:
+        kernel = blas.dsyrk(1.0, y, trans=1, lower=1)                          # YᵀY, lower half
         kernel += np.tril(kernel, -1).T
     else:
-        kernel = g @ linalg.lu_solve(linalg.lu_factor(a, check_finite=False), g.T,
-                                     check_finite=False)
+        kernel = y.T @ sy
         kernel = 0.5 * (kernel + kernel.T)
-    z = g @ delta
     return ScoreTraces(float(np.trace(kernel)), float(np.sum(kernel * kernel)),
                        z.T @ kernel @ z, z.T @ z)
 
 
-def _gram_route(a: np.ndarray, chunks: Iterable[np.ndarray], delta: np.ndarray) -> ScoreTraces:
-    """``H = GᵀG`` over chunks of cases, then ``A⁻¹H`` by one factorisation."""
-    gram = np.zeros((len(a), len(a)), order="F")
+def _gram_route(factor: _Factor, chunks: Iterable[np.ndarray], delta: np.ndarray,
+                variance: bool) -> ScoreTraces:
+    """``H = GᵀG`` over chunks of cases, then ``Ĥ = L⁻¹HL⁻ᵀ``."""
+    size = len(delta)
+    gram = np.zeros((size, size), order="F")
     for g in chunks:
-        gram = blas.dsyrk(1.0, g, trans=1, beta=1.0, c=gram, overwrite_c=1)    # upper half
+        gram = blas.dsyrk(1.0, g, trans=1, beta=1.0, c=gram, overwrite_c=1)   # upper half
     gram = np.triu(gram) + np.triu(gram, 1).T
-    low = _cholesky(a)
-    solved = linalg.cho_solve((low, True), gram, check_finite=False) if low is not None else \
-        linalg.lu_solve(linalg.lu_factor(a, check_finite=False), gram, check_finite=False)
-    hd = gram @ delta
+    half = factor.half(gram)                                                  # L⁻¹H
+    solved = factor.middle(factor.half(half.T))                               # S⁻¹Ĥ
+    meat = delta.T @ gram @ delta
+    if not variance:
+        return ScoreTraces(float(np.trace(solved)), float("nan"), np.zeros_like(meat), meat)
+    hd = half @ delta                                                         # L⁻¹HΔ
     return ScoreTraces(float(np.trace(solved)), float(np.sum(solved * solved.T)),
-                       hd.T @ (solved @ delta), delta.T @ hd)
+                       hd.T @ factor.middle(hd), meat)
 
 
 def corrected_traces(traces: ScoreTraces, first_order: np.ndarray, n: int
