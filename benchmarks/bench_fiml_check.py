@@ -26,8 +26,8 @@ from threadpoolctl import threadpool_limits
 
 from bench_check import N_CONSTRUCTS, N_ITEMS
 from bench_engine import N_ROWS, simulated
-from common import (FIVE_POINT_CUTS, describe_machine, machine_state, model_spec, timed, write_float_csv,
-                    write_model_file)
+from common import (FIVE_POINT_CUTS, describe_machine, machine_state, model_spec, timed,
+                    write_float_csv, write_model_file)
 
 import scalewright
 from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, fit_fiml,
