@@ -89,6 +89,29 @@ def test_items_in_wildly_different_units_give_the_same_fit_and_standardized_solu
         assert_allclose(b["se"], a["se"] * factor[a["item"]], rtol=RTOL)
 
 
+def test_items_in_units_far_apart_leave_no_numerical_warnings_on_the_console(tmp_path, hs_data):
+    # the same rescaled items through a whole robust check: the inverses of the implied
+    # covariance and of the information are by Cholesky (spd_inverse), which, unlike an
+    # LU inverse with its condition estimate, does not print scipy's LinAlgWarning for
+    # a matrix that is only badly scaled
+    import warnings
+
+    from scipy.linalg import LinAlgWarning
+
+    import scalewright
+
+    scales = np.array([1e-4, 1.0, 1e4, 1e-2, 1.0, 1e3, 1e2, 1.0, 1e-3])
+    (hs_data[list(HS_ITEMS)] * scales).to_csv(tmp_path / "units.csv", index=False)
+    (tmp_path / "units.yaml").write_text(
+        "study: Units\ndata:\n  file: units.csv\nestimation:\n  method: robust\nmodels:\n"
+        "  three:\n    constructs:\n      visual: [x1, x2, x3]\n      textual: [x4, x5, x6]\n"
+        "      speed: [x7, x8, x9]\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", LinAlgWarning)
+        result = scalewright.check(tmp_path / "units.yaml")
+    assert result.models[0].converged
+
+
 def test_published_standardized_loadings_and_correlations(hs_x):
     # shared/design/references.md [computed with semopy 2.3.11], three decimals
     result = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).to_dict()

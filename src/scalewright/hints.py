@@ -68,6 +68,7 @@ from scipy.linalg import blas
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.normal import NormalFit
 from scalewright.estimate.result import Estimate
+from scalewright.estimate.spd_inverse import spd_inverse
 from scalewright.layout import LOADING, RESIDUAL_COV, Matrices, Pattern, cell_derivatives
 
 #: a candidate whose information net of the free parameters is below this
@@ -252,7 +253,7 @@ def _group_scores(objective: NormalFit, g: int, pattern: Pattern, mats: Matrices
     for block in (b for b in objective.blocks if b.group == g):
         o = block.observed
         w = block.n / n_total
-        v_o = linalg.inv(sigma[np.ix_(o, o)])
+        v_o = spd_inverse(sigma[np.ix_(o, o)])
         # r = x̄_b − μ_b (zero without a mean structure, where μ_b = x̄_b)
         r = np.zeros(p)
         if pattern.has_means:

@@ -81,7 +81,6 @@ from dataclasses import dataclass, replace
 from functools import cached_property
 
 import numpy as np
-from scipy import linalg
 from threadpoolctl import threadpool_limits
 
 from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline_yuan_bentler,
@@ -91,6 +90,7 @@ from scalewright.estimate.fiml import (FimlInformation, PatternMoments, baseline
 from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
 from scalewright.estimate.robust import RobustML, RobustTest, baseline_test, robust_fit_indices
 from scalewright.estimate.result import Estimate, invert_information
+from scalewright.estimate.spd_inverse import spd_inverse
 from scalewright.estimate.yuan_bentler import score_traces
 from scalewright.indices import (FitIndices, fit_indices, independence_chi_square,
                                  saturated_loglik)
@@ -492,7 +492,7 @@ def _centred_score_chunks(x: np.ndarray, patterns, sigma: np.ndarray) -> Iterato
     (halves on the diagonal, as the scores), ``V = Σ̂⁻¹``, ``S`` the ÷N
     covariance: their Gram over ``N`` is the scores' covariance."""
     mean = x.mean(axis=0)
-    v = linalg.inv(sigma)
+    v = spd_inverse(sigma)
     rows, cols = np.tril_indices(len(mean))
     half = np.where(rows != cols, 1.0, 0.5)
     score_mean = np.concatenate([(v @ np.cov(x, rowvar=False, bias=True) @ v - v)[rows, cols]

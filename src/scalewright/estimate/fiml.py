@@ -77,7 +77,6 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
 
 from scalewright.errors import StudyError
 from scalewright.estimate.cell_products import CellIndex, sandwich
@@ -85,6 +84,7 @@ from scalewright.estimate.fisher import OptimizerRecord
 from scalewright.estimate.normal import LOG_2PI, Block, NormalFit, embedded_inverse, fit_normal
 from scalewright.estimate.pattern_products import mean_pair_form, pair_form
 from scalewright.estimate.robust import RobustML, RobustTest, incidence, independence_layout
+from scalewright.estimate.spd_inverse import spd_inverse
 from scalewright.estimate.yuan_bentler import ScoreTraces, corrected_traces, score_traces
 from scalewright.layout import (INTERCEPT, Cells, Layout, Param, Pattern, cell_derivatives,
                                 cell_factors)
@@ -583,14 +583,14 @@ def fiml_information(layout: Layout, theta: np.ndarray, values: np.ndarray,
 
 def observed_acov(info: FimlInformation, n: int) -> np.ndarray:
     """Normal-theory covariance of θ̂ from the observed information, ``(N Ã_θ)⁻¹``."""
-    return linalg.inv(info.observed) / n
+    return spd_inverse(info.observed) / n
 
 
 def yuan_bentler(info: FimlInformation, n: int, chi_square: float, df: int) -> RobustML:
     """Sandwich covariance of θ̂ and the scaled/adjusted statistics under
     missing data (Yuan & Bentler 2000; formulas in the module docstring, the
     traces by :func:`~scalewright.estimate.yuan_bentler.corrected_traces`)."""
-    obs_inv = linalg.inv(info.observed)
+    obs_inv = spd_inverse(info.observed)
     acov = obs_inv @ info.meat @ obs_inv / n
     trace, square = corrected_traces(info.traces, info.first_order, n)
     return RobustML(acov, RobustTest(float(chi_square), int(df), trace, square))

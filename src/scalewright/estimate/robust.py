@@ -64,8 +64,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import stats
 
+from scalewright.estimate.spd_inverse import spd_inverse
 from scalewright.estimate.variance_trace import variance_trace
 from scalewright.indices import comparative_fit, rmsea, rmsea_interval
 from scalewright.layout import (RESIDUAL_COV, Cells, Layout, Matrices, Param, Pattern,
@@ -176,7 +177,7 @@ def score_cross_products(layout: Layout, theta: np.ndarray, x: np.ndarray,
     """
     pattern = _single_pattern(layout)
     mats = pattern.matrices(theta)
-    v = linalg.inv(mats.implied_cov)
+    v = spd_inverse(mats.implied_cov)
     mean = x.mean(axis=0) if mean is None else mean
     s = np.cov(x, rowvar=False, bias=True) if cov is None else cov
     a, b, _ = cell_derivatives(pattern, mats)
@@ -220,13 +221,13 @@ def robust_ml(layout: Layout, theta: np.ndarray, x: np.ndarray, chi_square: floa
     pattern = _single_pattern(layout)
     n, p = x.shape
     mats = pattern.matrices(theta)
-    v = linalg.inv(mats.implied_cov)
+    v = spd_inverse(mats.implied_cov)
     mean = x.mean(axis=0)
     s = np.cov(x, rowvar=False, bias=True)
     a, b, _ = cell_derivatives(pattern, mats)
     inc = incidence(pattern, layout.n_params)
     info = inc.T @ expected_information(a, b, v) @ inc
-    info_inv = linalg.inv(info)
+    info_inv = spd_inverse(info)
     meat = score_cross_products(layout, theta, x, mean, s) / n
     acov = info_inv @ meat @ info_inv / n
     trace = _mean_case_norm(x, mean, v, s) - float(np.sum(info_inv * meat))

@@ -21,3 +21,12 @@ def cholesky_inverse(matrix: np.ndarray):
     inv = np.tril(inv)
     inv += np.tril(inv, -1).T
     return chol, inv, 2.0 * np.sum(np.log(np.diagonal(chol)))
+
+
+def spd_inverse(matrix: np.ndarray) -> np.ndarray:
+    """``A⁻¹`` of a symmetric matrix that should be positive definite (an
+    implied covariance, an information matrix): by :func:`cholesky_inverse`,
+    which also stays silent when ``A`` is badly scaled (items in units far
+    apart), and by LU when ``A`` turns out not to be positive definite."""
+    out = cholesky_inverse(matrix)
+    return np.linalg.inv(matrix) if out is None else out[1]

@@ -64,8 +64,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
 from scipy.linalg import blas
+
+from scalewright.estimate.spd_inverse import spd_inverse
 
 KERNEL, GRAM = "kernel", "gram"
 
@@ -180,7 +181,7 @@ def variance_trace(x: np.ndarray, mean: np.ndarray, cov: np.ndarray, v: np.ndarr
     low = np.linalg.cholesky(v)                    # V = L Lᵀ; y = Lᵀ(x − x̄)
     white_cov = low.T @ cov @ low                  # Ŝ
     at, bt = low.T @ a, low.T @ b
-    r = np.linalg.cholesky(linalg.inv(info))       # R Rᵀ = I⁻¹
+    r = np.linalg.cholesky(spd_inverse(info))       # R Rᵀ = I⁻¹
     if route == KERNEL:
         value = _kernel_route(x, mean, low, white_cov, at, bt, inc @ r)
     elif route == GRAM:

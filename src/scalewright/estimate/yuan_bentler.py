@@ -58,6 +58,8 @@ import numpy as np
 from scipy import linalg
 from scipy.linalg import blas
 
+from scalewright.estimate.spd_inverse import spd_inverse
+
 #: the kernel route is taken while ``N ≤ KERNEL_ROWS · p*`` (its ``N²p*``
 #: against the Gram route's ``2p*³``, both beside the shared ``p*²N``)
 KERNEL_ROWS = 1.4
@@ -166,7 +168,7 @@ def corrected_traces(traces: ScoreTraces, first_order: np.ndarray, n: int
                      ) -> tuple[float, float]:
     """``tr(UΓ)`` and ``tr((UΓ)²)`` from the (summed) :class:`ScoreTraces`,
     ``first_order = F = ΔᵀAΔ`` and the number of cases ``n``."""
-    f_inv = linalg.inv(first_order)
+    f_inv = spd_inverse(first_order)
     fm = f_inv @ traces.meat
     trace = (traces.norm - float(np.trace(fm))) / n
     square = (traces.square - 2.0 * float(np.sum(f_inv * traces.cross))
