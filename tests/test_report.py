@@ -549,6 +549,15 @@ def test_missing_user_statements_are_shown_as_missing_not_invented():
     assert "Not stated in the model file. Add ‘population:’ under ‘about:’." in html
 
 
+def test_checklist_asks_a_one_model_file_for_rivals_not_for_first_true():
+    report = demo_report()
+    report["models"] = report["models"][:1]
+    row = {r["number"]: r for r in checklist_rows(report)}[4]
+    assert row["status"] == "missing"
+    assert "holds one model: add the rival structures" in row["where"]
+    assert "first: true" not in row["where"]
+
+
 def test_checklist_has_the_thirty_lines_of_the_design_notes():
     assert [r["number"] for r in checklist_rows(demo_report())] == list(range(1, 31))
 

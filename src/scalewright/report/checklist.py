@@ -79,9 +79,12 @@ def checklist_rows(report: dict) -> list[dict]:
              f"{per_model}: diagram, loadings and fit tables"),
         _row(3, "How each model is identified and scaled", SHOWN,
              f"{per_model}, first paragraph; methods paragraph"),
-        _user(4, "Rival models set out in advance; which one was specified first",
-              first_marked, "section ‘Rival models compared’ (column ‘First’)",
-              "‘first: true’ under the model specified first"),
+        (_user(4, "Rival models set out in advance; which one was specified first",
+               first_marked, "section ‘Rival models compared’ (column ‘First’)",
+               "‘first: true’ under the model specified first") if len(models) > 1 else
+         _row(4, "Rival models set out in advance; which one was specified first", MISSING,
+              "the model file holds one model: add the rival structures considered (e.g. one "
+              "general construct) under ‘models:’")),
         _user(5, "Population, sampling and exclusions",
               all(_about(report, k) for k in ("population", "sampling", "exclusions")), design,
               "‘about: population:’, ‘sampling:’ and ‘exclusions:’"),
