@@ -115,6 +115,15 @@ def test_frequencies_are_left_out_above_15_distinct_values():
     assert result.items[1].n_distinct == 15 and len(result.items[1].frequencies) == 15
 
 
+
+def test_frequencies_are_left_out_for_answers_that_are_not_whole_numbers():
+    # answer counts describe categories; a continuous score with a few distinct
+    # values (2.2333 beside 2.23333, say) has no categories to count
+    x = np.column_stack([np.tile([2.2333, 2.23333, 3.5, 4.0], 25), np.tile([1.0, 2, 3, 4], 25)])
+    result = screen(item_data(x))
+    assert result.items[0].n_distinct == 4 and result.items[0].frequencies == {}
+    assert result.items[1].frequencies == {1.0: 25, 2.0: 25, 3.0: 25, 4.0: 25}
+
 def test_percent_missing_is_a_percentage_of_all_rows(likert):
     values, result = likert
     for j, item in enumerate(result.items):

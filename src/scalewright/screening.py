@@ -46,7 +46,8 @@ class ItemScreen:
     (see the module docstring); they and ``sd`` are NaN when fewer than two
     answers or no variation make them undefined.  ``pct_missing`` is a
     percentage (0-100) of all rows.  ``frequencies`` maps each answer value to
-    its count when the item has at most 15 distinct values, else it is empty.
+    its count when the item's answers are whole numbers (category codes) with
+    at most 15 distinct values, else it is empty.
     """
 
     item: str
@@ -173,7 +174,7 @@ def _items(names, columns: np.ndarray, n_rows: int) -> list[ItemScreen]:
             continue
         defined = k > 1 and m2[j] > 0          # g1 and g2 below: Joanes & Gill (1998)
         frequencies = {}
-        if n_distinct[j] <= _MAX_FREQUENCIES:
+        if n_distinct[j] <= _MAX_FREQUENCIES and np.all(x[j, :k] == np.round(x[j, :k])):
             first = np.flatnonzero(starts[j])
             counts = np.diff(np.append(first, k))
             frequencies = {float(v): int(c) for v, c in zip(x[j, first], counts)}
