@@ -112,13 +112,19 @@ def test_missing_data_blocks_without_an_observed_covariance_are_refused(hs_x):
         residual_correlations(_split(estimate))
 
 
-def test_observed_covariance_given_for_missing_data_gives_correlations_only(
+def test_saturated_moments_given_for_an_ml_estimate_give_correlations_only(
         hs_x, semopy_residuals):
+    # complete data as one "pattern": the saturated model is the sample moments, so
+    # the correlations are the complete-data ones (semopy's implied matrix, 1e-5 as
+    # above); an ML estimate gets no z against the saturated model, and says why
+    from scalewright.estimate.fiml import saturated_model
+
     estimate = evaluate_normal(make_spec(HS_CONSTRUCTS), hs_x).estimate
-    result = residual_correlations(_split(estimate), observed_cov=np.cov(hs_x, rowvar=False))
-    # the same matrices as the complete-data case (semopy's implied matrix, 1e-5 as above)
+    result = residual_correlations(_split(estimate),
+                                   saturated=saturated_model(hs_x, HS_ITEMS, "hs.csv"))
     assert_allclose(result.matrix, semopy_residuals, atol=1e-5)
     assert result.standardized is None
+    assert result.z_note == "against the saturated model they are computed for FIML estimates only"
 
 
 def test_ordinal_model_residuals_are_polychoric_minus_implied_with_dwls_z(hs_x):

@@ -78,8 +78,8 @@ _REPRODUCED = 1e-8
 #: ``Estimate.method`` of a robust ML estimate on complete data (sandwich ``acov``)
 ROBUST_ML = "robust-ml"
 
-#: ``Estimate.method`` of a normal-theory FIML estimate
-FIML = "fiml"
+#: ``Estimate.method`` of a normal-theory and of a robust FIML estimate
+FIML, ROBUST_FIML = "fiml", "robust-fiml"
 
 #: FIML z values need the saturated information, built from p² × p² temporaries
 #: (13 MB each at 40 items, 800 MB at 100): a judgement call on memory, no source
@@ -143,7 +143,6 @@ def listed_pairs(matrix: np.ndarray, threshold: float,
 
 
 def residual_correlations(estimate: Estimate, group: int = 0, threshold: float = FLAG_AT,
-                          observed_cov: np.ndarray | None = None,
                           answers: np.ndarray | None = None,
                           saturated: tuple | None = None) -> ResidualCorrelations:
     """Residual correlations and standardized residuals of one group of an
@@ -152,16 +151,13 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     Parameters
     ----------
     estimate : Estimate
-        Without ``observed_cov`` or ``saturated`` its ``blocks`` must hold
+        Without ``saturated`` its ``blocks`` must hold
         the group's data as one complete block, whose covariance is then the
         observed one; a DWLS estimate brings its own correlations.
     group : int
         Index of the group (``layout.patterns``).
     threshold : float
         Absolute residual correlation from which a pair is flagged.
-    observed_cov : ndarray, optional
-        An observed covariance matrix for data split into missing-data
-        blocks, without the moments behind it: correlations only, no z.
     answers : ndarray, optional
         The complete rows the estimate was fitted to (columns in
         ``layout.items`` order); needed for the z values of a robust ML
@@ -178,8 +174,8 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     Raises
     ------
     ValueError
-        When the group's data are split into missing-data blocks and neither
-        ``observed_cov`` nor ``saturated`` is given.
+        When the group's data are split into missing-data blocks and
+        ``saturated`` is not given.
     """
     mats = estimate.matrices(group)
     sigma = mats.implied_cov
@@ -199,10 +195,6 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
             except np.linalg.LinAlgError:
                 note = "the saturated model's information matrix is singular"
         return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note)
-    if observed_cov is not None:
-        return ResidualCorrelations(items, _correlation(observed_cov) - _correlation(sigma),
-                                    None, threshold, SATURATED,
-                                    "the moments behind the observed matrix were not given")
     blocks = [b for b in estimate.blocks if b.group == group]
     if len(blocks) != 1 or len(blocks[0].observed) != estimate.layout.p:
         raise ValueError("residual correlations need the group's complete-data covariance; "
@@ -229,9 +221,11 @@ def _fiml_z_note(estimate: Estimate) -> str | None:
     """Why a FIML estimate gets no z values (None when it gets them)."""
     if estimate.acov is None:
         return UNIDENTIFIED
-    if estimate.method != FIML:
+    if estimate.method == ROBUST_FIML:
         return ("under robust FIML the residuals' variance would need the saturated model's "
                 "sandwich, which is not computed")
+    if estimate.method != FIML:
+        return "against the saturated model they are computed for FIML estimates only"
     if estimate.layout.p > FIML_Z_MAX_ITEMS:
         return (f"with missing answers they are computed for at most {FIML_Z_MAX_ITEMS} items "
                 f"(the saturated model's information matrix grows with the fourth power of "
