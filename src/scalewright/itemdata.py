@@ -466,29 +466,32 @@ def _decimal_commas(found: np.ndarray) -> bool:
     return bool(one_comma.all() and points.notna().all())
 
 
+def _refuse_cells(cells: np.ndarray, values: np.ndarray, items: tuple, source: _Source,
+                  row_ids, what: str, shown, fix: str) -> None:
+    """Fail at the first item with a marked cell, naming it, how many cells and
+    the first rows (``shown`` writes a value)."""
+    if not cells.any():
+        return
+    j = int(np.flatnonzero(cells.any(axis=0))[0])
+    rows = np.flatnonzero(cells[:, j])
+    source.fail(f"in the data file '{source.shown}', the item '{items[j]}' holds {what} in "
+                f"{rows.size} cell{'s' if rows.size > 1 else ''} "
+                f"({_rows(rows, row_ids, [shown(v) for v in values[rows[:_SHOW], j]])})", fix)
+
+
 def _check_answers(values: np.ndarray, items: tuple, source: _Source, row_ids):
     """Answers inside the response range; no constant or empty item."""
     study = source.study
-    infinite = np.isinf(values)
-    if infinite.any():
-        j = int(np.flatnonzero(infinite.any(axis=0))[0])
-        rows = np.flatnonzero(infinite[:, j])
-        source.fail(f"in the data file '{source.shown}', the item '{items[j]}' holds an infinite "
-                    f"value in {rows.size} cell{'s' if rows.size > 1 else ''} "
-                    f"({_rows(rows, row_ids, [format_code(v) for v in values[rows[:_SHOW], j]])})",
-                    "Replace it with the answer given, or leave the cell empty if there was "
-                    "none")
+    _refuse_cells(np.isinf(values), values, items, source, row_ids, "an infinite value",
+                  format_code, "Replace it with the answer given, or leave the cell empty if "
+                               "there was none")
     # beyond this size the sum of squares over the rows overflows float64
     with np.errstate(invalid="ignore"):
         huge = np.abs(values) > np.sqrt(np.finfo(np.float64).max / max(values.shape[0], 1))
-    if huge.any():
-        j = int(np.flatnonzero(huge.any(axis=0))[0])
-        rows = np.flatnonzero(huge[:, j])
-        source.fail(f"in the data file '{source.shown}', the item '{items[j]}' holds a value too "
-                    f"large to compute with in {rows.size} cell{'s' if rows.size > 1 else ''} "
-                    f"({_rows(rows, row_ids, [f'{v:.3g}' for v in values[rows[:_SHOW], j]])})",
-                    "Correct the cell; giving the response range with scale: under items: "
-                    "catches such values as answers outside the range")
+    _refuse_cells(huge, values, items, source, row_ids, "a value too large to compute with",
+                  lambda v: f"{v:.3g}", "Correct the cell; giving the response range with "
+                                        "scale: under items: catches such values as answers "
+                                        "outside the range")
     if study.scale is not None:
         low, high = study.scale
         with np.errstate(invalid="ignore"):
