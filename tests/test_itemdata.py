@@ -169,6 +169,24 @@ def test_items_absent_from_the_first_sheet_point_to_the_other_sheets(tmp_path):
         read_items(study_for(tmp_path, "book.xlsx"))
 
 
+def test_a_title_above_the_header_row_is_named_with_the_row_to_delete(tmp_path):
+    # spreadsheets often carry a title or a note above the column names
+    frame = answers()
+    (tmp_path / "titled.csv").write_text("Pilot survey, spring wave\n" + frame.to_csv(index=False))
+    with pytest.raises(StudyError, match=r"are not columns of the data file 'titled\.csv'\. Their "
+                                         r"names are in row 2 of the file, below other text: "
+                                         r"delete the row above them, so that the file starts "
+                                         r"with the column names\.$"):
+        read_items(study_for(tmp_path, "titled.csv"))
+    with pd.ExcelWriter(tmp_path / "titled.xlsx", engine="openpyxl") as book:
+        pd.DataFrame([["Pilot survey"], ["exported 2026-05-01"]]).to_excel(
+            book, index=False, header=False)
+        frame.to_excel(book, index=False, startrow=2)
+    with pytest.raises(StudyError, match=r"Their names are in row 3 of the file, below other text: "
+                                         r"delete the rows above them"):
+        read_items(study_for(tmp_path, "titled.xlsx"))
+
+
 def test_sav_value_labels_are_not_applied(tmp_path):
     frame = answers()
     labels = {"q1": {1.0: "never", 2.0: "rarely", 3.0: "sometimes", 4.0: "often", 5.0: "always"}}

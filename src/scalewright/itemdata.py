@@ -15,6 +15,7 @@ from __future__ import annotations
 import csv
 import difflib
 import hashlib
+import itertools
 import os
 import zipfile
 from dataclasses import dataclass
@@ -280,6 +281,29 @@ class _Source:
             self._unreadable(exc)
         return [str(name) for name in row.iloc[0] if not pd.isna(name)] if len(row) else []
 
+    def _header_row_below(self, names: list[str], rows: int = 10) -> int | None:
+        """The row (2 to ``rows``, counted from 1) of a text file or workbook
+        that holds at least half of ``names`` as cells, when a title or a note
+        sits above the header row; None when there is none."""
+        try:
+            if self.suffix in (".csv", ".tsv", ".txt"):
+                with open(self.path, encoding="utf-8-sig", newline="") as handle:
+                    lines = list(itertools.islice(csv.reader(handle, delimiter=self._separator()),
+                                                  rows))
+            elif self.suffix == ".xlsx":
+                frame = pd.read_excel(self.path, sheet_name=self._sheet(), header=None,
+                                      nrows=rows, dtype=str, engine="openpyxl")
+                lines = [[str(v) for v in row if not pd.isna(v)] for row in frame.to_numpy()]
+            else:
+                return None
+        except (*READ_ERRORS, csv.Error):
+            return None
+        wanted = set(names)
+        for number, cells in enumerate(lines[1:], start=2):
+            if 2 * len(wanted & {c.strip() for c in cells}) >= len(wanted):
+                return number
+        return None
+
     # columns present ---------------------------------------------------------
     def require(self, columns: dict[str, object]):
         """Every item, the id column and the grouping column must be columns of the file."""
@@ -305,11 +329,16 @@ class _Source:
             listing = "" if any(_close_column(i, columns, folded) for i in absent) else \
                 f" The file's columns are: {_listing(columns)}."
             what = "the item" if len(absent) == 1 else f"{len(absent)} items:"
+            lower = self._header_row_below(absent)
+            fix = (f"{'Its name is' if len(absent) == 1 else 'Their names are'} in row {lower} "
+                   f"of the file, below other text: delete the "
+                   f"row{'s' if lower > 2 else ''} above them, so that the file starts with the "
+                   f"column names" if lower else
+                   f"Use the column names exactly as written in the file's header, or "
+                   f"rename the columns.{listing}{self._other_sheets()}")
             self.fail(f"{what} {', '.join(parts)} {'is' if len(absent) == 1 else 'are'} not "
                       f"{'a column' if len(absent) == 1 else 'columns'} of the data file "
-                      f"'{self.shown}'",
-                      f"Use the column names exactly as written in the file's header, or "
-                      f"rename the columns.{listing}{self._other_sheets()}")
+                      f"'{self.shown}'", fix)
         for keys, column, role in ((("data", "id"), study.data.id_column, "id column"),
                                    (("groups", "column"),
                                     study.groups and study.groups.column, "grouping column")):
