@@ -81,8 +81,9 @@ ROBUST_ML = "robust-ml"
 #: ``Estimate.method`` of a normal-theory and of a robust FIML estimate
 FIML, ROBUST_FIML = "fiml", "robust-fiml"
 
-#: FIML z values need the saturated information, built from p² × p² temporaries
-#: (13 MB each at 40 items, 800 MB at 100): a judgement call on memory, no source
+#: FIML z values need the saturated information (p* × p*, p* = p(p+3)/2), whose
+#: construction holds p² × p* numbers (10 MB at 40 items, 400 MB at 100) and whose
+#: solve costs p*³/3: a judgement call on memory and time, no source
 FIML_Z_MAX_ITEMS = 40
 
 #: why an unidentified model has no z values
