@@ -505,6 +505,14 @@ def test_methods_paragraph_says_how_the_z_values_of_each_route_were_computed():
     references = references_used(report)
     for author, year in _CITED.findall(text):
         assert _listed(author, year, references), (author, year)
+    first["estimator"] = "full-information maximum likelihood with Yuan–Bentler robust SEs"
+    first["residual_correlations"]["observed"] = report["models"][1]["residual_correlations"][
+        "observed"]
+    text = " ".join(methods_paragraphs(report))
+    assert "from the casewise scores of both estimates (Yuan & Bentler, 2000)" in text
+    references = references_used(report)
+    for author, year in _CITED.findall(text):
+        assert _listed(author, year, references), (author, year)
     for m in report["models"]:                   # no z shown: no sentence
         for r in m["residual_correlations"]["largest"]:
             r["standardized"] = None

@@ -34,8 +34,9 @@ With missing answers (FIML) the observed matrix is the saturated model's
 (EM), and the z values use ``Var(ŝ − σ̂) = Var(ŝ) − Var(σ̂)`` (nested ML
 estimates, the model's efficient under the model; Hausman 1978) with
 ``Var(ŝ)`` from the saturated model's observed information
-(:func:`_fiml_standardized`); up to :data:`FIML_Z_MAX_ITEMS` items, and not
-under robust FIML.  For the ordinal and mixed routes (DWLS) the
+(:func:`_fiml_standardized`); under robust FIML, where neither estimate is
+efficient, from the casewise scores of both (:func:`_robust_fiml_standardized`);
+up to :data:`FIML_Z_MAX_ITEMS` items.  For the ordinal and mixed routes (DWLS) the
 residuals are taken against the correlations the model was fitted to
 (polychoric, polyserial, Pearson), and the z values use the DWLS residual
 variance ``diag((I − ΔH⁻¹ΔᵀW) Γ (I − ΔH⁻¹ΔᵀW)ᵀ)``
@@ -61,7 +62,9 @@ import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.dwls import residual_variances
-from scalewright.estimate.fiml import pattern_jacobian, saturated_information
+from scalewright.estimate.fiml import (missing_patterns, observed_information,
+                                       pattern_jacobian, saturated_information,
+                                       saturated_score_chunks)
 from scalewright.estimate.result import Estimate
 from scalewright.estimate.robust import CHUNK, expected_information, incidence
 from scalewright.layout import cell_derivatives
@@ -160,11 +163,13 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     threshold : float
         Absolute residual correlation from which a pair is flagged.
     answers : ndarray, optional
-        The complete rows the estimate was fitted to (columns in
-        ``layout.items`` order); needed for the z values of a robust ML
-        estimate (``method == "robust-ml"``), which come from the casewise
-        deviations (:func:`_robust_standardized`), and only for the pairs
-        listed.  Without them a robust estimate gets no z values.
+        The rows the estimate was fitted to (columns in ``layout.items``
+        order; NaN = missing under FIML); needed for the z values of a robust
+        estimate, which come from the cases: the casewise deviations under
+        robust ML (``method == "robust-ml"``, :func:`_robust_standardized`),
+        the casewise scores under robust FIML (``"robust-fiml"``,
+        :func:`_robust_fiml_standardized`), only for the pairs listed.
+        Without them a robust estimate gets no z values.
     saturated : (PatternMoments, Saturated), optional
         With missing answers (FIML): the pattern moments and the saturated
         model fitted to them by EM, whose covariance is the observed one; a
@@ -187,12 +192,15 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     if saturated is not None:
         moments, fitted = saturated
         matrix = _correlation(fitted.cov) - _correlation(sigma)
-        standardized, note = None, _fiml_z_note(estimate)
+        standardized, note = None, _fiml_z_note(estimate, answers)
         if note is None:
+            pairs = listed_pairs(matrix, threshold)
             try:
                 with one_blas_thread():
-                    standardized = _fiml_standardized(estimate, moments, fitted,
-                                                      *listed_pairs(matrix, threshold))
+                    standardized = (
+                        _fiml_standardized(estimate, moments, fitted, *pairs)
+                        if estimate.method == FIML else
+                        _robust_fiml_standardized(estimate, moments, fitted, answers, *pairs))
             except np.linalg.LinAlgError:
                 note = "the saturated model's information matrix is singular"
         return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note)
@@ -218,15 +226,14 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     return ResidualCorrelations(items, matrix, standardized, threshold, SAMPLE, note)
 
 
-def _fiml_z_note(estimate: Estimate) -> str | None:
+def _fiml_z_note(estimate: Estimate, answers: np.ndarray | None) -> str | None:
     """Why a FIML estimate gets no z values (None when it gets them)."""
     if estimate.acov is None:
         return UNIDENTIFIED
-    if estimate.method == ROBUST_FIML:
-        return ("under robust FIML the residuals' variance would need the saturated model's "
-                "sandwich, which is not computed")
-    if estimate.method != FIML:
+    if estimate.method not in (FIML, ROBUST_FIML):
         return "against the saturated model they are computed for FIML estimates only"
+    if estimate.method == ROBUST_FIML and answers is None:
+        return "the answers behind the robust estimate were not given"
     if estimate.layout.p > FIML_Z_MAX_ITEMS:
         return (f"with missing answers they are computed for at most {FIML_Z_MAX_ITEMS} items "
                 f"(the saturated model's information matrix grows with the fourth power of "
@@ -256,10 +263,7 @@ def _fiml_standardized(estimate: Estimate, moments, saturated, rows: np.ndarray,
     pattern = layout.patterns[0]
     p = layout.p
     info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
-    vech_rows, vech_cols = np.tril_indices(p)
-    position = np.empty((p, p), dtype=np.intp)
-    position[vech_rows, vech_cols] = position[vech_cols, vech_rows] = np.arange(len(vech_rows))
-    k = position[rows, cols]
+    k = _vech_positions(p)[rows, cols]
     unit = np.zeros((len(info), len(k)))
     unit[k, np.arange(len(k))] = 1.0
     n = float(moments.counts.sum())
@@ -319,6 +323,61 @@ def _robust_standardized(estimate: Estimate, x: np.ndarray, rows: np.ndarray,
     z_values = np.where(ok, (s - sigma)[rows, cols] / np.sqrt(np.where(ok, var, 1.0)), np.nan)
     out[rows, cols] = out[cols, rows] = z_values
     return out
+
+
+def _robust_fiml_standardized(estimate: Estimate, moments, saturated, x: np.ndarray,
+                              rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """z values of the covariance residuals ``ŝ_jl − σ̂_jl`` of a robust
+    (Yuan–Bentler) FIML estimate, for the pairs ``(rows[k], cols[k])`` only.
+
+    Neither estimate is efficient when the answers are not normal, so the
+    variance of the difference is taken from the cases (Yuan & Bentler 2000
+    for the two estimators' casewise expansions): with ``s_i`` the casewise
+    scores of ``β = (vech Σ, μ)`` (at the saturated estimate for ``Ŝ``, at
+    the implied moments for the model), ``A_β`` the saturated model's
+    observed information and ``Ã_θ`` the model's, both per case,
+
+        β̂ − β ≈ A_β⁻¹ s̄,   θ̂ − θ ≈ Ã_θ⁻¹ Δᵀ s̄,
+
+    so the residual is the mean of ``u_ik = (A_β⁻¹ s_i)_k − Δ_k Ã_θ⁻¹ Δᵀ s_i``
+    and ``Var(ŝ_jl − σ̂_jl) = (1/N²) Σ_i (u_ik − ū_k)²``."""
+    layout = estimate.layout
+    pattern = layout.patterns[0]
+    p = layout.p
+    info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
+    k = _vech_positions(p)[rows, cols]
+    unit = np.zeros((len(info), len(k)))
+    unit[k, np.arange(len(k))] = 1.0
+    to_saturated = np.linalg.solve(info, unit)                      # A_β⁻¹ E_k, p* × K
+    delta = pattern_jacobian(pattern, estimate.theta, layout.n_params)
+    observed = observed_information(pattern, layout.n_params, estimate.theta, moments).observed
+    to_model = delta @ np.linalg.solve(observed, delta[k].T)        # Δ Ã_θ⁻¹ Δ_kᵀ, p* × K
+    mats = pattern.matrices(estimate.theta)
+    patterns = missing_patterns(x, tuple(layout.items), "the data file")
+    sums, squares, n = np.zeros(len(k)), np.zeros(len(k)), 0
+    for at_saturated, at_model in zip(
+            saturated_score_chunks(x, patterns, saturated.mean, saturated.cov),
+            saturated_score_chunks(x, patterns, mats.implied_mean, mats.implied_cov)):
+        u = at_saturated @ to_saturated - at_model @ to_model
+        sums += u.sum(axis=0)
+        squares += np.einsum("ik,ik->k", u, u)
+        n += len(u)
+    var = (squares - sums * sums / n) / n ** 2
+    sigma = mats.implied_cov
+    ok = var > _REPRODUCED * np.abs(to_saturated[k, np.arange(len(k))]) / n
+    z_values = np.full(len(k), np.nan)
+    z_values[ok] = (saturated.cov - sigma)[rows[ok], cols[ok]] / np.sqrt(var[ok])
+    out = np.full((p, p), np.nan)
+    out[rows, cols] = out[cols, rows] = z_values
+    return out
+
+
+def _vech_positions(p: int) -> np.ndarray:
+    """``p × p`` array: the position of each pair in ``vech`` (``np.tril_indices`` order)."""
+    vech_rows, vech_cols = np.tril_indices(p)
+    position = np.empty((p, p), dtype=np.intp)
+    position[vech_rows, vech_cols] = position[vech_cols, vech_rows] = np.arange(len(vech_rows))
+    return position
 
 
 def _dwls_residuals(estimate: Estimate, implied: np.ndarray,

@@ -40,6 +40,9 @@ _Z_ROUTES = (
              "polychoric correlations (Muthén, 1984; Browne, 1984)"),
     ("fiml", "with missing answers the variance of the saturated model's covariance less that "
              "of the implied one, both estimated by maximum likelihood (Hausman, 1978)"),
+    ("robust-fiml", "under robust full-information ML the variance of the difference from the "
+                    "casewise scores of both estimates (Yuan & Bentler, 2000), which does not "
+                    "assume normal answers"),
 )
 
 _NUMBERS = ("no", "one", "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten")

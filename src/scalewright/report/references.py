@@ -188,7 +188,7 @@ def cited_in(texts) -> set[str]:
 
 def residual_z_routes(report: dict) -> set[str]:
     """How the z values of the residuals shown were computed: ``normal``,
-    ``robust`` (distribution-free), ``dwls`` or ``fiml`` (see
+    ``robust`` (distribution-free), ``dwls``, ``fiml`` or ``robust-fiml`` (see
     :mod:`scalewright.residuals`), for the models that show any."""
     routes = set()
     for m in report.get("models", ()):
@@ -197,7 +197,8 @@ def residual_z_routes(report: dict) -> set[str]:
             continue
         observed = str(res.get("observed", ""))
         if observed.startswith("correlations of the saturated model"):
-            routes.add("fiml")
+            routes.add("robust-fiml" if "robust" in str(m.get("estimator", "")).lower()
+                       else "fiml")
         elif "polychoric" in observed:
             routes.add("dwls")
         elif "robust" in str(m.get("estimator", "")).lower():
@@ -237,6 +238,8 @@ def references_used(report: dict) -> list[str]:
         keys.add("muthen")
     if "fiml" in z_routes:
         keys.add("hausman")
+    if "robust-fiml" in z_routes:
+        keys.add("yuan_bentler")
     if "modification_hints" in present:
         keys |= {"sorbom", "maccallum", "saris"}
         if any("Satorra 1989" in str((m.get("modification_hint_notes") or {}).get("method"))
