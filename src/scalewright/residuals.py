@@ -262,12 +262,9 @@ def _fiml_standardized(estimate: Estimate, moments, saturated, rows: np.ndarray,
     layout = estimate.layout
     pattern = layout.patterns[0]
     p = layout.p
-    info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
-    k = _vech_positions(p)[rows, cols]
-    unit = np.zeros((len(info), len(k)))
-    unit[k, np.arange(len(k))] = 1.0
+    k, to_saturated = _saturated_inverse_columns(moments, saturated, rows, cols)
     n = float(moments.counts.sum())
-    var_saturated = np.linalg.solve(info, unit)[k, np.arange(len(k))] / n
+    var_saturated = to_saturated[k, np.arange(len(k))] / n
     delta = pattern_jacobian(pattern, estimate.theta, layout.n_params)[k]
     var = var_saturated - np.einsum("ka,ab,kb->k", delta, estimate.acov, delta)
     sigma = pattern.matrices(estimate.theta).implied_cov
@@ -344,11 +341,7 @@ def _robust_fiml_standardized(estimate: Estimate, moments, saturated, x: np.ndar
     layout = estimate.layout
     pattern = layout.patterns[0]
     p = layout.p
-    info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
-    k = _vech_positions(p)[rows, cols]
-    unit = np.zeros((len(info), len(k)))
-    unit[k, np.arange(len(k))] = 1.0
-    to_saturated = np.linalg.solve(info, unit)                      # A_β⁻¹ E_k, p* × K
+    k, to_saturated = _saturated_inverse_columns(moments, saturated, rows, cols)
     delta = pattern_jacobian(pattern, estimate.theta, layout.n_params)
     observed = observed_information(pattern, layout.n_params, estimate.theta, moments).observed
     to_model = delta @ np.linalg.solve(observed, delta[k].T)        # Δ Ã_θ⁻¹ Δ_kᵀ, p* × K
@@ -370,6 +363,18 @@ def _robust_fiml_standardized(estimate: Estimate, moments, saturated, x: np.ndar
     out = np.full((p, p), np.nan)
     out[rows, cols] = out[cols, rows] = z_values
     return out
+
+
+def _saturated_inverse_columns(moments, saturated, rows: np.ndarray,
+                               cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The ``vech`` positions ``k`` of the pairs and the columns ``A_β⁻¹ E_k``
+    (``p* × K``) of the inverse of the saturated model's observed information
+    per case at its estimate (:func:`scalewright.estimate.fiml.saturated_information`)."""
+    info, _, _ = saturated_information(moments, saturated.mean, saturated.cov)
+    k = _vech_positions(len(saturated.mean))[rows, cols]
+    unit = np.zeros((len(info), len(k)))
+    unit[k, np.arange(len(k))] = 1.0
+    return k, np.linalg.solve(info, unit)
 
 
 def _vech_positions(p: int) -> np.ndarray:
