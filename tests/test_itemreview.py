@@ -205,6 +205,44 @@ def test_refinement_uses_the_given_estimator_and_pairwise_alpha_with_missing_ans
                     pingouin.cronbach_alpha(frame, nan_policy="pairwise")[0], rtol=1e-10)
 
 
+def test_trial_removals_without_standard_errors_give_the_same_path_under_fiml():
+    # the trials compare fit only; skipping their standard errors (and refitting the
+    # removal chosen in full) must leave every step and every trial as it was: the
+    # same FIML point estimates, so the same fit to the optimiser's tolerance
+    from scalewright.evaluate_real import evaluate_answers
+    from scalewright.methods import MethodChoice
+
+    x, constructs, _ = _population(4, weak=2, pair=(6, 8))
+    x = x.copy()
+    x[np.random.default_rng(9).random(x.shape) < 0.05] = np.nan
+    choice = MethodChoice("normal", "full-information", ())
+    full_fits, trial_fits = [], []
+
+    def full(spec, values, columns):
+        result = evaluate_answers(spec, values[:, columns], choice, "t.csv")
+        full_fits.append(result.estimate.acov is not None)
+        return result
+
+    def trial(spec, values, columns):
+        result = evaluate_answers(spec, values[:, columns], choice, "t.csv",
+                                  standard_errors=False)
+        trial_fits.append(result.estimate.acov is None)
+        return result
+
+    spec = make_spec(constructs)
+    plain = refinement_path(spec, x, fit=full).to_dict()
+    quick = refinement_path(spec, x, fit=full, trial_fit=trial).to_dict()
+    assert len(plain["steps"]) == len(quick["steps"]) >= 2
+    for a, b in zip(plain["steps"], quick["steps"]):
+        assert a["removed"] == b["removed"] and a["flagged"] == b["flagged"]
+        for key in ("cfi", "rmsea", "srmr", "chi_square"):
+            assert_allclose(b["fit"][key], a["fit"][key], rtol=1e-6, atol=1e-9)
+        assert [t["item"] for t in a["tried"]] == [t["item"] for t in b["tried"]]
+        for ta, tb in zip(a["tried"], b["tried"]):
+            assert_allclose(tb.get("cfi", 0.0), ta.get("cfi", 0.0), rtol=1e-6, atol=1e-9)
+    assert all(trial_fits) and all(full_fits)
+
+
 def test_refinement_stops_when_no_item_is_flagged():
     x, constructs, _ = _population(4, weak=2)
     path = refinement_path(make_spec(constructs), x)

@@ -253,10 +253,16 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     if model.estimate.method.endswith("fiml"):
         saturated = saturated_model(x, spec.items, data.file.name)
     observed = None if saturated is None else saturated[1].cov
+    trial = None
     if np.isnan(x).any():
         def refit(reduced_spec, answers, columns):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
                                     start_from=model.estimate)
+
+        def trial(reduced_spec, answers, columns):
+            # a trial removal is judged by its fit alone: no standard errors
+            return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
+                                    start_from=model.estimate, standard_errors=False)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
@@ -281,7 +287,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    model.extra.update(quality_keys(model, study, x, fit=refit, saturated=saturated))
+    model.extra.update(quality_keys(model, study, x, fit=refit, trial_fit=trial,
+                                    saturated=saturated))
     model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model
 

@@ -96,11 +96,16 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
 
 
 def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
-                     start_from: Estimate | None = None) -> ModelResult:
+                     start_from: Estimate | None = None, *,
+                     standard_errors: bool = True) -> ModelResult:
     """:func:`evaluate_with` on the answer matrix of the model's items
     (columns in ``spec.items`` order, NaN = missing); ``where`` names the
     data file in messages; ``start_from``, the estimate of a related model,
-    gives the start values of the parameters both name alike (refits)."""
+    gives the start values of the parameters both name alike (refits).
+    Without ``standard_errors`` a FIML fit skips its observed information
+    and the robust corrections (``acov`` is None, the fit indices are the
+    normal-theory ones): the trial refits of the refinement path, which
+    compare fit only, need nothing more."""
     if choice.estimator in (ORDINAL, MIXED):
         raise ValueError("the ordinal and mixed routes have their own evaluation; "
                          "evaluate_answers fits normal-theory and robust ML only")
@@ -108,7 +113,7 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
     with one_blas_thread():
         incomplete = np.isnan(x).any(axis=1)
         if choice.missing_handling == FULL_INFORMATION and incomplete.any():
-            return _full_information(spec, x, robust, where, start_from)
+            return _full_information(spec, x, robust, where, start_from, standard_errors)
         return _complete(spec, x[~incomplete] if incomplete.any() else x, robust, start_from)
 
 
@@ -127,17 +132,20 @@ def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None) ->
 
 
 def _full_information(spec, x: np.ndarray, robust: bool, where: str,
-                      start_from: Estimate | None) -> ModelResult:
+                      start_from: Estimate | None, standard_errors: bool = True) -> ModelResult:
     patterns = missing_patterns(x, tuple(spec.items), where)
     moments = pattern_moments(x, patterns)
     saturated = saturated_em(moments)
     fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated, start_from)
     layout, theta, n = fitted.layout, fitted.theta, fitted.n
-    # the Yuan–Bentler corrections need A_β and B_β (p* × p*); the standard errors
-    # alone need only the observed information, formed cell by cell
-    info = fiml_information(layout, theta, x, patterns, moments) if robust else \
-        observed_information(layout.patterns[0], layout.n_params, theta, moments)
-    acov, unidentified = invert_information(info.observed, n)
+    robust = robust and standard_errors
+    acov, unidentified = None, ()
+    if standard_errors:
+        # the Yuan–Bentler corrections need A_β and the casewise scores; the standard
+        # errors alone need only the observed information, formed cell by cell
+        info = fiml_information(layout, theta, x, patterns, moments) if robust else \
+            observed_information(layout.patterns[0], layout.n_params, theta, moments)
+        acov, unidentified = invert_information(info.observed, n)
     mats = layout.patterns[0].matrices(theta)
     fit = fit_indices(loglik=fitted.loglik, saturated=saturated.loglik, df=fitted.df, n=n,
                       n_params=layout.n_params, baseline=fitted.baseline,

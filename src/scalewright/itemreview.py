@@ -281,7 +281,8 @@ class _State:
 
 def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                     result: ModelResult | None = None, review: list | None = None,
-                    max_steps: int | None = None, fit: Callable = refit_columns) -> Refinement:
+                    max_steps: int | None = None, fit: Callable = refit_columns,
+                    trial_fit: Callable | None = None) -> Refinement:
     """Remove flagged items one at a time, refitting after each removal.
 
     Parameters
@@ -303,6 +304,10 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     fit : callable
         ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`), the estimator the model was fitted
         with (normal-theory ML on complete data by default).
+    trial_fit : callable, optional
+        ``fit`` without what the comparison of trial removals does not use
+        (standard errors, robust corrections); the removal chosen is then
+        refitted by ``fit``, from which its step and the next review come.
 
     Returns
     -------
@@ -334,7 +339,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                        "with the others and its reliability is fragile (three-indicator rule, "
                        "Bollen 1989).")
             break
-        trials = [_trial(state, r, x, cov, column, settings, fit) for r in removable]
+        trials = [_trial(state, r, x, cov, column, settings, trial_fit or fit)
+                  for r in removable]
         fitted = [t for t in trials if t[1] is not None]
         if not fitted:
             stopped = ("No model without one of the flagged items could be estimated: "
@@ -345,6 +351,9 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
             stopped = "No removal of a flagged item improves the fit or the reliability."
             break
         review, new_state = chosen
+        if trial_fit is not None:
+            new_state = _state(new_state.spec, fit(new_state.spec, x, [
+                column[i] for i in new_state.spec.items]), cov, column, settings)
         steps.append(Step(review.item, _reason(review, state, new_state, why),
                           _fit(new_state.result), new_state.reliability,
                           tuple(r.item for r in new_state.review),
@@ -460,7 +469,7 @@ def _tried(trial, state: _State) -> dict:
 
 def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
                  max_steps: int | None = None, fit: Callable = refit_columns,
-                 saturated: tuple | None = None) -> dict:
+                 trial_fit: Callable | None = None, saturated: tuple | None = None) -> dict:
     """The per-model JSON keys of local fit and item quality.
 
     Parameters
@@ -475,6 +484,8 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         Limit of the refinement path.
     fit : callable
         ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits of the refinement path.
+    trial_fit : callable, optional
+        A cheaper ``fit`` for its trial removals (see :func:`refinement_path`).
     saturated : (PatternMoments, Saturated), optional
         The pattern moments and the saturated model (EM) when the data have
         missing-data blocks (see :func:`scalewright.residuals.residual_correlations`).
@@ -513,6 +524,7 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         out["item_review"] = [r.to_dict() for r in review]
         out["refinement"] = refinement_path(spec, x, settings, result=model_result,
                                             review=review, max_steps=max_steps,
+                                            trial_fit=trial_fit,
                                             fit=fit).to_dict()
     else:
         # flags read off a point that is not the estimate (loadings beyond 1, a
