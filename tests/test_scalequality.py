@@ -263,6 +263,22 @@ def test_two_item_construct_gets_reliability_with_fragility_note(hs_study):
         (None, None), (None, None)]
 
 
+def test_items_of_very_different_spread_get_a_note_on_the_raw_sum(hs_study):
+    # x3 in tenths of its unit: the raw sum of 'visual' is then mostly x3.  The SDs
+    # named are pandas' (ddof = 1) of the complete rows; the other constructs, whose
+    # SDs lie within a factor of 2 (common practice, no source), get no such note
+    x = hz.data().to_numpy(float)
+    x[:, 2] *= 10.0
+    _, keys = keys_of(hs_study, "three", x)
+    rows = by_construct(keys)
+    (note,) = [n for n in rows["visual"]["notes"] if n["code"] == "item_spread"]
+    sd = hz.data()[["x1", "x2", "x3"]].std() * [1.0, 1.0, 10.0]
+    assert (f"SD {sd.min():.3g} for '{sd.idxmin()}' to {sd.max():.3g} for 'x3'"
+            in note["message"])
+    assert not [n for r in ("textual", "speed") for n in rows[r]["notes"]
+                if n["code"] == "item_spread"]
+
+
 def test_negative_alpha_points_to_reverse_keying_naming_the_item(hs_study):
     x = hz.data().to_numpy(float)
     x[:, 1] = -x[:, 1]               # x2 as an unrecoded reverse-keyed item would look

@@ -41,6 +41,10 @@ from scalewright.validity import construct_quality, fornell_larcker, htmt
 #: level of the alpha and omega intervals (the keys ``alpha_ci95``, ``omega_ci95``)
 LEVEL = 0.95
 
+#: item SDs of one construct further apart than this factor get a note on what the
+#: raw sum weights (common practice, no source)
+SPREAD_RATIO = 2.0
+
 
 def scale_quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
                        estimates: Callable = estimate_columns) -> dict:
@@ -146,6 +150,7 @@ def _reliability(model_result: ModelResult, spec, x: np.ndarray, constructs: Seq
         alpha = alpha_report(block, items, name, n_obs=used, level=LEVEL)
         analysis = item_analysis(block, items, name)
         notes = list(alpha.notes) + _complete_rows_notes(name, used, len(x), from_em)
+        notes += _spread_notes(np.sqrt(np.diag(block)), items, name)
         entry = {"construct": name, "n_items": len(items), "alpha": alpha.alpha,
                  "alpha_ci95": [alpha.interval.lower, alpha.interval.upper],
                  "standardized_alpha": alpha.standardized_alpha}
@@ -357,6 +362,21 @@ def _item_covariance(x: np.ndarray, items: Sequence[str]) -> tuple[np.ndarray, i
         return np.cov(complete, rowvar=False), len(complete), False
     answered = x[~np.isnan(x).all(axis=1)]
     return saturated_covariance(answered, tuple(items), "the data file"), len(answered), True
+
+
+def _spread_notes(sd: np.ndarray, items: Sequence[str], construct: str) -> list[Note]:
+    """A note when the construct's items differ much in spread: alpha and omega
+    describe the unweighted sum of the raw answers, in which an item counts by
+    its SD (the sum's variance is Σ_ij σ_ij), so the widest items dominate."""
+    if len(sd) < 2 or not np.all(sd > 0) or sd.max() <= SPREAD_RATIO * sd.min():
+        return []
+    wide, narrow = items[int(np.argmax(sd))], items[int(np.argmin(sd))]
+    return [Note(code="item_spread", subject=construct, message=(
+        f"The items of '{construct}' differ in spread (SD {sd.min():.3g} for '{narrow}' to "
+        f"{sd.max():.3g} for '{wide}'): alpha and omega describe the plain sum of the raw "
+        "answers, in which the widest items count most. If the scale is scored as a sum of "
+        "standardized answers, standardized alpha describes that score; if the items were "
+        "meant to share one response format, check their coding."))]
 
 
 def _complete_rows_notes(construct: str, used: int, rows: int, from_em: bool) -> list[Note]:

@@ -153,7 +153,7 @@ def fisher_scoring(theta0: np.ndarray,
             return theta, OptimizerRecord(True, iteration, gnorm, f, "converged")
     gnorm = float(np.max(np.abs(grad))) if grad.size else 0.0
     return theta, OptimizerRecord(False, max_iter, gnorm, f,
-                                  f"stopped after {max_iter} iterations without converging")
+                                  f"stopped after {max_iter} iterations")
 
 
 @dataclass(frozen=True)
