@@ -497,17 +497,15 @@ def test_methods_paragraph_says_how_the_z_values_of_each_route_were_computed():
     text = " ".join(methods_paragraphs(report))
     assert "with missing answers the variance of the saturated model's covariance" in text
     assert "distribution-free" not in text
+    assert {m["residual_correlations"]["standardized_basis"] for m in report["models"]} == {"fiml"}
     first = report["models"][0]
-    first["estimator"] = "robust maximum likelihood"
-    first["residual_correlations"]["observed"] = "sample correlations"
+    first["residual_correlations"]["standardized_basis"] = "distribution-free"
     text = " ".join(methods_paragraphs(report))
     assert "under robust ML the distribution-free variance of the residual (Browne, 1984)" in text
     references = references_used(report)
     for author, year in _CITED.findall(text):
         assert _listed(author, year, references), (author, year)
-    first["estimator"] = "full-information maximum likelihood with Yuan–Bentler robust SEs"
-    first["residual_correlations"]["observed"] = report["models"][1]["residual_correlations"][
-        "observed"]
+    first["residual_correlations"]["standardized_basis"] = "robust-fiml"
     text = " ".join(methods_paragraphs(report))
     assert "from the casewise scores of both estimates (Yuan & Bentler, 2000)" in text
     references = references_used(report)

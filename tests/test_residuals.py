@@ -77,7 +77,8 @@ def test_to_dict_holds_the_matrix_for_a_heat_map(hs_residuals):
     out = hs_residuals.to_dict()
     assert out["items"] == list(HS_ITEMS)
     assert np.array(out["matrix"]).shape == (9, 9)
-    assert out["n_flagged"] == 5
+    assert out["n_flagged"] == 5           # semopy's matrix, as in the flag test above
+    assert out["standardized_basis"] == "normal" and out["standardized_not_computed"] is None
 
 
 def test_standardized_residuals_are_standard_normal_when_the_model_holds():
@@ -154,6 +155,7 @@ def test_ordinal_model_residuals_are_polychoric_minus_implied_with_dwls_z(hs_x):
         residual_variances(estimate.layout, estimate.theta, moments.acov_corr))
     assert_allclose(result.standardized[rows, cols], z, rtol=1e-10)
     assert result.to_dict()["observed"] == "polychoric correlations"
+    assert result.to_dict()["standardized_basis"] == "dwls"
 
 
 # --------------------------------------------------------------------------
@@ -206,6 +208,7 @@ def test_robust_z_values_match_the_dense_distribution_free_formula(hs_x):
     assert len(listed) == 10
     for i, j in listed:
         assert_allclose(result.standardized[i, j], dense[i, j], rtol=1e-7)
+    assert result.to_dict()["standardized_basis"] == "distribution-free"
     # pairs not listed get no z (they are not shown)
     assert np.isnan(result.standardized).sum() == 9 + 2 * (36 - 10)
 
@@ -318,6 +321,7 @@ def test_fiml_z_values_match_a_finite_difference_hessian_of_the_saturated_likeli
     z = (saturated.cov - sigma)[rows, cols][off] / np.sqrt(var[off])
     assert_allclose(result.standardized[rows[off], cols[off]], z, rtol=1e-5)
     assert result.to_dict()["standardized_not_computed"] is None
+    assert result.to_dict()["standardized_basis"] == "fiml"
 
 
 def test_robust_fiml_z_values_need_the_answers(hs_x):
@@ -328,6 +332,7 @@ def test_robust_fiml_z_values_need_the_answers(hs_x):
     out = residual_correlations(robust, saturated=saturated).to_dict()
     assert out["standardized_not_computed"] == ("the answers behind the robust estimate were "
                                                 "not given")
+    assert out["standardized_basis"] is None
     assert all(r["standardized"] is None for r in out["largest"])
     assert out["observed"].startswith("correlations of the saturated model")
 
@@ -477,3 +482,4 @@ def test_robust_fiml_z_values_match_casewise_expansions_written_out_on_complete_
     dense = dict(zip(zip(rows, cols), z))
     for i, j in listed:
         assert_allclose(result.standardized[i, j], dense[(min(i, j), max(i, j))], rtol=1e-4)
+    assert result.to_dict()["standardized_basis"] == "robust-fiml"

@@ -95,6 +95,7 @@ def _refuse_non_convergence(result, out: Path) -> None:
     """A rival model whose estimation did not converge is something to fix:
     exit 2 with a message at its line in the model file, after the report
     (which shows every model and says which numbers to ignore) was written."""
+    from scalewright.diagnostics import NON_CONVERGENCE_ADVICE
     stuck = [m for m in result.models if not m.converged]
     if not stuck:
         return
@@ -105,9 +106,7 @@ def _refuse_non_convergence(result, out: Path) -> None:
     written = f" The report in {out} shows every model and marks these." if out else ""
     raise StudyError(
         f"{places}, so {'its' if len(stuck) == 1 else 'their'} numbers are not estimates. "
-        "Check that every construct has items that correlate with each other, remove "
-        "cross-loadings or residual covariances that are not needed, or try the other "
-        f"identification (estimation: identification: marker).{written}")
+        f"{NON_CONVERGENCE_ADVICE}{written}")
 
 
 def _summarise(result, out: Path) -> None:

@@ -27,6 +27,13 @@ from scalewright.layout import CONSTRUCT, FACTOR_COV, LOADING, PATH
 from scalewright.standardize import Standardized
 
 
+#: what to try when an estimation does not converge (the warning and the command line's message)
+NON_CONVERGENCE_ADVICE = (
+    "Check that every construct has items that correlate with each other, remove "
+    "cross-loadings or residual covariances that are not needed, or try the other "
+    "identification (estimation: identification: marker).")
+
+
 def model_warnings(estimate: Estimate, std: Standardized) -> list[str]:
     """Every warning about one fitted model, in words a researcher can act on."""
     return [text for _, text in classified_warnings(estimate, std)]
@@ -41,9 +48,7 @@ def classified_warnings(estimate: Estimate, std: Standardized) -> list[tuple[typ
         out.add(ConvergenceWarning,
             f"The estimation did not converge ({estimate.record.message}; largest gradient "
             f"element {estimate.record.gradient_norm:.2g}). Do not interpret these numbers. "
-            "Check that every construct has items that correlate with each other, remove "
-            "cross-loadings or residual covariances that are not needed, or try the other "
-            "identification (estimation: identification: marker).")
+            + NON_CONVERGENCE_ADVICE)
     if estimate.unidentified:
         out.add(IdentificationWarning, unidentified_message(estimate))
     thetas = np.diag(estimate.matrices().residuals)

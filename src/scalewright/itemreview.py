@@ -55,7 +55,7 @@ from scalewright.hints_dwls import score_tests_for
 from scalewright.layout import CONSTRUCT, GENERAL, LOADING, RESIDUAL_COV
 from scalewright.modelresult import ModelResult
 from scalewright.reliability import cronbach_alpha
-from scalewright.residuals import FLAG_AT, ROBUST_FIML, ROBUST_ML, residual_correlations
+from scalewright.residuals import FLAG_AT, residual_correlations
 
 WEAK, CROSS, PAIR = "weak_loading", "cross_loading", "residual_pair"
 
@@ -507,16 +507,10 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         tests = None
     out = modification_hint_keys(estimate, wording, settings.hint_threshold, tests=tests,
                                  compute=score_tests_for)
-    answers = None
-    if estimate.method == ROBUST_ML:              # z values from the casewise deviations
-        incomplete = np.isnan(x).any(axis=1)
-        answers = x[~incomplete] if incomplete.any() else x
-    elif estimate.method == ROBUST_FIML:          # ... and from the casewise scores
-        answers = x
     try:
         out["residual_correlations"] = residual_correlations(
             estimate, threshold=settings.residual_threshold, saturated=saturated,
-            answers=answers).to_dict()
+            answers=x).to_dict()
     except ValueError as exc:
         out["residual_correlations"] = {"not_computed": str(exc)}
     if model_result.converged:

@@ -66,7 +66,8 @@ from scalewright.estimate.fiml import (missing_patterns, observed_information,
                                        pattern_jacobian, saturated_information,
                                        saturated_score_chunks)
 from scalewright.estimate.result import Estimate
-from scalewright.estimate.robust import CHUNK, expected_information, incidence
+from scalewright.estimate.robust import casewise_scores, expected_information, incidence
+from scalewright.estimate.spd_inverse import spd_inverse
 from scalewright.layout import cell_derivatives
 
 #: residual correlations at least this large are flagged (common practice, no source)
@@ -92,6 +93,11 @@ FIML_Z_MAX_ITEMS = 40
 #: why an unidentified model has no z values
 UNIDENTIFIED = "the model is not identified (its information matrix is singular)"
 
+#: how the z values were computed (the JSON's ``standardized_basis``; module docstring)
+Z_NORMAL, Z_DISTRIBUTION_FREE, Z_DWLS, Z_FIML, Z_ROBUST_FIML = (
+    "normal", "distribution-free", "dwls", "fiml", "robust-fiml")
+Z_BASES = (Z_NORMAL, Z_DISTRIBUTION_FREE, Z_DWLS, Z_FIML, Z_ROBUST_FIML)
+
 #: what the observed correlations of each route are (the JSON's ``observed``)
 SAMPLE = "sample correlations"
 SATURATED = "correlations of the saturated model fitted to the incomplete answers (EM)"
@@ -109,6 +115,7 @@ class ResidualCorrelations:
     threshold: float
     observed: str                    # what the observed correlations are, in words
     z_note: str | None = None        # why there are no z values, when there are none
+    z_basis: str | None = None       # how the z values were computed (one of Z_BASES)
 
     def largest(self, at_least: int = LIST_AT_LEAST) -> list[dict]:
         """Every pair at or beyond the threshold, and at least ``at_least``
@@ -129,6 +136,7 @@ class ResidualCorrelations:
         return {"threshold": self.threshold,
                 "observed": self.observed,
                 "standardized_not_computed": self.z_note,
+                "standardized_basis": self.z_basis if self.standardized is not None else None,
                 "n_flagged": sum(entry["flagged"] for entry in largest),
                 "largest": largest,
                 "items": list(self.items),
@@ -163,11 +171,12 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
     threshold : float
         Absolute residual correlation from which a pair is flagged.
     answers : ndarray, optional
-        The rows the estimate was fitted to (columns in ``layout.items``
-        order; NaN = missing under FIML); needed for the z values of a robust
-        estimate, which come from the cases: the casewise deviations under
-        robust ML (``method == "robust-ml"``, :func:`_robust_standardized`),
-        the casewise scores under robust FIML (``"robust-fiml"``,
+        The answers the estimate was fitted to (columns in ``layout.items``
+        order, NaN = missing; under robust ML its complete rows are used);
+        needed for the z values of a robust estimate, which come from the
+        cases: the casewise deviations under robust ML
+        (``method == "robust-ml"``, :func:`_robust_standardized`), the
+        casewise scores under robust FIML (``"robust-fiml"``,
         :func:`_robust_fiml_standardized`), only for the pairs listed.
         Without them a robust estimate gets no z values.
     saturated : (PatternMoments, Saturated), optional
@@ -203,27 +212,31 @@ def residual_correlations(estimate: Estimate, group: int = 0, threshold: float =
                         _robust_fiml_standardized(estimate, moments, fitted, answers, *pairs))
             except np.linalg.LinAlgError:
                 note = "the saturated model's information matrix is singular"
-        return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note)
+        return ResidualCorrelations(items, matrix, standardized, threshold, SATURATED, note,
+                                    Z_FIML if estimate.method == FIML else Z_ROBUST_FIML)
     blocks = [b for b in estimate.blocks if b.group == group]
     if len(blocks) != 1 or len(blocks[0].observed) != estimate.layout.p:
         raise ValueError("residual correlations need the group's complete-data covariance; "
                          "with missing-data blocks pass the saturated model")
     block = blocks[0]
     matrix = _correlation(block.cov) - _correlation(sigma)
-    standardized, note = None, None
+    standardized, note, basis = None, None, Z_NORMAL
     if estimate.acov is None:
         note = UNIDENTIFIED
     elif estimate.method == ROBUST_ML:
+        basis = Z_DISTRIBUTION_FREE
         if answers is None:
             note = "the answers behind the robust estimate were not given"
         else:
+            complete = ~np.isnan(answers).any(axis=1)
             with one_blas_thread():
                 standardized = _robust_standardized(
-                    estimate, answers, *listed_pairs(matrix, threshold))
+                    estimate, answers if complete.all() else answers[complete],
+                    *listed_pairs(matrix, threshold))
     else:
         with one_blas_thread():
             standardized = _standardized(estimate, group, block.cov - sigma, sigma, block.n)
-    return ResidualCorrelations(items, matrix, standardized, threshold, SAMPLE, note)
+    return ResidualCorrelations(items, matrix, standardized, threshold, SAMPLE, note, basis)
 
 
 def _fiml_z_note(estimate: Estimate, answers: np.ndarray | None) -> str | None:
@@ -297,22 +310,17 @@ def _robust_standardized(estimate: Estimate, x: np.ndarray, rows: np.ndarray,
     pattern = layout.patterns[0]
     mats = pattern.matrices(estimate.theta)
     sigma = mats.implied_cov
-    v = np.linalg.inv(sigma)
     n = len(x)
     mean = x.mean(axis=0)
     s = np.cov(x, rowvar=False, bias=True)
     a, b, _ = cell_derivatives(pattern, mats)
     inc = incidence(pattern, layout.n_params)
-    info = inc.T @ expected_information(a, b, v) @ inc
+    info = inc.T @ expected_information(a, b, spd_inverse(sigma)) @ inc
     delta = (a[rows] * b[cols] + b[rows] * a[cols]) @ inc           # ∂σ_k/∂θ, K × q
     move = np.linalg.solve(info, delta.T)                            # I⁻¹Δ_Kᵀ, q × K
-    shift = np.einsum("ic,ic->c", a, v @ s @ v @ b)
     squares = np.zeros(len(rows))
-    for start in range(0, n, CHUNK):
-        c = x[start:start + CHUNK] - mean
-        z = c @ v
-        u = c[:, rows] * c[:, cols] - s[rows, cols]
-        u -= (((z @ a) * (z @ b) - shift) @ inc) @ move
+    for c, g in casewise_scores(layout, estimate.theta, x, mean, s):
+        u = c[:, rows] * c[:, cols] - s[rows, cols] - g @ move
         squares += np.einsum("ik,ik->k", u, u)
     var = squares / n ** 2
     out = np.full(sigma.shape, np.nan)
@@ -407,7 +415,8 @@ def _dwls_residuals(estimate: Estimate, implied: np.ndarray,
         standardized[rows, cols] = standardized[cols, rows] = z
     observed = POLYCHORIC if estimate.method == "dwls" else MIXED
     return ResidualCorrelations(tuple(estimate.layout.items), matrix, standardized, threshold,
-                                observed, None if standardized is not None else UNIDENTIFIED)
+                                observed, None if standardized is not None else UNIDENTIFIED,
+                                Z_DWLS)
 
 
 def _standardized(estimate: Estimate, group: int, residual: np.ndarray, sigma: np.ndarray,

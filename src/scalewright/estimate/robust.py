@@ -61,6 +61,7 @@ indices for nonnormality. Multivariate Behavioral Research 49, 460–470.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -164,16 +165,16 @@ def _single_pattern(layout: Layout) -> Pattern:
     return layout.patterns[0]
 
 
-def score_cross_products(layout: Layout, theta: np.ndarray, x: np.ndarray,
-                         mean: np.ndarray | None = None, cov: np.ndarray | None = None
-                         ) -> np.ndarray:
-    """``Σ_i g_i g_iᵀ`` (``q × q``) of the centred casewise scores of a
-    covariance-structure model on complete data ``x`` (columns in
-    ``layout.items`` order), accumulated in chunks of cases so that the
-    ``N × q`` score matrix is never held whole.
+def casewise_scores(layout: Layout, theta: np.ndarray, x: np.ndarray,
+                    mean: np.ndarray | None = None, cov: np.ndarray | None = None
+                    ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """The centred cases ``c_i = x_i − x̄`` and their scores ``g_i`` (``q``)
+    under a covariance-structure model on complete data ``x`` (columns in
+    ``layout.items`` order), ``CHUNK`` cases at a time, so that the ``N × q``
+    score matrix is never held whole.
 
-    ``g_ic = (z_iᵀa_c)(z_iᵀb_c) − a_cᵀVSVb_c`` with ``z_i = V(x_i − x̄)``;
-    the scores sum to ``−N ∇f(θ)``, i.e. to zero at the ML estimate.
+    ``g_ic = (z_iᵀa_c)(z_iᵀb_c) − a_cᵀVSVb_c`` with ``z_i = V c_i``; the
+    scores sum to ``−N ∇f(θ)``, i.e. to zero at the ML estimate.
     """
     pattern = _single_pattern(layout)
     mats = pattern.matrices(theta)
@@ -183,10 +184,18 @@ def score_cross_products(layout: Layout, theta: np.ndarray, x: np.ndarray,
     a, b, _ = cell_derivatives(pattern, mats)
     inc = incidence(pattern, layout.n_params)
     shift = np.einsum("ic,ic->c", a, v @ s @ v @ b)
-    out = np.zeros((layout.n_params, layout.n_params))
     for start in range(0, len(x), CHUNK):
-        z = (x[start:start + CHUNK] - mean) @ v
-        g = ((z @ a) * (z @ b) - shift) @ inc
+        c = x[start:start + CHUNK] - mean
+        z = c @ v
+        yield c, ((z @ a) * (z @ b) - shift) @ inc
+
+
+def score_cross_products(layout: Layout, theta: np.ndarray, x: np.ndarray,
+                         mean: np.ndarray | None = None, cov: np.ndarray | None = None
+                         ) -> np.ndarray:
+    """``Σ_i g_i g_iᵀ`` (``q × q``) of the scores of :func:`casewise_scores`."""
+    out = np.zeros((layout.n_params, layout.n_params))
+    for _, g in casewise_scores(layout, theta, x, mean, cov):
         out += g.T @ g
     return out
 

@@ -30,12 +30,12 @@ DWLS_DIFFERENCE_WORDS = ("the adjusted difference test applied to the DWLS stati
                          "chi-square on the difference in degrees of freedom as in Asparouhov "
                          "and Muthén (2010)")
 
-#: how the z values of each route divide the residual (scalewright.residuals), in words
+#: how the z values of each basis divide the residual (scalewright.residuals.Z_BASES), in words
 _Z_ROUTES = (
     ("normal", "under normal-theory ML the variance of the sample covariance less that of the "
                "implied one"),
-    ("robust", "under robust ML the distribution-free variance of the residual (Browne, 1984), "
-               "which does not assume normal answers"),
+    ("distribution-free", "under robust ML the distribution-free variance of the residual "
+                          "(Browne, 1984), which does not assume normal answers"),
     ("dwls", "under DWLS the variance of the residual from the sampling covariance of the "
              "polychoric correlations (Muthén, 1984; Browne, 1984)"),
     ("fiml", "with missing answers the variance of the saturated model's covariance less that "

@@ -187,25 +187,12 @@ def cited_in(texts) -> set[str]:
 
 
 def residual_z_routes(report: dict) -> set[str]:
-    """How the z values of the residuals shown were computed: ``normal``,
-    ``robust`` (distribution-free), ``dwls``, ``fiml`` or ``robust-fiml`` (see
-    :mod:`scalewright.residuals`), for the models that show any."""
-    routes = set()
-    for m in report.get("models", ()):
-        res = m.get("residual_correlations") or {}
-        if not any(r.get("standardized") is not None for r in res.get("largest", ())):
-            continue
-        observed = str(res.get("observed", ""))
-        if observed.startswith("correlations of the saturated model"):
-            routes.add("robust-fiml" if "robust" in str(m.get("estimator", "")).lower()
-                       else "fiml")
-        elif "polychoric" in observed:
-            routes.add("dwls")
-        elif "robust" in str(m.get("estimator", "")).lower():
-            routes.add("robust")
-        else:
-            routes.add("normal")
-    return routes
+    """How the z values of the residuals shown were computed (the models'
+    ``standardized_basis``, :data:`scalewright.residuals.Z_BASES`)."""
+    return {basis for m in report.get("models", ())
+            if (basis := (m.get("residual_correlations") or {}).get("standardized_basis"))
+            and any(r.get("standardized") is not None
+                    for r in m["residual_correlations"].get("largest", ()))}
 
 
 def references_used(report: dict) -> list[str]:
@@ -232,7 +219,7 @@ def references_used(report: dict) -> list[str]:
     if "validity" in present:
         keys |= {"fornell_larcker", "henseler"}
     z_routes = residual_z_routes(report)
-    if z_routes & {"robust", "dwls"}:
+    if z_routes & {"distribution-free", "dwls"}:
         keys.add("browne1984")
     if "dwls" in z_routes:
         keys.add("muthen")
