@@ -269,33 +269,17 @@ class _Source:
         """The column names exactly as the file writes them (the readers rename a
         repeated name, e.g. to 'q1.1'); only text files and workbooks can repeat one."""
         try:
-            if self.suffix in (".csv", ".tsv", ".txt"):
-                row = pd.read_csv(self.path, sep=self._separator(), header=None, nrows=1,
-                                  dtype=str, encoding="utf-8")
-            elif self.suffix == ".xlsx":
-                row = pd.read_excel(self.path, sheet_name=self._sheet(), header=None, nrows=1,
-                                    dtype=str, engine="openpyxl")
-            else:
-                return []
-        except READ_ERRORS as exc:
+            rows = self._leading_rows(1)
+        except (*READ_ERRORS, csv.Error) as exc:
             self._unreadable(exc)
-        return [str(name) for name in row.iloc[0] if not pd.isna(name)] if len(row) else []
+        return rows[0] if rows else []
 
     def _header_row_below(self, names: list[str], rows: int = 10) -> int | None:
         """The row (2 to ``rows``, counted from 1) of a text file or workbook
         that holds at least half of ``names`` as cells, when a title or a note
         sits above the header row; None when there is none."""
         try:
-            if self.suffix in (".csv", ".tsv", ".txt"):
-                with open(self.path, encoding="utf-8-sig", newline="") as handle:
-                    lines = list(itertools.islice(csv.reader(handle, delimiter=self._separator()),
-                                                  rows))
-            elif self.suffix == ".xlsx":
-                frame = pd.read_excel(self.path, sheet_name=self._sheet(), header=None,
-                                      nrows=rows, dtype=str, engine="openpyxl")
-                lines = [[str(v) for v in row if not pd.isna(v)] for row in frame.to_numpy()]
-            else:
-                return None
+            lines = self._leading_rows(rows)
         except (*READ_ERRORS, csv.Error):
             return None
         wanted = set(names)
@@ -303,6 +287,20 @@ class _Source:
             if 2 * len(wanted & {c.strip() for c in cells}) >= len(wanted):
                 return number
         return None
+
+    def _leading_rows(self, rows: int) -> list[list[str]]:
+        """The first ``rows`` rows of a text file or workbook as written, each
+        the list of its non-empty cells as text (rows may differ in length);
+        nothing for the other formats, whose headers cannot repeat a name."""
+        if self.suffix in (".csv", ".tsv", ".txt"):
+            with open(self.path, encoding="utf-8-sig", newline="") as handle:
+                lines = itertools.islice(csv.reader(handle, delimiter=self._separator()), rows)
+                return [[cell for cell in line if cell != ""] for line in lines]
+        if self.suffix == ".xlsx":
+            frame = pd.read_excel(self.path, sheet_name=self._sheet(), header=None, nrows=rows,
+                                  dtype=str, engine="openpyxl")
+            return [[str(v) for v in row if not pd.isna(v)] for row in frame.to_numpy()]
+        return []
 
     # columns present ---------------------------------------------------------
     def require(self, columns: dict[str, object]):
