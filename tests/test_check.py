@@ -191,6 +191,20 @@ def test_output_folder_below_a_file_is_refused(tmp_path):
         check_targets(tmp_path / "notes" / "reports", "study")
 
 
+def test_tables_folder_that_is_a_file_or_below_one_is_refused(tmp_path):
+    from scalewright.report.tables import check_tables_folder
+
+    mine = tmp_path / "notes"
+    mine.write_text("my own notes")
+    with pytest.raises(StudyError, match=r"notes: the tables folder given with --tables is a "
+                                         r"file, so the tables cannot be written into it"):
+        check_tables_folder(mine)
+    with pytest.raises(StudyError, match=r"the tables folder cannot be created because .*notes "
+                                         r"is a file\. Give --tables a path"):
+        check_tables_folder(mine / "tables")
+    assert mine.read_text() == "my own notes"
+
+
 def test_output_folder_without_write_permission_is_refused(tmp_path, monkeypatch):
     # the permission bits are not enforced for root, so the access check is simulated
     monkeypatch.setattr(output.os, "access", lambda path, mode: False)

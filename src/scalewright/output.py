@@ -32,19 +32,26 @@ def _not_serialisable(value):
 def check_targets(folder: Path, stem: str) -> None:
     """Refuse early, before any fitting, if the output folder cannot hold the
     report or an output would replace a user's file."""
+    check_folder(folder, "--out", "output folder", "report")
+    for suffix in ("json", "html"):
+        refuse_foreign(folder / f"{stem}.{suffix}")
+
+
+def check_folder(folder: Path, option: str, role: str, what: str) -> None:
+    """Refuse a folder given with ``option`` that is a file, lies below a file,
+    or cannot be written into (``role``: the folder in words; ``what``: what
+    would be written)."""
     if folder.exists() and not folder.is_dir():
-        raise StudyError(f"{folder}: the output folder given with --out is a file, so the "
-                         "report cannot be written into it. Give the path of a folder (it is "
+        raise StudyError(f"{folder}: the {role} given with {option} is a file, so the "
+                         f"{what} cannot be written into it. Give the path of a folder (it is "
                          "created if needed).")
     existing = next(p for p in (folder.absolute(), *folder.absolute().parents) if p.exists())
     if not existing.is_dir():
-        raise StudyError(f"{folder}: the output folder cannot be created because {existing} "
-                         "is a file. Give --out a path whose parent folders are folders.")
+        raise StudyError(f"{folder}: the {role} cannot be created because {existing} "
+                         f"is a file. Give {option} a path whose parent folders are folders.")
     if not os.access(existing, os.W_OK | os.X_OK):
-        raise StudyError(f"{folder}: the report cannot be written there, because {existing} "
-                         "is not writable for you. Choose another output folder with --out.")
-    for suffix in ("json", "html"):
-        refuse_foreign(folder / f"{stem}.{suffix}")
+        raise StudyError(f"{folder}: the {what} cannot be written there, because {existing} "
+                         f"is not writable for you. Choose another {role} with {option}.")
 
 
 def write_outputs(result, folder: Path) -> dict[str, Path]:

@@ -17,7 +17,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from scalewright.errors import StudyError
-from scalewright.output import written_by_scalewright
+from scalewright.output import check_folder, written_by_scalewright
 from scalewright.report.charts import frequency_chart, frequency_text
 from scalewright.report.conventions import (FIT_CUTOFFS, MEETS, MISSES, RELIABILITY_MINIMUM,
                                             RELIABILITY_SOURCE, ROBUST, SALIENCE, cutoff_note,
@@ -897,9 +897,7 @@ def check_tables_folder(folder: Path) -> None:
     """Refuse a tables folder that is a file or holds files scalewright did not
     write (its own reports count as its own: --out and --tables may name the
     same folder); called before the check runs and again before writing."""
-    if folder.exists() and not folder.is_dir():
-        raise StudyError(f"{folder}: the tables folder given with --tables is a file. Give the "
-                         "path of a folder (it is created if needed).")
+    check_folder(folder, "--tables", "tables folder", "tables")
     if folder.is_dir() and not (folder / MANIFEST).exists() and not all(
             written_by_scalewright(path) for path in folder.iterdir()):
         raise StudyError(f"{folder}: this folder already holds files that scalewright did not "
