@@ -122,6 +122,7 @@ def test_frequencies_are_left_out_for_answers_that_are_not_whole_numbers():
     x = np.column_stack([np.tile([2.2333, 2.23333, 3.5, 4.0], 25), np.tile([1.0, 2, 3, 4], 25)])
     result = screen(item_data(x))
     assert result.items[0].n_distinct == 4 and result.items[0].frequencies == {}
+    # the counts are those built in: np.tile repeats each of 1, 2, 3, 4 twenty-five times
     assert result.items[1].frequencies == {1.0: 25, 2.0: 25, 3.0: 25, 4.0: 25}
 
 def test_percent_missing_is_a_percentage_of_all_rows(likert):
