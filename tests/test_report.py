@@ -499,18 +499,16 @@ def test_methods_paragraph_says_how_the_z_values_of_each_route_were_computed():
     assert "distribution-free" not in text
     assert {m["residual_correlations"]["standardized_basis"] for m in report["models"]} == {"fiml"}
     first = report["models"][0]
-    first["residual_correlations"]["standardized_basis"] = "distribution-free"
-    text = " ".join(methods_paragraphs(report))
-    assert "under robust ML the distribution-free variance of the residual (Browne, 1984)" in text
-    references = references_used(report)
-    for author, year in _CITED.findall(text):
-        assert _listed(author, year, references), (author, year)
-    first["residual_correlations"]["standardized_basis"] = "robust-fiml"
-    text = " ".join(methods_paragraphs(report))
-    assert "from the casewise scores of both estimates (Yuan & Bentler, 2000)" in text
-    references = references_used(report)
-    for author, year in _CITED.findall(text):
-        assert _listed(author, year, references), (author, year)
+    for basis, words in (
+            ("distribution-free",
+             "under robust ML the distribution-free variance of the residual (Browne, 1984)"),
+            ("robust-fiml", "from the casewise scores of both estimates (Yuan & Bentler, 2000)")):
+        first["residual_correlations"]["standardized_basis"] = basis
+        text = " ".join(methods_paragraphs(report))
+        assert words in text
+        references = references_used(report)
+        for author, year in _CITED.findall(text):
+            assert _listed(author, year, references), (author, year)
     for m in report["models"]:                   # no z shown: no sentence
         for r in m["residual_correlations"]["largest"]:
             r["standardized"] = None
