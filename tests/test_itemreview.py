@@ -191,7 +191,7 @@ def test_refinement_uses_the_given_estimator_and_pairwise_alpha_with_missing_ans
     x[np.random.default_rng(9).random(x.shape) < 0.05] = np.nan
     calls = []
 
-    def listwise(spec, values, columns):
+    def listwise(spec, values, columns, start_from):
         calls.append(len(spec.items))
         values = values[:, columns]
         return evaluate_normal(spec, values[~np.isnan(values).any(axis=1)])
@@ -203,6 +203,43 @@ def test_refinement_uses_the_given_estimator_and_pairwise_alpha_with_missing_ans
     # pingouin's alpha with pairwise deletion: the same covariance, rounding only
     assert_allclose(path.steps[1].reliability["first"],
                     pingouin.cronbach_alpha(frame, nan_policy="pairwise")[0], rtol=1e-10)
+
+
+def test_trial_fits_give_the_same_path_as_full_fits_on_complete_data():
+    # the trials compare fit only: stopping them at the point-estimate tolerance and
+    # skipping their standard errors and RMSEA interval (the removal chosen is refitted
+    # in full) must leave every step and every trial as it was, to the optimiser's
+    # tolerance (theory: the same ML solution)
+    from scalewright.evaluate import complete_data_blocks, evaluate_moments, moments_subset
+
+    x, constructs, _ = _population(4, weak=2, pair=(6, 8))
+    spec = make_spec(constructs)
+    moments = complete_data_blocks(x)[0]
+    trials = []
+
+    def full(reduced, values, columns, start_from):
+        return evaluate_moments(reduced, moments_subset(moments, spec.items, reduced.items),
+                                start_from)
+
+    def trial(reduced, values, columns, start_from):
+        result = evaluate_moments(reduced, moments_subset(moments, spec.items, reduced.items),
+                                  start_from, trial=True)
+        trials.append(result)
+        return result
+
+    plain = refinement_path(spec, x, fit=full).to_dict()
+    quick = refinement_path(spec, x, fit=full, trial_fit=trial).to_dict()
+    assert len(plain["steps"]) == len(quick["steps"]) >= 2
+    for a, b in zip(plain["steps"], quick["steps"]):
+        assert a["removed"] == b["removed"] and a["flagged"] == b["flagged"]
+        for key in ("cfi", "rmsea", "srmr", "chi_square"):
+            assert_allclose(b["fit"][key], a["fit"][key], rtol=1e-6, atol=1e-9)
+        assert [t["item"] for t in a["tried"]] == [t["item"] for t in b["tried"]]
+        for ta, tb in zip(a["tried"], b["tried"]):
+            assert_allclose(tb["cfi"], ta["cfi"], rtol=1e-6, atol=1e-9)
+            assert_allclose(tb["rmsea"], ta["rmsea"], rtol=1e-6, atol=1e-9)
+    assert trials and all(t.estimate.acov is None and np.isnan(t.fit.rmsea_p_close)
+                          for t in trials)
 
 
 def test_trial_removals_without_standard_errors_give_the_same_path_under_fiml():
@@ -218,14 +255,13 @@ def test_trial_removals_without_standard_errors_give_the_same_path_under_fiml():
     choice = MethodChoice("normal", "full-information", ())
     full_fits, trial_fits = [], []
 
-    def full(spec, values, columns):
+    def full(spec, values, columns, start_from):
         result = evaluate_answers(spec, values[:, columns], choice, "t.csv")
         full_fits.append(result.estimate.acov is not None)
         return result
 
-    def trial(spec, values, columns):
-        result = evaluate_answers(spec, values[:, columns], choice, "t.csv",
-                                  standard_errors=False)
+    def trial(spec, values, columns, start_from):
+        result = evaluate_answers(spec, values[:, columns], choice, "t.csv", trial=True)
         trial_fits.append(result.estimate.acov is None)
         return result
 

@@ -232,7 +232,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         analysed = _merged_sparse_categories(study, spec, choice, x)
         complete = analysed[~np.isnan(analysed).any(axis=1)]
 
-        def refit(reduced_spec, answers, columns):
+        def refit(reduced_spec, answers, columns, start_from):
+            # the DWLS route computes its own start values (``start_from`` unused);
             # the refinement path refits by the model's own route on the same answers
             # (pairwise, categories merged as before), so its steps' fit stays comparable
             # with step 0; the alphas it reports come from ``complete``
@@ -255,19 +256,19 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     observed = None if saturated is None else saturated[1].cov
     trial = None
     if np.isnan(x).any():
-        def refit(reduced_spec, answers, columns):
+        def refit(reduced_spec, answers, columns, start_from):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
-                                    start_from=model.estimate)
+                                    start_from=start_from)
 
-        def trial(reduced_spec, answers, columns):
+        def trial(reduced_spec, answers, columns, start_from):
             # a trial removal is judged by its fit alone: no standard errors
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
-                                    start_from=model.estimate, standard_errors=False)
+                                    start_from=start_from, trial=True)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
             if observed is None:                 # listwise: complete rows only
-                return refit(reduced_spec, answers, columns).estimate
+                return refit(reduced_spec, answers, columns, model.estimate).estimate
             return fiml_point_estimate(reduced_spec, answers[:, columns], data.file.name,
                                        model.estimate, observed[np.ix_(columns, columns)])
     else:
@@ -276,10 +277,16 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         # statistics are the moments, so large files are not copied per refit
         moments = complete_data_blocks(x)[0]
 
-        def refit(reduced_spec, answers, columns):
+        def refit(reduced_spec, answers, columns, start_from):
             return evaluate_moments(reduced_spec,
                                     moments_subset(moments, spec.items, reduced_spec.items),
-                                    start_from=model.estimate)
+                                    start_from=start_from)
+
+        def trial(reduced_spec, answers, columns, start_from):
+            # a trial removal is judged by its fit alone: no standard errors
+            return evaluate_moments(reduced_spec,
+                                    moments_subset(moments, spec.items, reduced_spec.items),
+                                    start_from=start_from, trial=True)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices

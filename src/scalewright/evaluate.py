@@ -5,13 +5,17 @@ then fit indices, standardized solution and warnings.
 
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.diagnostics import model_warnings
-from scalewright.estimate.normal import Block, complete_data_blocks, fit_normal
+from scalewright.estimate.fisher import OptimizerRecord
+from scalewright.estimate.normal import Block, NormalFit, complete_data_blocks, fit_normal
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.indices import fit_indices, independence_chi_square, saturated_loglik
+from scalewright.layout import Layout
 from scalewright.modelresult import ModelResult
 from scalewright.specify import build_layout
 from scalewright.standardize import standardize
@@ -29,22 +33,49 @@ def evaluate_normal(spec, x: np.ndarray) -> ModelResult:
         return evaluate_moments(spec, complete_data_blocks(x)[0])
 
 
-def evaluate_moments(spec, block: Block, start_from: Estimate | None = None) -> ModelResult:
+def fit_from(spec, cov: np.ndarray, blocks: tuple, start_from: Estimate | None, *,
+             grad_tol: float = 1e-8, prepare: Callable[[Layout], Layout] = lambda layout: layout
+             ) -> tuple[Layout, np.ndarray, OptimizerRecord, NormalFit]:
+    """Normal-theory ML estimates of ``spec`` on ``blocks``: ``layout, theta,
+    record, objective``.
+
+    With ``start_from``, the estimate of a related model (the model with one
+    more item, say), the fit starts from its values of the parameters both
+    name alike (:meth:`Estimate.start_for`) and from plain start values for
+    the rest (``build_layout(..., plain_start=True)``); a warm start that
+    does not converge is retried from the usual start values, computed from
+    ``cov``, as is every fit without ``start_from``.  ``prepare`` adds to a
+    layout what the blocks need (the intercepts of FIML)."""
+    if start_from is not None:
+        layout = prepare(build_layout(spec, cov, plain_start=True))
+        theta, record, objective = fit_normal(layout, blocks, start_from.start_for(layout),
+                                              grad_tol=grad_tol)
+        if record.converged:
+            return layout, theta, record, objective
+    layout = prepare(build_layout(spec, cov))
+    return (layout, *fit_normal(layout, blocks, grad_tol=grad_tol))
+
+
+def evaluate_moments(spec, block: Block, start_from: Estimate | None = None, *,
+                     trial: bool = False) -> ModelResult:
     """Normal-theory ML for one model from the sample moments of complete
     data (the sufficient statistics): ``block.cov`` (÷n), ``block.mean``,
     ``block.n``, items in ``spec.items`` order.  ``start_from``, the estimate
     of a related model, gives the start values of the parameters both name
-    alike (:meth:`Estimate.start_for`); a warm start that does not converge
-    is retried from the usual start values."""
+    alike (:func:`fit_from`).  A ``trial`` fit, one of the trial removals of
+    the refinement path, which are compared by their fit only, stops at the
+    gradient tolerance of :func:`point_estimate` (its chi-square is then
+    within about ``N·g²/i`` ≈ 1e-10 of the optimum's) and skips the standard
+    errors (``acov`` is None) and the RMSEA interval and close-fit p (NaN;
+    :func:`~scalewright.indices.fit_indices`)."""
     with one_blas_thread():
         blocks = (block,)
-        layout = build_layout(spec, block.cov)
-        theta, record, objective = fit_normal(
-            layout, blocks, None if start_from is None else start_from.start_for(layout))
-        if not record.converged and start_from is not None:
-            theta, record, objective = fit_normal(layout, blocks)
-        _, _, info = objective.value_grad_info(theta)
-        acov, unidentified = invert_information(info, objective.n)
+        layout, theta, record, objective = fit_from(
+            spec, block.cov, blocks, start_from, grad_tol=POINT_GRAD_TOL if trial else 1e-8)
+        acov, unidentified = None, ()
+        if not trial:
+            _, _, info = objective.value_grad_info(theta)
+            acov, unidentified = invert_information(info, objective.n)
         loglik = objective.loglik(theta)
         estimate = Estimate(layout, theta, acov, record, objective.n, loglik, "ml", unidentified,
                             blocks)
@@ -54,19 +85,21 @@ def evaluate_moments(spec, block: Block, start_from: Estimate | None = None) -> 
             loglik=loglik, saturated=saturated_loglik(covs, ns), df=layout.df(),
             n=objective.n, n_params=layout.n_params + layout.p,
             baseline=independence_chi_square(covs, ns), sample_covs=covs,
-            implied_covs=[mats.implied_cov], weights=ns)
+            implied_covs=[mats.implied_cov], weights=ns, interval=not trial)
         std = standardize(mats)
         warnings = model_warnings(estimate, std)
     return ModelResult(spec.name, estimate, fit, std, NORMAL_ML, tuple(warnings))
 
 
-def refit_columns(spec, x: np.ndarray, columns) -> ModelResult:
+def refit_columns(spec, x: np.ndarray, columns, start_from: Estimate | None = None
+                  ) -> ModelResult:
     """The refit contract of the scale-quality stages: fit ``spec`` to the
     ``columns`` of ``x`` (its items, in ``spec.items`` order) by complete-data
-    ML.  Stages receive the refit as a function of the whole answer matrix and
+    ML, from ``start_from``'s estimates where given (:func:`fit_from`).
+    Stages receive the refit as a function of the whole answer matrix and
     the column indices, so that a refit that starts from moments need not copy
     a large data matrix column by column."""
-    return evaluate_normal(spec, x[:, columns])
+    return evaluate_moments(spec, complete_data_blocks(x[:, columns])[0], start_from)
 
 
 def point_estimate(spec, block: Block, start_from: Estimate | None = None) -> Estimate:
@@ -82,11 +115,8 @@ def point_estimate(spec, block: Block, start_from: Estimate | None = None) -> Es
     derived from them is shown with, and saves an iteration."""
     with one_blas_thread():
         blocks = (block,)
-        layout = build_layout(spec, block.cov)
-        start = None if start_from is None else start_from.start_for(layout)
-        theta, record, objective = fit_normal(layout, blocks, start, grad_tol=POINT_GRAD_TOL)
-        if not record.converged and start is not None:
-            theta, record, objective = fit_normal(layout, blocks, grad_tol=POINT_GRAD_TOL)
+        layout, theta, record, objective = fit_from(spec, block.cov, blocks, start_from,
+                                                    grad_tol=POINT_GRAD_TOL)
         return Estimate(layout, theta, None, record, objective.n, objective.loglik(theta), "ml",
                         (), blocks)
 

@@ -28,8 +28,8 @@ from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, 
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.estimate.normal import complete_data_blocks, fit_normal
-from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, evaluate_moments
+from scalewright.estimate.normal import complete_data_blocks
+from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, evaluate_moments, fit_from
 from scalewright.indices import FitIndices, ScaledFitIndices, fit_indices
 from scalewright.itemdata import ItemData
 from scalewright.layout import INTERCEPT
@@ -97,15 +97,15 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
 
 def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
                      start_from: Estimate | None = None, *,
-                     standard_errors: bool = True) -> ModelResult:
+                     trial: bool = False) -> ModelResult:
     """:func:`evaluate_with` on the answer matrix of the model's items
     (columns in ``spec.items`` order, NaN = missing); ``where`` names the
     data file in messages; ``start_from``, the estimate of a related model,
     gives the start values of the parameters both name alike (refits).
-    Without ``standard_errors`` a FIML fit skips its observed information
-    and the robust corrections (``acov`` is None, the fit indices are the
-    normal-theory ones): the trial refits of the refinement path, which
-    compare fit only, need nothing more."""
+    A ``trial`` fit (the trial removals of the refinement path, which are
+    compared by their fit only) skips the standard errors, the robust
+    corrections and the RMSEA interval and close-fit p: ``acov`` is None,
+    the fit indices are the normal-theory ones, the interval NaN."""
     if choice.estimator in (ORDINAL, MIXED):
         raise ValueError("the ordinal and mixed routes have their own evaluation; "
                          "evaluate_answers fits normal-theory and robust ML only")
@@ -113,13 +113,15 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
     with one_blas_thread():
         incomplete = np.isnan(x).any(axis=1)
         if choice.missing_handling == FULL_INFORMATION and incomplete.any():
-            return _full_information(spec, x, robust, where, start_from, standard_errors)
-        return _complete(spec, x[~incomplete] if incomplete.any() else x, robust, start_from)
+            return _full_information(spec, x, robust, where, start_from, trial)
+        return _complete(spec, x[~incomplete] if incomplete.any() else x, robust, start_from,
+                         trial)
 
 
-def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None) -> ModelResult:
+def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None,
+              trial: bool = False) -> ModelResult:
     """Complete rows: normal-theory ML, then the robust corrections if asked."""
-    result = evaluate_moments(spec, complete_data_blocks(x)[0], start_from)
+    result = evaluate_moments(spec, complete_data_blocks(x)[0], start_from, trial=trial)
     est = result.estimate
     if not robust or est.acov is None:
         return result
@@ -132,15 +134,15 @@ def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None) ->
 
 
 def _full_information(spec, x: np.ndarray, robust: bool, where: str,
-                      start_from: Estimate | None, standard_errors: bool = True) -> ModelResult:
+                      start_from: Estimate | None, trial: bool = False) -> ModelResult:
     patterns = missing_patterns(x, tuple(spec.items), where)
     moments = pattern_moments(x, patterns)
     saturated = saturated_em(moments)
     fitted = fit_fiml(build_layout(spec, saturated.cov), x, moments, saturated, start_from)
     layout, theta, n = fitted.layout, fitted.theta, fitted.n
-    robust = robust and standard_errors
+    robust = robust and not trial
     acov, unidentified = None, ()
-    if standard_errors:
+    if not trial:
         # the Yuan–Bentler corrections need A_β and the casewise scores; the standard
         # errors alone need only the observed information, formed cell by cell
         info = fiml_information(layout, theta, x, patterns, moments) if robust else \
@@ -149,7 +151,8 @@ def _full_information(spec, x: np.ndarray, robust: bool, where: str,
     mats = layout.patterns[0].matrices(theta)
     fit = fit_indices(loglik=fitted.loglik, saturated=saturated.loglik, df=fitted.df, n=n,
                       n_params=layout.n_params, baseline=fitted.baseline,
-                      sample_covs=[saturated.cov], implied_covs=[mats.implied_cov], weights=[n])
+                      sample_covs=[saturated.cov], implied_covs=[mats.implied_cov], weights=[n],
+                      interval=not trial)
     if robust and acov is not None:
         corrected = yuan_bentler(info, n, fit.chi_square, fitted.df)
         acov = corrected.acov
@@ -179,11 +182,10 @@ def fiml_point_estimate(spec, x: np.ndarray, where: str, start_from: Estimate,
     a warm start that fails is retried from the usual start values."""
     with one_blas_thread():
         blocks = pattern_blocks(pattern_moments(x, missing_patterns(x, tuple(spec.items), where)))
-        layout = with_intercepts(build_layout(spec, start_cov), np.nanmean(x, axis=0))
-        theta, record, objective = fit_normal(layout, blocks, start_from.start_for(layout),
-                                              grad_tol=POINT_GRAD_TOL)
-        if not record.converged:
-            theta, record, objective = fit_normal(layout, blocks, grad_tol=POINT_GRAD_TOL)
+        means = np.nanmean(x, axis=0)
+        layout, theta, record, objective = fit_from(
+            spec, start_cov, blocks, start_from, grad_tol=POINT_GRAD_TOL,
+            prepare=lambda layout: with_intercepts(layout, means))
         return Estimate(layout, theta, None, record, objective.n, objective.loglik(theta),
                         "fiml", (), blocks)
 

@@ -106,7 +106,7 @@ def _noncentrality_for(chi2: float, df: float, target: float) -> float:
     by scipy's direct inversion of the noncentral chi-square distribution
     function (``special.chndtrinc``; it agreed with bisection on ``ncx2.cdf``
     to 1e-14 relative and is about 30 times faster)."""
-    if stats.chi2.cdf(chi2, df) <= target:
+    if special.chdtr(df, chi2) <= target:          # = stats.chi2.cdf, without its overhead
         return 0.0
     return float(special.chndtrinc(chi2, df, target))
 
@@ -167,19 +167,27 @@ def saturated_loglik(sample_covs, ns) -> float:
 
 def fit_indices(*, loglik: float, saturated: float, df: int, n: int, n_params: int,
                 baseline: tuple[float, int], sample_covs, implied_covs, weights,
-                groups: int = 1, chi_square: float | None = None) -> FitIndices:
-    """All global indices from the model's and the saturated model's log-likelihoods."""
+                groups: int = 1, chi_square: float | None = None,
+                interval: bool = True) -> FitIndices:
+    """All global indices from the model's and the saturated model's
+    log-likelihoods.  Without ``interval`` the RMSEA interval and the
+    close-fit p (the costliest part: an inversion of the noncentral
+    chi-square) are NaN: for trial fits that are compared by CFI and RMSEA
+    and never reported with an interval."""
     chi2 = 2.0 * (saturated - loglik) if chi_square is None else chi_square
     chi2 = max(chi2, 0.0)
     base_chi2, base_df = baseline
     cfi, tli = comparative_fit(chi2, df, base_chi2, base_df)
+    nan = float("nan")
     return FitIndices(
         chi_square=float(chi2), df=int(df),
-        p_value=float(stats.chi2.sf(chi2, df)) if df > 0 else float("nan"),
+        # special.chdtrc(df, x) is what stats.chi2.sf(x, df) evaluates
+        p_value=float(special.chdtrc(df, chi2)) if df > 0 else nan,
         baseline_chi_square=float(base_chi2), baseline_df=int(base_df),
         cfi=cfi, tli=tli,
-        rmsea=rmsea(chi2, df, n, groups), rmsea_ci90=rmsea_interval(chi2, df, n, 0.90, groups),
-        rmsea_p_close=rmsea_close_fit_p(chi2, df, n, 0.05, groups),
+        rmsea=rmsea(chi2, df, n, groups),
+        rmsea_ci90=rmsea_interval(chi2, df, n, 0.90, groups) if interval else (nan, nan),
+        rmsea_p_close=rmsea_close_fit_p(chi2, df, n, 0.05, groups) if interval else nan,
         srmr=srmr(sample_covs, implied_covs, weights),
         loglik=float(loglik), n_params=int(n_params),
         aic=float(-2 * loglik + 2 * n_params),

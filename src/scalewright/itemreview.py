@@ -302,8 +302,11 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     max_steps : int, optional
         Stop after this many removals (no limit by default).
     fit : callable
-        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`), the estimator the model was fitted
-        with (normal-theory ML on complete data by default).
+        ``fit(spec, x, columns, start_from) -> ModelResult`` (see
+        :func:`scalewright.evaluate.refit_columns`), the estimator the model
+        was fitted with (normal-theory ML on complete data by default);
+        ``start_from`` is the estimate of the model one item larger (None
+        for the model as specified), from which a fit may start.
     trial_fit : callable, optional
         ``fit`` without what the comparison of trial removals does not use
         (standard errors, robust corrections); the removal chosen is then
@@ -321,7 +324,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
     if result is not None and review is not None:
         state = _State(spec, result, _alphas(spec, cov, column), settings, list(review))
     else:
-        state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items]), cov,
+        state = _state(spec, result or fit(spec, x, [column[i] for i in spec.items], None), cov,
                        column, settings)
     steps = [Step(None, "the model as specified", _fit(state.result), state.reliability,
                   tuple(r.item for r in state.review), ())]
@@ -353,7 +356,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
         review, new_state = chosen
         if trial_fit is not None:
             new_state = _state(new_state.spec, fit(new_state.spec, x, [
-                column[i] for i in new_state.spec.items]), cov, column, settings)
+                column[i] for i in new_state.spec.items], state.result.estimate), cov, column,
+                settings)
         steps.append(Step(review.item, _reason(review, state, new_state, why),
                           _fit(new_state.result), new_state.reliability,
                           tuple(r.item for r in new_state.review),
@@ -408,7 +412,7 @@ def _trial(state: _State, review: ItemReview, x, cov, column, settings, fit):
     spec = without_item(state.spec, review.item)
     keep = [column[i] for i in spec.items]
     try:
-        result = fit(spec, x, keep)
+        result = fit(spec, x, keep, state.result.estimate)
     except StudyError as exc:
         return review, None, str(exc)
     if not result.converged:
@@ -483,7 +487,8 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
     max_steps : int, optional
         Limit of the refinement path.
     fit : callable
-        ``fit(spec, x, columns) -> ModelResult`` (see :func:`scalewright.evaluate.refit_columns`) for the refits of the refinement path.
+        ``fit(spec, x, columns, start_from) -> ModelResult`` (see
+        :func:`refinement_path`) for the refits of the refinement path.
     trial_fit : callable, optional
         A cheaper ``fit`` for its trial removals (see :func:`refinement_path`).
     saturated : (PatternMoments, Saturated), optional

@@ -39,9 +39,16 @@ from scalewright.layout import (CONSTRUCT, FACTOR_COV, GENERAL, HIGHER, LOADING,
 UNIT_VARIANCE, MARKER = "unit-variance", "marker"
 
 
-def build_layout(spec, sample_cov: np.ndarray) -> Layout:
+def build_layout(spec, sample_cov: np.ndarray, *, plain_start: bool = False) -> Layout:
     """Build the layout of one model for one group, with start values from
-    ``sample_cov`` (the covariance of ``spec.items`` in that order)."""
+    ``sample_cov`` (the covariance of ``spec.items`` in that order).
+
+    With ``plain_start`` the start values skip the principal-axis step and
+    take one standardized loading for every item (:func:`_plain_start`):
+    for a refit whose start values come from a related model's estimate
+    (:meth:`~scalewright.estimate.result.Estimate.start_for`), which replaces
+    every parameter the two share, the principal-axis step (a matrix
+    inverse and eigendecomposition per construct) would be thrown away."""
     _check_structure(spec)
     items = tuple(spec.items)
     constructs = tuple(spec.constructs)
@@ -61,7 +68,8 @@ def build_layout(spec, sample_cov: np.ndarray) -> Layout:
     fixed_paths = np.zeros((m, m))
     fixed_psi = np.zeros((m, m))
 
-    std = _standardized_start(spec, items, sample_cov)
+    std = _plain_start(spec, items) if plain_start else \
+        _standardized_start(spec, items, sample_cov)
     sd = np.sqrt(np.diag(sample_cov)).tolist()     # Python floats: the loops below are per cell
 
     def new_param(param: Param, value: float) -> int:
@@ -208,6 +216,33 @@ def _standardized_start(spec, items, cov) -> _StandardizedStart:
         gamma = np.sign(gamma + 1e-12) * np.clip(np.abs(gamma), 0.3, 0.9)
         for c, g in zip(cs, gamma):
             out.higher[(h, c)] = float(g)
+    return out
+
+
+def _plain_start(spec, items) -> _StandardizedStart:
+    """Start values that read nothing from the data: standardized loading .6
+    on the item's constructs (.4 and .5 under a general factor), construct
+    correlations 0 (positive definite by construction), higher-order paths
+    .6.  Used when a warm start replaces them (:func:`build_layout`)."""
+    out = _StandardizedStart()
+    primary = 0.4 if spec.general else 0.6
+    communality = np.zeros(len(items))
+    row = {item: i for i, item in enumerate(items)}
+    for c, its in spec.constructs.items():
+        for item in its:
+            out.loading[(c, item)] = primary
+            communality[row[item]] += primary ** 2
+    for c, its in spec.cross_loadings.items():
+        for item in its:
+            out.loading[(c, item)] = 0.0
+    if spec.general:
+        for item in items:
+            out.loading[(spec.general, item)] = 0.5
+        communality += 0.25
+    out.residual = np.clip(1.0 - communality, 0.1, 0.95)
+    for h, cs in spec.higher_order.items():
+        for c in cs:
+            out.higher[(h, c)] = 0.6
     return out
 
 
