@@ -26,7 +26,7 @@ from conftest import make_spec, simulate_cfa
 from scalewright.evaluate import evaluate_normal
 from scalewright.hints import score_tests
 from scalewright.itemdata import read_items
-from scalewright.itemreview import (CROSS, PAIR, WEAK, Settings, quality_keys,
+from scalewright.itemreview import (CROSS, MANY_REMOVED, PAIR, WEAK, Settings, quality_keys,
                                     refinement_path, review_items, without_item)
 from scalewright.studyfile import load_study
 
@@ -304,6 +304,22 @@ def test_refinement_keeps_three_items_per_construct():
     assert "only 3 items" in path.stopped
 
 
+def test_refinement_says_when_the_structure_rather_than_items_misfits():
+    # simulated from a known model: two constructs correlated .3 forced onto one; the
+    # path can only reach a model without flags by dropping most of one construct,
+    # which MANY_REMOVED (a quarter of the items; a judgement call) reads as a
+    # structural misfit.  One weak item of ten stays below it.
+    x, constructs, items = _population(6)
+    path = refinement_path(make_spec({"everything": tuple(items)}), x)
+    removed = len(path.steps) - 1
+    assert removed > MANY_REMOVED * len(items)
+    assert path.structure_note.startswith(f"The path removes {removed} of the model's 10 items")
+    assert path.to_dict()["structure_note"] == path.structure_note
+    weak = refinement_path(make_spec(constructs), _population(4, weak=2)[0])
+    assert len(weak.steps) == 2 and weak.structure_note is None
+    assert weak.to_dict()["structure_note"] is None
+
+
 def test_refinement_respects_max_steps():
     x, constructs, _ = _population(4, weak=2)
     path = refinement_path(make_spec(constructs), x, max_steps=0)
@@ -362,7 +378,7 @@ def test_demo_quality_keys_are_json_and_complete(demo):
     json.dumps(keys)   # raises on numpy scalars or NaN-free violations of the JSON types
     assert set(keys) == {"modification_hints", "modification_hint_notes",
                          "residual_correlations", "item_review", "refinement"}
-    assert set(keys["refinement"]) == {"steps", "stopped", "note"}
+    assert set(keys["refinement"]) == {"steps", "stopped", "note", "structure_note"}
     assert set(keys["refinement"]["steps"][1]["fit"]) == {"cfi", "rmsea", "srmr", "chi_square", "df"}
 
 

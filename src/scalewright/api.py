@@ -39,6 +39,7 @@ from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
 from scalewright.outliers import item_correlations, mahalanobis_outliers
 from scalewright.output import check_targets, write_outputs
+from scalewright.progress import say
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study, load_study
 
@@ -135,24 +136,33 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
         for category, text in classified_warnings(model.estimate, model.std):
             warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
     if out is not None:
+        say(f"writing the report into '{out}'")
         write_outputs(result, Path(out))
     return result
 
 
 def _checked(study: Study) -> CheckResult:
     """The stages of :func:`check`, from reading the data to the result."""
+    say(f"reading '{study.data.file.name}'")
     data = read_items(study)
+    say(f"screening {len(data.items)} items in {data.n_rows} rows")
     screening = screen(data)
     choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
-    models = tuple(_fit_placed(study, spec, data, rows, choice) for spec in study.models)
+    models = []
+    for k, spec in enumerate(study.models, start=1):
+        say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
+        models.append(_fit_placed(study, spec, data, rows, choice))
+    models = tuple(models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models],
                                 {m.name: m.fitted for m in models
                                  if isinstance(m.fitted, DwlsModel)}))
     if study.groups is not None:
         spec = next((m for m in study.models if m.first), study.models[0])
+        say(f"model '{spec.name}': checking invariance across the groups of "
+            f"'{study.groups.column}'")
         extra.update(_invariance(study, data, spec, choice))
     dropped = {"no answer to any item" if choice.missing_handling != LISTWISE
                else "incomplete answers": int(data.n_rows - n_used)}

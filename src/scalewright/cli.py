@@ -14,7 +14,7 @@ import traceback
 import warnings
 from pathlib import Path
 
-from scalewright import __version__
+from scalewright import __version__, progress
 from scalewright.errors import ScalewrightWarning, StudyError
 
 DEFAULT_OUT = Path("reports")
@@ -110,6 +110,7 @@ def _refuse_non_convergence(result, out: Path) -> None:
 
 
 def _summarise(result, out: Path) -> None:
+    progress.clear()
     stem = result.study.path.stem
     print(f"{result.study.title}: {result.n_used} of {result.data.n_rows} rows used.")
     for m in result.models:
@@ -122,16 +123,30 @@ def _summarise(result, out: Path) -> None:
 
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
+    # a person watching a terminal: a status line says what the long stages are doing
+    status = progress.show_on(sys.stderr) if sys.stderr.isatty() else None
+    try:
+        return _main(args)
+    finally:
+        if status is not None:
+            progress.stop(status)
+
+
+def _main(args) -> int:
+    """Run the command; a problem to fix exits 2 with its message, a bug 1."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ScalewrightWarning)  # they are in the report
             return _run(args)
     except StudyError as exc:
+        progress.clear()
         print(textwrap.fill(str(exc), width=100), file=sys.stderr)
         return 2
     except KeyboardInterrupt:
+        progress.clear()
         return 130
     except Exception:  # noqa: BLE001 - anything else is a bug, said plainly
+        progress.clear()
         traceback.print_exc()
         print("\nThis is a bug in scalewright, not a problem with your files. Please report "
               "it with the message above.", file=sys.stderr)

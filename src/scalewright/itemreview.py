@@ -54,6 +54,7 @@ from scalewright.hints import ScoreTests, modification_hint_keys
 from scalewright.hints_dwls import score_tests_for
 from scalewright.layout import CONSTRUCT, GENERAL, LOADING, RESIDUAL_COV
 from scalewright.modelresult import ModelResult
+from scalewright.progress import say
 from scalewright.reliability import cronbach_alpha
 from scalewright.residuals import FLAG_AT, residual_correlations
 
@@ -69,6 +70,11 @@ NOTE = (
     "construct the most. Dropping items narrows what a scale measures: keep an item whose "
     "content the construct needs, revise rather than drop where you can, and confirm a "
     "shortened scale on new data.")
+
+
+#: share of a model's items beyond which the refinement path's removals point to the
+#: structure rather than to single items (a judgement call; no published rule)
+MANY_REMOVED = 0.25
 
 
 @dataclass(frozen=True)
@@ -249,11 +255,26 @@ class Step:
 class Refinement:
     steps: tuple[Step, ...]
     stopped: str
+    n_items: int
     note: str = NOTE
+
+    @property
+    def structure_note(self) -> str | None:
+        """A caution when the path removes more than :data:`MANY_REMOVED` of the
+        model's items: so many removals say that the structure misfits (items of
+        distinct constructs forced onto one, say), which no shortening repairs."""
+        removed = len(self.steps) - 1
+        if removed <= MANY_REMOVED * self.n_items:
+            return None
+        return (f"The path removes {removed} of the model's {self.n_items} items "
+                f"({removed / self.n_items:.0%}). When so many items have to go, the model's "
+                "structure is the likely problem rather than single items (for instance, "
+                "items of distinct constructs forced onto one): compare it with rival "
+                "structures before shortening a scale.")
 
     def to_dict(self) -> dict:
         return {"steps": [s.to_dict() for s in self.steps], "stopped": self.stopped,
-                "note": self.note}
+                "note": self.note, "structure_note": self.structure_note}
 
 
 @dataclass(frozen=True)
@@ -342,6 +363,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                        "with the others and its reliability is fragile (three-indicator rule, "
                        "Bollen 1989).")
             break
+        say(f"model '{spec.name}': refinement path, step {len(steps)}: refitting without "
+            f"each of {len(removable)} flagged item{'s' if len(removable) > 1 else ''}")
         trials = [_trial(state, r, x, cov, column, settings, trial_fit or fit)
                   for r in removable]
         fitted = [t for t in trials if t[1] is not None]
@@ -363,7 +386,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
                           tuple(r.item for r in new_state.review),
                           tuple(_tried(t, state) for t in trials)))
         state = new_state
-    return Refinement(tuple(steps), stopped)
+    return Refinement(tuple(steps), stopped, len(spec.items))
 
 
 def _state(spec, result: ModelResult, cov: np.ndarray, column: dict, settings: Settings) -> _State:
@@ -531,5 +554,5 @@ def quality_keys(model_result: ModelResult, study, x: np.ndarray, *,
         out["item_review"] = []
         out["refinement"] = {"steps": [], "stopped": "The model as specified did not converge, "
                              "so no item was reviewed and no refinement path was computed.",
-                             "note": NOTE}
+                             "note": NOTE, "structure_note": None}
     return out

@@ -34,6 +34,7 @@ from scalewright.itemreview import without_item
 from scalewright.layout import CONSTRUCT, GENERAL, HIGHER, cell_derivatives
 from scalewright.modelresult import ModelResult
 from scalewright.omega import coefficient_h, omega_total
+from scalewright.progress import say
 from scalewright.reliability import alpha_report, item_analysis
 from scalewright.validity import construct_quality, fornell_larcker, htmt
 
@@ -297,6 +298,7 @@ def _omega_if_dropped(spec, construct: str, items: Sequence[str], x: np.ndarray,
                 "reliability a factor model cannot separate from its error."))]
     column = {item: j for j, item in enumerate(columns)}
     values, failed = [], []
+    say(f"model '{spec.name}': omega of '{construct}' without each of its {len(items)} items")
     for item in items:
         reduced = without_item(spec, item)
         try:

@@ -650,7 +650,8 @@ def refinement_table(m: dict, prefix: str) -> Table:
         rows.append((_h(str(k)), Cell(s.get("removed") or "none (as specified)", css="text"),
                      _c(coef(fit.get("cfi"))), _c(coef(fit.get("rmsea"))),
                      _c(coef(fit.get("srmr"))), *[_c(coef(rel.get(c), 2)) for c in constructs]))
-    notes = tuple(n for n in (ref.get("note"), ref.get("stopped")) if n)
+    notes = tuple(n for n in (ref.get("note"), ref.get("structure_note"), ref.get("stopped"))
+                  if n)
     return Table(f"{prefix}-refinement", f"A refinement path for ‘{m['name']}’ (a suggestion)",
                  ("Step", "Item removed", "CFI", "RMSEA", "SRMR",
                   *[f"Alpha {c}" for c in constructs]), tuple(rows), notes, left=2)
