@@ -13,6 +13,10 @@ and unpinned = as many threads as cores) in the same run:
   screen, method choice, every model with local fit, item review and scale
   quality, rival comparison; nothing written), on the one-model file.  It
   can take minutes, so its runs stop after ``--check-budget`` seconds.
+* ``whole check with the rival``: the same on the two-model file, run
+  ``--rival-repeat`` times (default once).  The one-general rival misfits
+  badly, so its refinement path refits ~4,700 trial removals on its way
+  from 100 items to 10.
 * ``core check``: the stages issue 2 names — read the model file and CSV,
   screen, choose the method, fit every model with its indices — one by one,
   on the two-model file, fitting each model both by the method the check
@@ -124,6 +128,8 @@ def main() -> None:
     parser.add_argument("--check-repeat", type=int, default=3, help="most whole-check runs")
     parser.add_argument("--check-budget", type=float, default=60.0,
                         help="no further whole check starts after this many seconds")
+    parser.add_argument("--rival-repeat", type=int, default=1,
+                        help="whole-check runs on the two-model file (0: none)")
     parser.add_argument("--semopy-repeat", type=int, default=3)
     parser.add_argument("--semopy-budget", type=float, default=60.0)
     parser.add_argument("--semopy-limit", type=float, default=600.0,
@@ -147,6 +153,8 @@ def main() -> None:
                 stages, estimator = median_stages(rivals, args.repeat)
                 whole = timed(lambda: scalewright.check(single), args.check_repeat,
                               budget=args.check_budget)
+                with_rival = (timed(lambda: scalewright.check(rivals), args.rival_repeat)
+                              if args.rival_repeat else None)
             theirs = semopy_runs(description, frame, threads=SETTINGS[name],
                                  repeat=args.semopy_repeat, budget=args.semopy_budget,
                                  limit=args.semopy_limit)
@@ -154,6 +162,7 @@ def main() -> None:
             results[name] = {
                 "threads": SETTINGS[name], "estimator": estimator, "stages": stages,
                 "core_check": core, "whole_check": whole.to_dict(),
+                "whole_check_with_rival": with_rival and with_rival.to_dict(),
                 "semopy_fit": theirs.to_dict(),
                 "ratio_whole": ratio(theirs.median, whole.median),
                 "ratio_whole_cpu": ratio(theirs.cpu_median, whole.cpu_median),
@@ -189,6 +198,11 @@ def report(results: dict, rows: int) -> str:
             f"    whole scalewright.check(), 1 model:     {r['whole_check']['median_s']:8.3f} s  "
             f"({r['whole_check']['repeats']} runs)  ratio {_times(r['ratio_whole'])} "
             f"(CPU time {_times(r['ratio_whole_cpu']).strip()})",
+            *([f"    whole scalewright.check(), 2 models:    "
+               f"{r['whole_check_with_rival']['median_s']:8.3f} s  "
+               f"({r['whole_check_with_rival']['repeats']} runs)  ratio "
+               f"{_times(ratio(semopy_fit.get('median_s'), r['whole_check_with_rival']['median_s']))}"]
+              if r.get("whole_check_with_rival") else []),
             f"    core check, 2 models, chosen method:    {r['core_check']['chosen_method']:8.3f} s"
             f"            ratio {_times(r['ratio_core_chosen'])}",
             f"    core check, 2 models, normal ML:        {r['core_check']['normal_ml']:8.3f} s"

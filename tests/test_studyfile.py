@@ -550,7 +550,9 @@ def test_any_duplicate_key_is_an_error(tmp_path):
 def test_construct_may_not_share_a_name_with_an_item(tmp_path):
     text = MINIMAL.replace("      b: [q4, q5, q6]", "      q4: [q4, q5, q6]")
     with pytest.raises(StudyError, match=rf"line {line_of(text, 'q4: [')}: the construct 'q4' in "
-                                         r"model 'm1' has the same name as the item 'q4'"):
+                                         r"model 'm1' has the same name as the item 'q4'\. "
+                                         r"Rename the construct so that it and the item can be "
+                                         r"told apart"):
         load_study(write(tmp_path, text))
 
 

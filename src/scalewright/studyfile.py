@@ -943,4 +943,4 @@ def _check_names_apart(r: _Reader, models: tuple[ModelSpec, ...], items: dict):
             if factor in items:
                 r.fail(keys + sub, f"the {kind} '{factor}' in model '{m.name}' has the same name "
                                    f"as the item '{factor}'",
-                       "Rename the factor so that factors and items can be told apart")
+                       f"Rename the {kind} so that it and the item can be told apart")
