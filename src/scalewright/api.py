@@ -40,6 +40,7 @@ from scalewright.modelresult import ModelResult
 from scalewright.outliers import item_correlations, mahalanobis_outliers
 from scalewright.output import check_targets, write_outputs
 from scalewright.progress import say
+from scalewright.repeats import repeated_ids
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study, load_study
 
@@ -168,7 +169,7 @@ def _checked(study: Study) -> CheckResult:
                else "incomplete answers": int(data.n_rows - n_used)}
     return CheckResult(study, data, screening, models, n_used, dropped,
                        _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-                       extra, missing_data_summary(data), choice, _reanalysis_keys(data, choice))
+                       extra, missing_data_summary(data), choice, _reanalysis_keys(study, data, choice))
 
 
 def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
@@ -184,16 +185,17 @@ def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
     return keys
 
 
-def _reanalysis_keys(data: ItemData, choice) -> dict:
-    """Outlier screening and the item correlation matrix (reporting checklist
-    lines 11 and 12), under ``data``."""
+def _reanalysis_keys(study: Study, data: ItemData, choice) -> dict:
+    """Outlier screening, the item correlation matrix and repeated ids
+    (reporting checklist lines 11, 12 and 8), under ``data``."""
     values = np.asarray(data.values)
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
     found = mahalanobis_outliers(values, data.row_ids)
     correlations = item_correlations(values, data.items, saturated)
-    return {"outliers": found.to_dict() if found else None, "correlations": correlations}
+    return {"outliers": found.to_dict() if found else None, "correlations": correlations,
+            "repeated_ids": repeated_ids(data.row_ids, study.data.id_column)}
 
 
 def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:

@@ -33,6 +33,18 @@ def _user(number, line, present: bool, where: str, add: str) -> dict:
                 where if present else f"add {add} to the model file")
 
 
+def _clustering_row(report: dict, design: str) -> dict:
+    """Line 8, which names the repeated ids of the id column, if any."""
+    row = _user(8, "Clustered or non-independent answers and how they were handled",
+                _about(report, "clustering"), design, "‘about: clustering:’")
+    repeats = report["data"].get("repeated_ids")
+    if repeats:
+        row["where"] += (f"; the id column ‘{repeats['column']}’ repeats "
+                         f"{repeats['n_ids_repeated']} id{'s' if repeats['n_ids_repeated'] > 1 else ''}"
+                         " (section ‘The data’)")
+    return row
+
+
 def _names(names) -> str:
     quoted = [f"‘{n}’" for n in names]
     return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
@@ -95,8 +107,7 @@ def checklist_rows(report: dict) -> list[dict]:
              f"{design}; methods paragraph" if _about(report, "response_format")
              else "the estimator is named in the methods paragraph; add ‘about: "
                   "response_format:’ to the model file"),
-        _user(8, "Clustered or non-independent answers and how they were handled",
-              _about(report, "clustering"), design, "‘about: clustering:’"),
+        _clustering_row(report, design),
         _row(9, "Missing answers: amount, patterns, mechanism, handling",
              SHOWN if missing else PARTLY,
              "section ‘The data’: missing answers per item, the most frequent patterns, "

@@ -309,6 +309,10 @@ def _data(doc: Document) -> None:
         sentence = narrative.little_sentence(r)
         if sentence:
             s.p(sentence)
+    repeats = data.get("repeated_ids")
+    if repeats:
+        s.h3("Repeated ids")
+        s.p(repeats["note"])
     outliers = data.get("outliers")
     if outliers:
         s.h3("Rows far from the others")
