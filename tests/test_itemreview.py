@@ -27,7 +27,8 @@ from scalewright.evaluate import evaluate_normal
 from scalewright.hints import score_tests
 from scalewright.itemdata import read_items
 from scalewright.itemreview import (CROSS, MANY_REMOVED, PAIR, WEAK, Settings, quality_keys,
-                                    refinement_path, review_items, without_item)
+                                    refinement_path, removal_limit, review_items,
+                                    without_item)
 from scalewright.studyfile import load_study
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
@@ -318,6 +319,24 @@ def test_refinement_says_when_the_structure_rather_than_items_misfits():
     weak = refinement_path(make_spec(constructs), _population(4, weak=2)[0])
     assert len(weak.steps) == 2 and weak.structure_note is None
     assert weak.to_dict()["structure_note"] is None
+
+
+def test_refinement_stops_once_a_quarter_of_the_items_and_five_are_gone():
+    # simulated from a known model: four constructs (r = .3) of six items forced onto
+    # one; every item is flagged, and reaching a model without flags would remove most
+    # of three constructs.  The path stops at removal_limit(24) = 7 removals with the
+    # structure note; the limit itself is a judgement call (module docstring)
+    assert [removal_limit(n) for n in (8, 20, 24, 100, 200)] == [5, 6, 7, 26, 51]
+    rng = np.random.default_rng(11)
+    lam = np.kron(np.eye(4), np.full((6, 1), 0.7))
+    phi = np.full((4, 4), 0.3) + 0.7 * np.eye(4)
+    x, _ = simulate_cfa(rng, lam, phi, N)
+    items = tuple(f"i{k + 1}" for k in range(24))
+    path = refinement_path(make_spec({"everything": items}), x)
+    assert len(path.steps) - 1 == 7
+    assert path.stopped.startswith("Stopped after removing 7 of the model's 24 items, more "
+                                   "than a quarter, with ")
+    assert path.structure_note.startswith("The path removes 7 of the model's 24 items (29%)")
 
 
 def test_refinement_respects_max_steps():

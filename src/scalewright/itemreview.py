@@ -25,10 +25,15 @@ The refinement path refits the model without each flagged item in turn and
 keeps the removal that improves both fit (CFI) and the reliability (Cronbach's
 alpha) of the item's construct the most; when no removal improves both, the
 one that improves fit most, else reliability most.  It repeats until no item
-is flagged, no removal improves either, or every flagged item sits in a
-construct with three items: a construct measured by fewer than three items is
-not identified on its own (three-indicator rule, Bollen 1989, ch. 7).  The
-path is a suggestion; the model is never changed.
+is flagged, no removal improves either, every flagged item sits in a
+construct with three items (a construct measured by fewer than three items is
+not identified on its own: three-indicator rule, Bollen 1989, ch. 7), or it
+has removed more than a quarter of the model's items and at least five
+(:func:`removal_limit`).  So many removals say that the structure misfits
+(items of distinct constructs forced onto one, say), which no shortening
+repairs; going on would only spend the minutes a misfitting 100-item rival
+takes on a path to a model nobody proposed.  The path is a suggestion; the
+model is never changed.
 
 References
 ----------
@@ -40,6 +45,7 @@ tests. Psychometrika 16, 297–334.
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 from functools import cached_property
 from types import SimpleNamespace
@@ -75,6 +81,14 @@ NOTE = (
 #: share of a model's items beyond which the refinement path's removals point to the
 #: structure rather than to single items (a judgement call; no published rule)
 MANY_REMOVED = 0.25
+#: removals the path may always make, however short the scale (a judgement call)
+FEW_REMOVED = 5
+
+
+def removal_limit(n_items: int) -> int:
+    """Removals after which the refinement path stops: more than
+    :data:`MANY_REMOVED` of the items, and at least :data:`FEW_REMOVED`."""
+    return max(FEW_REMOVED, math.floor(MANY_REMOVED * n_items) + 1)
 
 
 @dataclass(frozen=True)
@@ -356,6 +370,13 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
             break
         if not state.review:
             stopped = "No item is flagged."
+            break
+        removed = len(steps) - 1
+        if removed >= removal_limit(len(spec.items)):
+            stopped = (f"Stopped after removing {removed} of the model's {len(spec.items)} "
+                       f"items, more than a quarter, with {len(state.review)} still flagged: "
+                       "so many removals point to the structure rather than to single items, "
+                       "and shortening further would not repair it.")
             break
         removable = [r for r in state.review if _room(state.spec, r.item)]
         if not removable:
