@@ -381,3 +381,51 @@ def test_refinement_path_refits_an_ordinal_model_by_dwls(tmp_path):
                               reduced.items, (1, 5), False)
     assert_allclose([steps[1]["fit"]["chi_square"], steps[1]["fit"]["cfi"]],
                     [direct.fit.chi_square, direct.fit.cfi], rtol=1e-8)
+
+
+def _fit_numbers(result):
+    f = result.fit
+    return np.array([f.chi_square, f.cfi, f.tli, f.rmsea, f.srmr, *result.estimate.theta,
+                     *result.estimate.se])
+
+
+def test_refits_read_off_the_larger_models_moments_match_a_fresh_estimation(answers):
+    # theory (two-step estimation: each threshold from its item's margin, each
+    # polychoric correlation from its own pair's table and its influence from its own
+    # items) makes the subset of the moments equal to a fresh estimation on the same
+    # rows; compared with that fresh estimation, rounding only.  Missing answers
+    # included; the three empty rows are dropped by both.
+    from scalewright.evaluate_ordinal import refit_ordinal
+    from scalewright.itemreview import without_item
+    spec = make_spec({"A": ITEMS[:4], "B": ITEMS[4:]})
+    full = evaluate_ordinal(spec, answers, ITEMS, scales=(1, 5))
+    for item in ("q1", "q7"):
+        reduced = without_item(spec, item)
+        columns = [ITEMS.index(i) for i in reduced.items]
+        fresh = evaluate_ordinal(reduced, answers[:, columns], reduced.items, scales=(1, 5))
+        read_off = refit_ordinal(reduced, full.fitted.moments, answers[:, columns],
+                                 reduced.items, (1, 5))
+        assert_allclose(_fit_numbers(read_off), _fit_numbers(fresh), rtol=1e-9, atol=1e-12)
+        moments, again = read_off.fitted.moments, fresh.fitted.moments
+        assert moments.items == again.items and moments.n_rows == again.n_rows
+        assert_allclose(moments.acov, again.acov, rtol=1e-12, atol=1e-15)
+        assert_allclose(moments.raw_correlations, again.raw_correlations, rtol=1e-12)
+        assert all(np.array_equal(a, b) for a, b in zip(moments.thresholds, again.thresholds))
+        assert np.array_equal(moments.codes, again.codes)
+        assert np.array_equal(moments.n_pairs, again.n_pairs)
+
+
+def test_a_row_that_answered_only_the_dropped_item_sends_the_refit_to_a_fresh_estimation():
+    # the subset is exact only on the same rows: a row whose one answer is to the
+    # dropped item leaves the reduced model's rows, so the moments are re-estimated
+    from scalewright.evaluate_ordinal import refit_ordinal
+    from scalewright.itemreview import without_item
+    x = _answers(np.random.default_rng(31), 500, missing=0.0)
+    x[0, 1:] = np.nan                                   # row 1 answers q1 only
+    spec = make_spec({"A": ITEMS[:4], "B": ITEMS[4:]})
+    full = evaluate_ordinal(spec, x, ITEMS, scales=(1, 5))
+    reduced = without_item(spec, "q1")
+    fresh = evaluate_ordinal(reduced, x[:, 1:], reduced.items, scales=(1, 5))
+    refit = refit_ordinal(reduced, full.fitted.moments, x[:, 1:], reduced.items, (1, 5))
+    assert full.fitted.moments.n_rows == 500 and refit.fitted.moments.n_rows == 499
+    assert_allclose(_fit_numbers(refit), _fit_numbers(fresh), rtol=1e-12)

@@ -451,3 +451,29 @@ def test_summary_dict_survives_a_json_round_trip(four_items):
     assert summary["items"] == ["a", "b", "c", "d"]
     assert_allclose(summary["correlations"], moments.correlations, rtol=0, atol=0)
     assert len(summary["correlation_se"]) == 6
+
+
+def test_subset_of_the_moments_equals_a_fresh_estimation_with_merged_categories():
+    # two-step estimation: thresholds from margins, each correlation and its influence
+    # from its own pair, so a subset equals ordinal_moments on those columns (rounding
+    # only); the merge notes of dropped items go, those of kept items stay, and the
+    # subset is in the order asked for
+    rng = np.random.default_rng(12)
+    corr = np.full((5, 5), 0.45) + 0.55 * np.eye(5)
+    cuts = [np.array([-2.9, -0.5, 0.6])] * 2 + [np.array([-1.0, 0.2, 2.9])] * 3
+    x = _sample(rng, corr, cuts, 700, missing=0.04)
+    items = ("q1", "q2", "q3", "q4", "q5")
+    full = ordinal_moments(x, items, collapse_sparse=True)
+    keep = ("q5", "q2", "q4")
+    fresh = ordinal_moments(x[:, [4, 1, 3]], keep, collapse_sparse=True)
+    part = full.subset(keep)
+    assert part.items == keep and part.n_rows == fresh.n_rows
+    assert_allclose(part.acov, fresh.acov, rtol=1e-12, atol=1e-16)
+    assert_allclose(part.raw_correlations, fresh.raw_correlations, rtol=1e-12)
+    assert_allclose(part.correlations, fresh.correlations, rtol=1e-12)
+    assert all(np.array_equal(a, b) for a, b in zip(part.thresholds, fresh.thresholds))
+    assert np.array_equal(part.codes, fresh.codes) and np.array_equal(part.n_pairs, fresh.n_pairs)
+    assert part.collapse_notes == fresh.collapse_notes
+    named = [n.split("'")[1] for n in full.collapse_notes]        # seeded: 4 of 5 merged
+    assert named == ["q1", "q3", "q4", "q5"]
+    assert [n.split("'")[1] for n in part.collapse_notes] == [i for i in keep if i in named]

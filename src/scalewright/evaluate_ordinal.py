@@ -205,6 +205,27 @@ def evaluate_ordinal(spec, data_values: np.ndarray, items: Sequence[str],
         lambda *fitted: {"reliability_ordinal": ordinal_reliability(*fitted)})
 
 
+def refit_ordinal(spec, moments: OrdinalMoments, data_values: np.ndarray, items: Sequence[str],
+                  scales: Mapping[str, tuple] | tuple | None = None,
+                  collapse_sparse: bool = False) -> ModelResult:
+    """The DWLS fit of ``spec``, a model on some of the items of ``moments``
+    (the larger model's, from :func:`evaluate_ordinal` on ``data_values``),
+    for the refits of the refinement path: its fit, estimates and warnings,
+    without the reliability and report keys of :func:`evaluate_ordinal`.
+
+    The moments are read off the larger model's
+    (:meth:`~scalewright.estimate.polychoric.OrdinalMoments.subset`), which is
+    exact on the same rows; when some row answered none of ``spec``'s items,
+    the rows differ and the moments are estimated afresh."""
+    columns = [tuple(items).index(it) for it in spec.items]
+    answering = int((~np.isnan(np.asarray(data_values, dtype=float)[:, columns])).any(axis=1).sum())
+    if answering != moments.n_rows:
+        return evaluate_ordinal(spec, data_values, items, scales, collapse_sparse)
+    with one_blas_thread():
+        subset = moments.subset(spec.items)
+    return dwls_model_result(spec, subset, "dwls", ORDINAL_DWLS, {}, lambda *fitted: {})
+
+
 def dwls_model_result(spec, moments, estimator: str, method: str, extra: dict,
                       reliability) -> ModelResult:
     """Fit ``spec`` by DWLS to ``moments`` (ordinal or mixed: thresholds,

@@ -180,6 +180,52 @@ class OrdinalMoments(ThresholdCorrelationBlocks):
     smoothing_note: str
     collapse_notes: tuple[str, ...]
 
+    def subset(self, keep) -> "OrdinalMoments":
+        """These moments restricted to the items ``keep`` (in that order).
+
+        Thresholds come from each item's margin and each polychoric
+        correlation from its own pair's table (two-step estimation), and each
+        estimate's casewise influence involves only its own items, so the
+        subset is what :func:`ordinal_moments` gives for those items on the
+        same rows: the same estimates and the corresponding block of
+        ``acov``.  Only the smoothing, which reads the whole matrix, is redone.
+        The rows are these moments' ``n_rows``; :func:`ordinal_moments` on the
+        subset's columns agrees when every row answers at least one item of
+        ``keep`` (a row answering none is dropped before estimation), which
+        the caller checks."""
+        keep = tuple(keep)
+        where = np.array([self.items.index(it) for it in keep], dtype=np.intp)
+        p_old, p = len(self.items), len(keep)
+        pair_position = np.zeros((p_old, p_old), dtype=np.intp)
+        jj_old, ll_old = np.triu_indices(p_old, 1)
+        pair_position[jj_old, ll_old] = self.n_thresholds + np.arange(jj_old.size)
+        jj, ll = np.triu_indices(p, 1)
+        pairs = pair_position[np.minimum(where[jj], where[ll]), np.maximum(where[jj], where[ll])]
+        slices = self.threshold_slices
+        position = np.concatenate(
+            [np.arange(slices[j].start, slices[j].stop, dtype=np.intp) for j in where] + [pairs])
+        raw = self.raw_correlations[np.ix_(where, where)]
+        smoothed_corr, note = smooth_correlations(raw, keep)
+        if note:
+            warnings.warn(note, ScalewrightWarning, stacklevel=2)
+        return OrdinalMoments(
+            items=keep,
+            categories=tuple(self.categories[j] for j in where),
+            codes=self.codes[:, where],
+            thresholds=tuple(self.thresholds[j] for j in where),
+            correlations=smoothed_corr,
+            raw_correlations=raw,
+            n_rows=self.n_rows,
+            n_pairs=self.n_pairs[np.ix_(where, where)],
+            acov=self.acov[np.ix_(position, position)],
+            influence=self.influence[:, position],
+            smoothed=bool(note),
+            smoothing_note=note,
+            # one note per merged item, each opening with "Item '<name>':" (collapse_sparse_categories)
+            collapse_notes=tuple(n for it in keep for n in self.collapse_notes
+                                 if n.startswith(f"Item '{it}':")),
+        )
+
     def to_dict(self) -> dict:
         """JSON-able summary (no influence or covariance matrices)."""
         return {
