@@ -375,3 +375,51 @@ def test_report_says_in_the_models_section_why_a_mixed_construct_has_no_reliabil
     section = next(s for s in build_document(report).sections if s.id == "model-1")
     texts = [b["text"] for b in section.blocks if b["type"] == "p"]
     assert report["models"][0]["reliability_notes"][0] in texts
+
+
+# --------------------------------------------------------------------------
+# Refits of the refinement path
+
+
+def _fit_numbers(result):
+    f = result.fit
+    return np.array([f.chi_square, f.cfi, f.tli, f.rmsea, f.srmr, *result.estimate.theta,
+                     *result.estimate.se])
+
+
+def test_mixed_refits_read_off_the_larger_models_moments_match_a_fresh_estimation():
+    # theory: every threshold, mean and SD comes from its own item and every
+    # polychoric, polyserial and Pearson correlation (and its influence) from its own
+    # pair, so on the same rows the subset equals a fresh estimation (rounding only).
+    # Dropping an ordinal item and a continuous one.
+    from scalewright.evaluate_mixed import refit_mixed
+    from scalewright.itemreview import without_item
+    x = _population_sample(np.random.default_rng(43), 600, missing=0.04)
+    continuous = ("c1", "c2", "c3", "c4")
+    full = evaluate_mixed(SPEC, x, ITEMS, continuous, (1, 5))
+    for item in ("o2", "c1"):
+        reduced = without_item(SPEC, item)
+        columns = [ITEMS.index(i) for i in reduced.items]
+        fresh = evaluate_mixed(reduced, x[:, columns], reduced.items, continuous, (1, 5))
+        read_off = refit_mixed(reduced, full.fitted.moments, x[:, columns], reduced.items,
+                               continuous, (1, 5))
+        assert_allclose(_fit_numbers(read_off), _fit_numbers(fresh), rtol=1e-9, atol=1e-12)
+        a, b = read_off.fitted.moments, fresh.fitted.moments
+        assert a.items == b.items and a.ordinal == b.ordinal and a.n_rows == b.n_rows
+        assert_allclose(a.acov, b.acov, rtol=1e-12, atol=1e-15)
+        assert_allclose(a.raw_correlations, b.raw_correlations, rtol=1e-12)
+        assert_allclose(np.r_[a.means, a.sds], np.r_[b.means, b.sds], rtol=1e-12)
+        assert np.array_equal(a.codes, b.codes)
+        assert all(np.array_equal(u, v) for u, v in zip(a.thresholds, b.thresholds))
+    # the last continuous item dropped: the reduced model is ordinal, estimated afresh;
+    # a model of ordinal items only has ordinal moments, whose refits read them off
+    for spec, item in ((make_spec({"A": ("o1", "o2"), "B": ("o3", "o4", "c1")}), "c1"),
+                       (make_spec({"A": ("o1", "o2", "o3", "o4")}), "o1")):
+        larger = evaluate_mixed(spec, x, ITEMS, continuous, (1, 5))
+        reduced = without_item(spec, item)
+        columns = [ITEMS.index(i) for i in reduced.items]
+        read_off = refit_mixed(reduced, larger.fitted.moments, x[:, columns], reduced.items,
+                               continuous, (1, 5))
+        fresh = evaluate_mixed(reduced, x[:, columns], reduced.items, continuous, (1, 5))
+        assert read_off.estimator == fresh.estimator == ORDINAL_DWLS
+        assert_allclose(_fit_numbers(read_off), _fit_numbers(fresh), rtol=1e-9, atol=1e-12)

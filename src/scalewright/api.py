@@ -28,7 +28,7 @@ from scalewright.estimate.fiml import saturated_covariance, saturated_model
 from scalewright.estimate.normal import complete_data_blocks
 from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
-from scalewright.evaluate_mixed import evaluate_mixed
+from scalewright.evaluate_mixed import evaluate_mixed, refit_mixed
 from scalewright.evaluate_ordinal import evaluate_ordinal, refit_ordinal
 from scalewright.evaluate_real import evaluate_answers, fiml_point_estimate, missing_data_summary
 from scalewright.invariance import invariance_keys
@@ -248,13 +248,14 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
             # the DWLS route computes its own start values (``start_from`` unused);
             # the refinement path refits by the model's own route on the same answers
             # (pairwise, categories merged as before), so its steps' fit stays comparable
-            # with step 0; the alphas it reports come from ``complete``.  Ordinal refits
+            # with step 0; the alphas it reports come from ``complete``.  The refits
             # read their moments off the model's (exact on the same rows)
             if choice.estimator == ORDINAL:
                 return refit_ordinal(reduced_spec, model.fitted.moments, x[:, columns],
                                      reduced_spec.items, study.scale, study.collapse_sparse)
-            return evaluate_mixed(reduced_spec, x[:, columns], reduced_spec.items,
-                                  choice.continuous_items, study.scale, study.collapse_sparse)
+            return refit_mixed(reduced_spec, model.fitted.moments, x[:, columns],
+                               reduced_spec.items, choice.continuous_items, study.scale,
+                               study.collapse_sparse)
 
         model.extra.update(quality_keys(model, study, complete, fit=refit))
         return model

@@ -53,9 +53,11 @@ import numpy as np
 
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.mixed import MixedMoments, mixed_moments
+from scalewright.estimate.polychoric import OrdinalMoments
 from scalewright.evaluate_ordinal import (
     dwls_model_result,
     evaluate_ordinal,
+    refit_ordinal,
     rows_left_out,
     sparse_category_notes,
 )
@@ -132,6 +134,29 @@ def evaluate_mixed(spec, data_values: np.ndarray, items: Sequence[str],
         "correlations_mixed": moments.to_dict(),
     }
     return dwls_model_result(spec, moments, "dwls-mixed", MIXED_DWLS, extra, mixed_reliability)
+
+def refit_mixed(spec, moments: MixedMoments, data_values: np.ndarray, items: Sequence[str],
+                continuous_items: Sequence[str], scale: tuple | None = None,
+                collapse_sparse: bool = False) -> ModelResult:
+    """The DWLS fit of ``spec``, a model on some of the items of ``moments``
+    (the larger model's, from :func:`evaluate_mixed` on ``data_values``;
+    ordinal moments when it had no continuous item) for the refits of the
+    refinement path, as
+    :func:`scalewright.evaluate_ordinal.refit_ordinal`: the moments read off
+    the larger model's (:meth:`MixedMoments.subset`, exact on the same rows),
+    no reliability or report keys.  Estimated afresh by :func:`evaluate_mixed`
+    when some row answered none of ``spec``'s items, or when no continuous
+    item is left (the model is then ordinal)."""
+    if isinstance(moments, OrdinalMoments):          # the larger model was ordinal already
+        return refit_ordinal(spec, moments, data_values, items, scale, collapse_sparse)
+    columns = [tuple(items).index(it) for it in spec.items]
+    answering = int((~np.isnan(np.asarray(data_values, dtype=float)[:, columns])).any(axis=1).sum())
+    if answering != moments.n_rows or not set(continuous_items) & set(spec.items):
+        return evaluate_mixed(spec, data_values, items, continuous_items, scale, collapse_sparse)
+    with one_blas_thread():
+        subset = moments.subset(spec.items)
+    return dwls_model_result(spec, subset, "dwls-mixed", MIXED_DWLS, {}, lambda *fitted: {})
+
 
 def _notes(moments: MixedMoments, x: np.ndarray, empty_rows: int) -> list[str]:
     """What the report must say about the mixed route, in sentences."""

@@ -104,6 +104,23 @@ class ThresholdCorrelationBlocks:
         se = np.sqrt(np.diag(self.acov_thresholds))
         return tuple(se[s] for s in self.threshold_slices)
 
+    def subset_positions(self, where: np.ndarray, threshold_index) -> np.ndarray:
+        """Positions in the estimate vector of what a fresh estimation on the
+        items at positions ``where`` (in that order) estimates: their
+        thresholds (``threshold_index[j]``: item ``j``'s entry in
+        ``thresholds``, None for an item without thresholds), then the
+        correlations of their pairs in ``np.triu_indices`` order."""
+        p_old = len(threshold_index)
+        pair_position = np.zeros((p_old, p_old), dtype=np.intp)
+        jj_old, ll_old = np.triu_indices(p_old, 1)
+        pair_position[jj_old, ll_old] = self.n_thresholds + np.arange(jj_old.size)
+        jj, ll = np.triu_indices(len(where), 1)
+        pairs = pair_position[np.minimum(where[jj], where[ll]), np.maximum(where[jj], where[ll])]
+        slices = self.threshold_slices
+        owned = [slices[threshold_index[j]] for j in where if threshold_index[j] is not None]
+        return np.concatenate([np.arange(s.start, s.stop, dtype=np.intp) for s in owned]
+                              + [pairs])
+
     @property
     def dwls_weights(self) -> np.ndarray:
         """Diagonal DWLS weights of the p* correlations: 1 / Var(rho_hat).
@@ -195,15 +212,7 @@ class OrdinalMoments(ThresholdCorrelationBlocks):
         the caller checks."""
         keep = tuple(keep)
         where = np.array([self.items.index(it) for it in keep], dtype=np.intp)
-        p_old, p = len(self.items), len(keep)
-        pair_position = np.zeros((p_old, p_old), dtype=np.intp)
-        jj_old, ll_old = np.triu_indices(p_old, 1)
-        pair_position[jj_old, ll_old] = self.n_thresholds + np.arange(jj_old.size)
-        jj, ll = np.triu_indices(p, 1)
-        pairs = pair_position[np.minimum(where[jj], where[ll]), np.maximum(where[jj], where[ll])]
-        slices = self.threshold_slices
-        position = np.concatenate(
-            [np.arange(slices[j].start, slices[j].stop, dtype=np.intp) for j in where] + [pairs])
+        position = self.subset_positions(where, range(len(self.items)))
         raw = self.raw_correlations[np.ix_(where, where)]
         smoothed_corr, note = smooth_correlations(raw, keep)
         if note:
