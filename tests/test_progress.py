@@ -14,22 +14,11 @@ import pytest
 
 import holzinger as hz
 import scalewright
+from test_reported_numbers import STUDY as STUDY_TEMPLATE
 from scalewright import cli, progress
 
-STUDY = """\
-study: Holzinger and Swineford (1939)
-data:
-  file: hs.csv
-models:
-  three:
-    constructs:
-      visual: [x1, x2, x3]
-      textual: [x4, x5, x6]
-      speed: [x7, x8, x9]
-  one:
-    constructs:
-      general: [x1, x2, x3, x4, x5, x6, x7, x8, x9]
-"""
+#: the three-construct model and a one-construct rival, by normal-theory ML
+STUDY = STUDY_TEMPLATE.format(method="normal")
 
 
 class Terminal(io.StringIO):
