@@ -332,8 +332,8 @@ def test_refinement_stops_once_a_quarter_of_the_items_and_five_are_gone():
     items = tuple(f"i{k + 1}" for k in range(24))
     path = refinement_path(make_spec({"everything": items}), x)
     assert len(path.steps) - 1 == 7
-    assert path.stopped.startswith("Stopped after removing 7 of the model's 24 items, more "
-                                   "than a quarter, with ")
+    assert path.stopped.startswith("Stopped after 7 removals (more than a quarter of the "
+                                   "model's 24 items, and at least five) with ")
     assert path.structure_note.startswith("The path removes 7 of the model's 24 items (29%)")
 
 

@@ -375,10 +375,10 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
             break
         removed = len(steps) - 1
         if removed >= removal_limit(len(spec.items)):
-            stopped = (f"Stopped after removing {removed} of the model's {len(spec.items)} "
-                       f"items, more than a quarter, with {len(state.review)} still flagged: "
-                       "so many removals point to the structure rather than to single items, "
-                       "and shortening further would not repair it.")
+            stopped = (f"Stopped after {removed} removals (more than a quarter of the "
+                       f"model's {len(spec.items)} items, and at least five) with "
+                       f"{len(state.review)} items still flagged: shortening does not repair "
+                       "a structure that misfits.")
             break
         removable = [r for r in state.review if _room(state.spec, r.item)]
         if not removable:
