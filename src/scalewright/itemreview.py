@@ -389,7 +389,7 @@ def refinement_path(spec, x: np.ndarray, settings: Settings = Settings(), *,
             break
         say(f"model '{spec.name}': refinement path, step {len(steps)}: refitting without "
             f"each of {len(removable)} flagged item{'s' if len(removable) > 1 else ''}")
-        trials = [_trial(state, r, x, cov, column, settings, trial_fit or fit)
+        trials = [_trial(state, r, x, cov, column, trial_fit or fit)
                   for r in removable]
         fitted = [t for t in trials if t[1] is not None]
         if not fitted:
@@ -465,7 +465,7 @@ class _Trial:
     reliability: dict
 
 
-def _trial(state: _State, review: ItemReview, x, cov, column, settings, fit):
+def _trial(state: _State, review: ItemReview, x, cov, column, fit):
     """Refit without one item: (review, _Trial or None, why not)."""
     spec = without_item(state.spec, review.item)
     keep = [column[i] for i in spec.items]
