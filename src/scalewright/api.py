@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as _dt
+import functools
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -268,16 +269,12 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     if model.estimate.method.endswith("fiml"):
         saturated = saturated_model(x, spec.items, data.file.name)
     observed = None if saturated is None else saturated[1].cov
-    trial = None
+    # the refinement path refits by the model's route; its trial removals are judged
+    # by their fit alone (``trial=True``: no standard errors or robust corrections)
     if np.isnan(x).any():
-        def refit(reduced_spec, answers, columns, start_from):
+        def refit(reduced_spec, answers, columns, start_from, trial=False):
             return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
-                                    start_from=start_from)
-
-        def trial(reduced_spec, answers, columns, start_from):
-            # a trial removal is judged by its fit alone: no standard errors
-            return evaluate_answers(reduced_spec, answers[:, columns], choice, data.file.name,
-                                    start_from=start_from, trial=True)
+                                    start_from=start_from, trial=trial)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
@@ -291,16 +288,10 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
         # statistics are the moments, so large files are not copied per refit
         moments = complete_data_blocks(x)[0]
 
-        def refit(reduced_spec, answers, columns, start_from):
+        def refit(reduced_spec, answers, columns, start_from, trial=False):
             return evaluate_moments(reduced_spec,
                                     moments_subset(moments, spec.items, reduced_spec.items),
-                                    start_from=start_from)
-
-        def trial(reduced_spec, answers, columns, start_from):
-            # a trial removal is judged by its fit alone: no standard errors
-            return evaluate_moments(reduced_spec,
-                                    moments_subset(moments, spec.items, reduced_spec.items),
-                                    start_from=start_from, trial=True)
+                                    start_from=start_from, trial=trial)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
@@ -308,7 +299,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                                   moments_subset(moments, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
-    model.extra.update(quality_keys(model, study, x, fit=refit, trial_fit=trial,
+    model.extra.update(quality_keys(model, study, x, fit=refit,
+                                    trial_fit=functools.partial(refit, trial=True),
                                     saturated=saturated))
     model.extra.update(scale_quality_keys(model, study, x, estimates=estimates))
     return model

@@ -59,6 +59,7 @@ from scalewright.evaluate_ordinal import (
     evaluate_ordinal,
     refit_ordinal,
     rows_left_out,
+    same_rows,
     sparse_category_notes,
 )
 from scalewright.layout import CONSTRUCT, Layout, Matrices
@@ -149,9 +150,8 @@ def refit_mixed(spec, moments: MixedMoments, data_values: np.ndarray, items: Seq
     item is left (the model is then ordinal)."""
     if isinstance(moments, OrdinalMoments):          # the larger model was ordinal already
         return refit_ordinal(spec, moments, data_values, items, scale, collapse_sparse)
-    columns = [tuple(items).index(it) for it in spec.items]
-    answering = int((~np.isnan(np.asarray(data_values, dtype=float)[:, columns])).any(axis=1).sum())
-    if answering != moments.n_rows or not set(continuous_items) & set(spec.items):
+    if not same_rows(moments, data_values, items, spec.items) or \
+            not set(continuous_items) & set(spec.items):
         return evaluate_mixed(spec, data_values, items, continuous_items, scale, collapse_sparse)
     with one_blas_thread():
         subset = moments.subset(spec.items)

@@ -217,13 +217,22 @@ def refit_ordinal(spec, moments: OrdinalMoments, data_values: np.ndarray, items:
     (:meth:`~scalewright.estimate.polychoric.OrdinalMoments.subset`), which is
     exact on the same rows; when some row answered none of ``spec``'s items,
     the rows differ and the moments are estimated afresh."""
-    columns = [tuple(items).index(it) for it in spec.items]
-    answering = int((~np.isnan(np.asarray(data_values, dtype=float)[:, columns])).any(axis=1).sum())
-    if answering != moments.n_rows:
+    if not same_rows(moments, data_values, items, spec.items):
         return evaluate_ordinal(spec, data_values, items, scales, collapse_sparse)
     with one_blas_thread():
         subset = moments.subset(spec.items)
     return dwls_model_result(spec, subset, "dwls", ORDINAL_DWLS, {}, lambda *fitted: {})
+
+
+def same_rows(moments, data_values: np.ndarray, items: Sequence[str], kept: Sequence[str]
+              ) -> bool:
+    """Whether the rows answering some item of ``kept`` (columns of
+    ``data_values`` named by ``items``) are as many as the rows behind
+    ``moments``, i.e. whether a subset of the moments is exact (no row
+    answered only items that were dropped)."""
+    columns = [tuple(items).index(it) for it in kept]
+    answered = ~np.isnan(np.asarray(data_values, dtype=float)[:, columns])
+    return int(answered.any(axis=1).sum()) == moments.n_rows
 
 
 def dwls_model_result(spec, moments, estimator: str, method: str, extra: dict,

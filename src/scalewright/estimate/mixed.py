@@ -152,31 +152,21 @@ class MixedMoments(ThresholdCorrelationBlocks):
         only the smoothing is redone.  The caller checks that the rows are the
         same (every row answers an item of ``keep``)."""
         keep = tuple(keep)
-        where = np.array([self.items.index(it) for it in keep], dtype=np.intp)
         ordinal = np.array(self.ordinal)
         rank = np.cumsum(ordinal) - 1                       # position among the ordinal items
         c_rank = np.cumsum(~ordinal) - 1                    # … and among the continuous ones
+        parts = self.subset_parts(keep, [int(r) if o else None for r, o in zip(rank, ordinal)],
+                                  MIXED_KIND)
+        where = parts.pop("where")
         kept_ordinal = [int(rank[j]) for j in where if ordinal[j]]
         kept_continuous = [int(c_rank[j]) for j in where if not ordinal[j]]
-        position = self.subset_positions(
-            where, [int(r) if o else None for r, o in zip(rank, ordinal)])
-        raw = self.raw_correlations[np.ix_(where, where)]
-        smoothed_corr, note = smooth_correlations(raw, keep, kind=MIXED_KIND)
-        if note:
-            warnings.warn(note, ScalewrightWarning, stacklevel=2)
         return MixedMoments(
             items=keep, ordinal=tuple(bool(ordinal[j]) for j in where),
             categories=tuple(self.categories[k] for k in kept_ordinal),
             codes=self.codes[:, kept_ordinal],
             thresholds=tuple(self.thresholds[k] for k in kept_ordinal),
             means=self.means[kept_continuous], sds=self.sds[kept_continuous],
-            correlations=smoothed_corr, raw_correlations=raw, n_rows=self.n_rows,
-            n_pairs=self.n_pairs[np.ix_(where, where)],
-            acov=self.acov[np.ix_(position, position)], influence=self.influence[:, position],
-            smoothed=bool(note), smoothing_note=note,
-            # one note per merged item, each opening with "Item '<name>':"
-            collapse_notes=tuple(n for it in keep for n in self.collapse_notes
-                                 if n.startswith(f"Item '{it}':")))
+            n_rows=self.n_rows, **parts)
 
     def to_dict(self) -> dict:
         """JSON-able summary (no influence or covariance matrices)."""

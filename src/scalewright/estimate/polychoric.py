@@ -62,8 +62,8 @@ _MAX_ITER = 100
 
 class ThresholdCorrelationBlocks:
     """The blocks of ``acov`` (thresholds first, then the p* correlations)
-    and what follows from them, for moments with ``thresholds`` and ``acov``
-    attributes: :class:`OrdinalMoments` and
+    and what follows from them, and the shared part of a subset, for the
+    moments of :class:`OrdinalMoments` and
     :class:`scalewright.estimate.mixed.MixedMoments`."""
 
     @property
@@ -104,13 +104,21 @@ class ThresholdCorrelationBlocks:
         se = np.sqrt(np.diag(self.acov_thresholds))
         return tuple(se[s] for s in self.threshold_slices)
 
-    def subset_positions(self, where: np.ndarray, threshold_index) -> np.ndarray:
-        """Positions in the estimate vector of what a fresh estimation on the
-        items at positions ``where`` (in that order) estimates: their
-        thresholds (``threshold_index[j]``: item ``j``'s entry in
-        ``thresholds``, None for an item without thresholds), then the
+    def subset_parts(self, keep: tuple[str, ...], threshold_index, kind: str = "polychoric"
+                     ) -> dict:
+        """What a subset of these moments to the items ``keep`` (in that order)
+        shares between the ordinal and mixed moments (their ``subset``):
+        ``where`` (the kept items' positions), ``acov`` and ``influence``
+        restricted to the kept estimates, the kept ``raw_correlations``, the
+        smoothing redone (``correlations``, ``smoothed``, ``smoothing_note``)
+        and the kept items' ``collapse_notes``, in ``keep`` order.
+
+        ``threshold_index[j]`` is item ``j``'s entry in ``thresholds`` (None
+        for an item without thresholds).  The estimate vector of a fresh
+        estimation on the kept items holds their thresholds, then the
         correlations of their pairs in ``np.triu_indices`` order."""
-        p_old = len(threshold_index)
+        where = np.array([self.items.index(it) for it in keep], dtype=np.intp)
+        p_old = len(self.items)
         pair_position = np.zeros((p_old, p_old), dtype=np.intp)
         jj_old, ll_old = np.triu_indices(p_old, 1)
         pair_position[jj_old, ll_old] = self.n_thresholds + np.arange(jj_old.size)
@@ -118,8 +126,22 @@ class ThresholdCorrelationBlocks:
         pairs = pair_position[np.minimum(where[jj], where[ll]), np.maximum(where[jj], where[ll])]
         slices = self.threshold_slices
         owned = [slices[threshold_index[j]] for j in where if threshold_index[j] is not None]
-        return np.concatenate([np.arange(s.start, s.stop, dtype=np.intp) for s in owned]
-                              + [pairs])
+        position = np.concatenate([np.arange(s.start, s.stop, dtype=np.intp) for s in owned]
+                                  + [pairs])
+        raw = self.raw_correlations[np.ix_(where, where)]
+        smoothed, note = smooth_correlations(raw, keep, kind=kind)
+        if note:
+            warnings.warn(note, ScalewrightWarning, stacklevel=3)
+        return {
+            "where": where, "acov": self.acov[np.ix_(position, position)],
+            "influence": self.influence[:, position], "raw_correlations": raw,
+            "correlations": smoothed, "smoothed": bool(note), "smoothing_note": note,
+            "n_pairs": self.n_pairs[np.ix_(where, where)],
+            # one note per merged item, each opening with "Item '<name>':"
+            # (collapse_sparse_categories)
+            "collapse_notes": tuple(n for it in keep for n in self.collapse_notes
+                                    if n.startswith(f"Item '{it}':")),
+        }
 
     @property
     def dwls_weights(self) -> np.ndarray:
@@ -211,29 +233,12 @@ class OrdinalMoments(ThresholdCorrelationBlocks):
         ``keep`` (a row answering none is dropped before estimation), which
         the caller checks."""
         keep = tuple(keep)
-        where = np.array([self.items.index(it) for it in keep], dtype=np.intp)
-        position = self.subset_positions(where, range(len(self.items)))
-        raw = self.raw_correlations[np.ix_(where, where)]
-        smoothed_corr, note = smooth_correlations(raw, keep)
-        if note:
-            warnings.warn(note, ScalewrightWarning, stacklevel=2)
+        parts = self.subset_parts(keep, range(len(self.items)))
+        where = parts.pop("where")
         return OrdinalMoments(
-            items=keep,
-            categories=tuple(self.categories[j] for j in where),
-            codes=self.codes[:, where],
-            thresholds=tuple(self.thresholds[j] for j in where),
-            correlations=smoothed_corr,
-            raw_correlations=raw,
-            n_rows=self.n_rows,
-            n_pairs=self.n_pairs[np.ix_(where, where)],
-            acov=self.acov[np.ix_(position, position)],
-            influence=self.influence[:, position],
-            smoothed=bool(note),
-            smoothing_note=note,
-            # one note per merged item, each opening with "Item '<name>':" (collapse_sparse_categories)
-            collapse_notes=tuple(n for it in keep for n in self.collapse_notes
-                                 if n.startswith(f"Item '{it}':")),
-        )
+            items=keep, categories=tuple(self.categories[j] for j in where),
+            codes=self.codes[:, where], thresholds=tuple(self.thresholds[j] for j in where),
+            n_rows=self.n_rows, **parts)
 
     def to_dict(self) -> dict:
         """JSON-able summary (no influence or covariance matrices)."""

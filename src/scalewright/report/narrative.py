@@ -13,6 +13,8 @@ from scalewright.report.conventions import (FIT_CUTOFFS, HU_BENTLER, RELIABILITY
                                             RELIABILITY_SOURCE, SALIENCE, shown_fit)
 from scalewright.report.formatting import coef, count, dec, dof, interval, p_equals
 from scalewright.report.references import residual_z_routes
+from scalewright.residuals import (Z_DISTRIBUTION_FREE, Z_DWLS, Z_FIML, Z_NORMAL,
+                                   Z_ROBUST_FIML)
 
 #: how missing answers were handled, in words, by the codes of scalewright.methods
 MISSING_HANDLING = {
@@ -32,15 +34,15 @@ DWLS_DIFFERENCE_WORDS = ("the adjusted difference test applied to the DWLS stati
 
 #: how the z values of each basis divide the residual (scalewright.residuals.Z_BASES), in words
 _Z_ROUTES = (
-    ("normal", "under normal-theory ML the variance of the sample covariance less that of the "
+    (Z_NORMAL, "under normal-theory ML the variance of the sample covariance less that of the "
                "implied one"),
-    ("distribution-free", "under robust ML the distribution-free variance of the residual "
+    (Z_DISTRIBUTION_FREE, "under robust ML the distribution-free variance of the residual "
                           "(Browne, 1984), which does not assume normal answers"),
-    ("dwls", "under DWLS the variance of the residual from the sampling covariance of the "
+    (Z_DWLS, "under DWLS the variance of the residual from the sampling covariance of the "
              "polychoric correlations (Muthén, 1984; Browne, 1984)"),
-    ("fiml", "with missing answers the variance of the saturated model's covariance less that "
+    (Z_FIML, "with missing answers the variance of the saturated model's covariance less that "
              "of the implied one, both estimated by maximum likelihood (Hausman, 1978)"),
-    ("robust-fiml", "under robust full-information ML the variance of the difference from the "
+    (Z_ROBUST_FIML, "under robust full-information ML the variance of the difference from the "
                     "casewise scores of both estimates (Yuan & Bentler, 2000), which does not "
                     "assume normal answers"),
 )

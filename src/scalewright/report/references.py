@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import re
 
+from scalewright.residuals import Z_DISTRIBUTION_FREE, Z_DWLS, Z_FIML, Z_ROBUST_FIML
+
 CITATIONS = {
     "akaike": "Akaike, H. (1974). A new look at the statistical model identification. IEEE "
               "Transactions on Automatic Control, 19, 716–723.",
@@ -219,13 +221,13 @@ def references_used(report: dict) -> list[str]:
     if "validity" in present:
         keys |= {"fornell_larcker", "henseler"}
     z_routes = residual_z_routes(report)
-    if z_routes & {"distribution-free", "dwls"}:
+    if z_routes & {Z_DISTRIBUTION_FREE, Z_DWLS}:
         keys.add("browne1984")
-    if "dwls" in z_routes:
+    if Z_DWLS in z_routes:
         keys.add("muthen")
-    if "fiml" in z_routes:
+    if Z_FIML in z_routes:
         keys.add("hausman")
-    if "robust-fiml" in z_routes:
+    if Z_ROBUST_FIML in z_routes:
         keys.add("yuan_bentler")
     if "modification_hints" in present:
         keys |= {"sorbom", "maccallum", "saris"}
