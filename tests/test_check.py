@@ -165,6 +165,48 @@ def test_cli_text_in_an_item_column_names_column_and_rows(demo_copy):
     assert "cs3" in done.stderr and "n/a-ish" in done.stderr
 
 
+# --------------------------------------------------------------------------- fit only
+
+#: keys of a model that the later issues' stages add (local fit, item review, scale quality)
+LATER_MODEL_KEYS = {"modification_hints", "residual_correlations", "item_review", "refinement",
+                    "reliability", "validity"}
+
+
+def test_fit_only_check_gives_the_same_fit_and_estimates_without_the_later_stages(demo_result):
+    # the fit-only check runs the same stages up to the fit, so every number it gives
+    # is the whole check's, to the last digit (those numbers are checked against outside
+    # references in test_engine, test_fiml and test_indices)
+    whole, quick = demo_result.to_dict(), scalewright.check(MODELS / "teacher-climate.yaml",
+                                                           fit_only=True).to_dict()
+    assert quick["fit_only"] is True and whole["fit_only"] is False
+    assert quick["data"] == whole["data"] and quick["comparison"] == whole["comparison"]
+    for fast, full in zip(quick["models"], whole["models"]):
+        assert LATER_MODEL_KEYS <= set(full)
+        assert not LATER_MODEL_KEYS & set(fast)
+        assert {k: v for k, v in full.items() if k in fast} == fast
+    assert "invariance" in whole and "invariance" not in quick
+
+
+def test_cli_fit_only_says_what_was_left_out_in_the_summary_and_the_checklist(demo_copy,
+                                                                               tmp_path):
+    out = tmp_path / "out"
+    done = run_cli("check", str(demo_copy), "--out", str(out), "--fit-only")
+    assert done.returncode == 0, done.stderr
+    assert "Fit only:" in done.stdout
+    assert json.loads((out / "teacher-climate.json").read_text())["fit_only"] is True
+    page = (out / "teacher-climate.html").read_text()
+    assert "This is a fit-only check" in page
+    assert page.count("left out of this fit-only check") == 4     # checklist lines 19, 27-29
+
+
+def test_cli_fit_only_still_refuses_bad_data_with_exit_2(demo_copy):
+    csv = demo_copy.with_suffix(".csv")
+    csv.write_text(csv.read_text().replace(",primary,1,", ",primary,one,", 1))   # wl1
+    done = run_cli("check", str(demo_copy), "--out", str(demo_copy.parent / "r"), "--fit-only")
+    assert done.returncode == 2 and "Traceback" not in done.stderr
+    assert "wl1" in done.stderr and "'one'" in done.stderr
+
+
 def test_output_never_overwrites_a_file_the_user_owns(demo_copy, tmp_path):
     out = tmp_path / "r"
     out.mkdir()

@@ -61,6 +61,7 @@ class CheckResult:
     missing: dict = field(default_factory=dict)   # patterns, per-item rates, Little's test
     method: object = None                          # the MethodChoice
     data_checks: dict = field(default_factory=dict)  # outliers, item correlations
+    fit_only: bool = False            # check(..., fit_only=True): no local fit or scale quality
 
     def model(self, name: str) -> ModelResult:
         for m in self.models:
@@ -81,6 +82,7 @@ class CheckResult:
                            "treat_as": s.treat_as} for s in study.items.values()],
                 "scale": list(study.scale) if study.scale else None,
                 "missing_codes": [_plain(c) for c in study.data.missing],
+                "group_column": study.groups.column if study.groups else None,
             },
             "data": {
                 "file": study.data.file.name,
@@ -93,6 +95,7 @@ class CheckResult:
                 "screening": self.screening.to_dict(),
             },
             "models": [m.to_dict() for m in self.models],
+            "fit_only": self.fit_only,
         }
         out["data"].update(self.data_checks)
         out.update(self.extra)
@@ -115,7 +118,8 @@ def _plain(value):
     return value
 
 
-def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
+def check(path: str | Path, out: str | Path | None = None, *,
+          fit_only: bool = False) -> CheckResult:
     """Run the whole check of the study in the model file at ``path``.
 
     Reads and validates the model file and the data, screens the items,
@@ -125,6 +129,14 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     groups when the study has a grouping column.  When ``out`` is given,
     writes ``<out>/<model-file stem>.json`` and ``.html`` (see
     :func:`scalewright.output.write_outputs`).
+
+    ``fit_only=True`` stops after the fit: every model is fitted with its fit
+    indices, estimates and warnings and the rivals are compared, but local
+    fit (modification hints, residual correlations), the item review and its
+    refinement path, scale quality (reliability, validity) and invariance
+    are left out, and the JSON says ``"fit_only": true``.  A first look
+    while the model file is being written: the refits behind the item review
+    and "omega if dropped" are most of a complete check's time.
     """
     study = load_study(path)
     if out is not None:
@@ -133,7 +145,7 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     # BLAS made even the 100-item covariance check 40-70x slower under load (measured;
     # DEVELOPERS.md, "Speed")
     with one_blas_thread():
-        result = _checked(study)
+        result = _checked(study, fit_only)
     for model in result.models:
         for category, text in classified_warnings(model.estimate, model.std):
             warnings.warn(f"model '{model.name}': {text}", category, stacklevel=2)
@@ -143,7 +155,7 @@ def check(path: str | Path, out: str | Path | None = None) -> CheckResult:
     return result
 
 
-def _checked(study: Study) -> CheckResult:
+def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     """The stages of :func:`check`, from reading the data to the result."""
     say(f"reading '{study.data.file.name}'")
     data = read_items(study)
@@ -155,13 +167,13 @@ def _checked(study: Study) -> CheckResult:
     models = []
     for k, spec in enumerate(study.models, start=1):
         say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
-        models.append(_fit_placed(study, spec, data, rows, choice))
+        models.append(_fit_placed(study, spec, data, rows, choice, fit_only))
     models = tuple(models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models],
                                 {m.name: m.fitted for m in models
                                  if isinstance(m.fitted, DwlsModel)}))
-    if study.groups is not None:
+    if study.groups is not None and not fit_only:
         spec = next((m for m in study.models if m.first), study.models[0])
         say(f"model '{spec.name}': checking invariance across the groups of "
             f"'{study.groups.column}'")
@@ -170,7 +182,8 @@ def _checked(study: Study) -> CheckResult:
                else "incomplete answers": int(data.n_rows - n_used)}
     return CheckResult(study, data, screening, models, n_used, dropped,
                        _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-                       extra, missing_data_summary(data), choice, _reanalysis_keys(study, data, choice))
+                       extra, missing_data_summary(data), choice, _reanalysis_keys(study, data, choice),
+                       fit_only)
 
 
 def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
@@ -218,19 +231,22 @@ def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
     return rows
 
 
-def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:
+def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
+                fit_only: bool) -> ModelResult:
     """:func:`_fit_model`; a problem the estimation core finds (it knows no files)
     is said at the model's place in the model file."""
     try:
-        return _fit_model(study, spec, data, rows, choice)
+        return _fit_model(study, spec, data, rows, choice, fit_only)
     except StudyError as exc:
         if str(exc).startswith((study.path.name, data.file.name)):
             raise
         raise StudyError(f"{spec.place}: in model '{spec.name}': {exc}") from None
 
 
-def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> ModelResult:
-    """One rival model by the chosen method, with its local-fit and scale-quality keys."""
+def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
+               fit_only: bool) -> ModelResult:
+    """One rival model by the chosen method, with its local-fit and scale-quality
+    keys unless ``fit_only``."""
     columns = [data.items.index(i) for i in spec.items]
     values = np.asarray(data.values)
     if rows.all() and columns == list(range(values.shape[1])):
@@ -242,6 +258,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
                  if choice.estimator == ORDINAL else
                  evaluate_mixed(spec, x, spec.items, choice.continuous_items, study.scale,
                                 study.collapse_sparse))
+        if fit_only:
+            return model
         analysed = _merged_sparse_categories(study, spec, choice, x)
         complete = analysed[~np.isnan(analysed).any(axis=1)]
 
@@ -265,6 +283,8 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice) -> 
     _check_sample_covariance(spec, np.cov(complete, rowvar=False) if len(complete) > len(columns)
                              else saturated_covariance(x, spec.items, data.file.name))
     model = evaluate_answers(spec, x, choice, data.file.name)
+    if fit_only:
+        return model
     saturated = None
     if model.estimate.method.endswith("fiml"):
         saturated = saturated_model(x, spec.items, data.file.name)

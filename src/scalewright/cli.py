@@ -39,6 +39,9 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("--tables", metavar="TABLES_DIR", type=Path, default=None,
                        help="also write every table of the report as CSV and Markdown into "
                             "TABLES_DIR")
+    check.add_argument("--fit-only", action="store_true",
+                       help="fit and compare the models only: no local fit, item review, "
+                            "reliability or invariance (a quick first look)")
 
     init = commands.add_parser(
         "init", help="draft a model file from a data file's columns",
@@ -62,7 +65,7 @@ def _run(args) -> int:
         if args.tables is not None:       # refused before the models are fitted
             from scalewright.report.tables import check_tables_folder
             check_tables_folder(args.tables)
-        result = api.check(args.model_file, out=args.out)
+        result = api.check(args.model_file, out=args.out, fit_only=args.fit_only)
         _summarise(result, args.out)
         _extras(result, args)
         _refuse_non_convergence(result, args.out)
@@ -118,6 +121,8 @@ def _summarise(result, out: Path) -> None:
         state = "" if m.converged else "  (did not converge)"
         print(f"  {m.name:<24} chi2 = {f.chi_square:.2f} on {f.df} df, CFI = {f.cfi:.3f}, "
               f"RMSEA = {f.rmsea:.3f}, SRMR = {f.srmr:.3f}{state}")
+    if result.fit_only:
+        print("Fit only: local fit, item review, reliability and invariance were not examined.")
     print(f"Report: {out / (stem + '.html')}   Data: {out / (stem + '.json')}")
 
 

@@ -50,7 +50,13 @@ def _names(names) -> str:
     return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
 
 
-def _local_fit_row(models: list, per_model: str) -> dict:
+def _not_run(report: dict) -> str:
+    """Where a line points when its statistics were not computed."""
+    return ("left out of this fit-only check: check again without --fit-only"
+            if report.get("fit_only") else "not computed in this run")
+
+
+def _local_fit_row(models: list, per_model: str, not_run: str) -> dict:
     """Line 19: shown for the models whose residual correlations were computed
     (a model's entry says ``not_computed`` with the reason otherwise)."""
     line = "Local fit: residual correlations, the largest flagged"
@@ -58,7 +64,7 @@ def _local_fit_row(models: list, per_model: str) -> dict:
                                                                  or {})]
     without = [m["name"] for m in models if m["name"] not in with_residuals]
     if not with_residuals:
-        return _row(19, line, NOT_COMPUTED, "not computed in this run")
+        return _row(19, line, NOT_COMPUTED, not_run)
     if not without:
         return _row(19, line, SHOWN, per_model)
     return _row(19, line, PARTLY, f"sections of {_names(with_residuals)}; not computed for "
@@ -83,6 +89,7 @@ def checklist_rows(report: dict) -> list[dict]:
     mixed = [m["name"] for m in models if m.get("correlations_mixed")]
     by_kind = bool(keys & {"reliability_ordinal", "reliability_continuous"})
     reasons = (report.get("method") or {}).get("reasons")
+    not_run = _not_run(report)
     out = [
         _user(1, "Rationale for the proposed structure", rationale, design,
               "‘about: rationale:’ (or ‘rationale:’ under a model)"),
@@ -144,7 +151,7 @@ def checklist_rows(report: dict) -> list[dict]:
              "section ‘Summary’: CFI, TLI, RMSEA [90% CI], SRMR"),
         _row(18, "Cutoffs used, with their source, for every model", SHOWN,
              "note under the summary table"),
-        _local_fit_row(models, per_model),
+        _local_fit_row(models, per_model, not_run),
         _row(20, "Loadings unstandardized with SE and standardized", SHOWN, per_model),
         _row(21, "Residual variances and R² per item", SHOWN, per_model),
         _row(22, "Construct variances, covariances and correlations with SE", SHOWN,
@@ -172,14 +179,15 @@ def checklist_rows(report: dict) -> list[dict]:
              if "reliability" in keys else
              f"{per_model}: ordinal alpha and categorical omega, or alpha and omega of the "
              "standardized items, by the kind of each construct's items; no intervals"
-             if by_kind else "not computed in this run"),
+             if by_kind else not_run),
         _row(28, "Evidence that subscales are distinct",
              SHOWN if "validity" in keys else NOT_COMPUTED,
              f"{per_model}: AVE, Fornell–Larcker comparison and HTMT" if "validity" in keys
-             else "not computed in this run"),
+             else not_run),
         _row(29, "Measurement invariance across groups that will be compared",
              SHOWN if report.get("invariance") else NOT_COMPUTED,
              "section ‘Measurement invariance’" if report.get("invariance")
+             else not_run if (report.get("study") or {}).get("group_column")
              else "not computed in this run"),
         _row(30, "A summary sentence fit for an abstract", SHOWN, "section ‘Summary’"),
     ]

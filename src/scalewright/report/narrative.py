@@ -334,9 +334,19 @@ def _sample_sentence(report: dict) -> str:
                         else "") + f". Missing answers: {missing_handling(report)}.")
 
 
+#: what a fit-only check (``check(..., fit_only=True)``, ``--fit-only``) leaves out
+FIT_ONLY_NOTE = (
+    "This is a fit-only check: every model was fitted and compared, but local fit (residual "
+    "correlations, modification hints), the item review, reliability, the distinctness of "
+    "the constructs and measurement invariance were not examined. Check the model file again "
+    "without --fit-only before drawing conclusions about the scales.")
+
+
 def summary_paragraphs(report: dict) -> list[str]:
     """The plain-language summary, one paragraph per string."""
     out = [_sample_sentence(report)]
+    if report.get("fit_only"):
+        out.append(FIT_ONLY_NOTE)
     fav = favoured(report)
     model = _models(report).get(fav["focus"], {})
     for paragraph in (_comparison_paragraph(report, fav), _focus_paragraph(report, fav),
