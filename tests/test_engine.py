@@ -137,7 +137,7 @@ def test_correlation_se_is_invariant_to_the_scaling(hs_x):
     for row in rows:
         value, se = direct[frozenset((row["a"], row["b"]))]
         assert_allclose(row["estimate"], value, rtol=1e-6)
-        assert_allclose(row["se"], se, rtol=1e-4)    # central differences, step 1e-6
+        assert_allclose(row["se"], se, rtol=1e-6)    # exact Jacobian (modelresult._correlation_se)
 
 
 def test_cross_loading_and_residual_covariance_match_semopy(hs_data, hs_x):

@@ -73,6 +73,32 @@ def write_csv(tmp_path, frame: pd.DataFrame, name: str = "answers.csv", **kwargs
 
 # --------------------------------------------------------------------------- reading
 
+@pytest.mark.parametrize("name, text", [
+    ("bom.csv", "\ufeffpid,q1,q2,q3,q4\n1,1,2,3,4\n"),
+    ("quoted.csv", 'pid,"q1",q2,"a, b",q3,q4\n1,1,2,x,3,4\n'),
+    ("blank-first.csv", "\n\npid,q1,q2,q3,q4\n1,1,2,3,4\n"),
+    ("unnamed.csv", "pid,,q1,q2,q3,q4,\n1,7,1,2,3,4,9\n"),
+    ("spaces.csv", "pid, q1,q2 ,q3,q4\n1,1,2,3,4\n"),
+    ("tabs.tsv", "pid\tq1\tq2\tq3\tq4\n1\t1\t2\t3\t4\n"),
+    ("semicolons.txt", "pid;q1;q2;q3;q4\n1;1;2;3;4\n2;2;3;4;5\n"),
+])
+def test_text_header_names_the_columns_as_the_pandas_reader_does(tmp_path, name, text):
+    # the header is read by the csv module (fast); outside reference: pandas' own
+    # reader of the same file (names written twice are compared elsewhere: pandas
+    # renames them, the repeated-name check reads them as written)
+    from scalewright.itemdata import _Source
+    (tmp_path / name).write_text(text, encoding="utf-8")
+    sep = {"csv": ",", "tsv": "\t", "txt": ";"}[name.rsplit(".", 1)[1]]
+    reference = [str(c) for c in pd.read_csv(tmp_path / name, sep=sep, nrows=0).columns]
+    assert list(_Source(study_for(tmp_path, name)).columns()) == reference
+
+
+def test_a_header_with_a_nul_byte_gets_a_message_not_a_crash(tmp_path):
+    (tmp_path / "answers.csv").write_bytes(b"pid,q1\x00,q2,q3,q4\n1,1,2,3,4\n")
+    with pytest.raises(StudyError, match=r"the item 'q1' .* is not a column"):
+        read_items(study_for(tmp_path, "answers.csv"))
+
+
 def test_csv_values_have_missing_codes_and_reverse_keying_applied(tmp_path):
     frame = answers()
     data = read_items(study_for(tmp_path, write_csv(tmp_path, frame)))

@@ -150,8 +150,11 @@ def correlation_rows(est: Estimate) -> list[dict]:
 
     values = correlations(est.theta)
     pattern = layout.patterns[0]        # the latent covariances depend on B and Ψ alone
-    ses = delta_method_se(est.theta, est.acov, correlations,
-                          np.union1d(pattern.paths.params, pattern.disturbances.params))
+    if len(pattern.paths) or pattern.fixed.paths.any():
+        ses = delta_method_se(est.theta, est.acov, correlations,
+                              np.union1d(pattern.paths.params, pattern.disturbances.params))
+    else:
+        ses = _correlation_se(est, phi, rows_idx, cols_idx)
     out = []
     for (j, k), r, s in zip(pairs, values, ses):
         z, p = _z_and_p(r, s)
@@ -159,6 +162,36 @@ def correlation_rows(est: Estimate) -> list[dict]:
                     "se": _num(s), "z": z, "p_value": p,
                     "covariance": float(phi[j, k])})
     return out
+
+
+def _correlation_se(est: Estimate, psi: np.ndarray, rows: np.ndarray,
+                    cols: np.ndarray) -> np.ndarray:
+    """Delta-method standard errors of the correlations ``r = ψ_jk / √(ψ_jj ψ_kk)``
+    of latent variables without paths (``B = 0``, so their covariance is Ψ),
+    from the exact Jacobian
+
+        ∂r/∂ψ_jk = 1/√(ψ_jj ψ_kk),   ∂r/∂ψ_jj = −r/(2ψ_jj),   ∂r/∂ψ_kk = −r/(2ψ_kk),
+
+    summed over the cells a parameter fills; a fixed cell contributes
+    nothing (the delta method, Var r ≈ J acov Jᵀ; Oehlert 1992)."""
+    if est.acov is None:
+        return np.full(len(rows), np.nan)
+    cells = est.layout.patterns[0].disturbances
+    param_of = {}
+    for r, c, k in zip(cells.rows, cells.cols, cells.params):
+        param_of[(r, c)] = param_of[(c, r)] = k
+    d = np.sqrt(np.abs(np.diag(psi)))
+    r = psi[rows, cols] / (d[rows] * d[cols])
+    jac = np.zeros((len(rows), len(est.theta)))
+    for pair, (j, k) in enumerate(zip(rows, cols)):
+        for cell, slope in (((j, k), 1.0 / (d[j] * d[k])), ((j, j), -r[pair] / (2 * psi[j, j])),
+                            ((k, k), -r[pair] / (2 * psi[k, k]))):
+            if cell in param_of:
+                jac[pair, param_of[cell]] += slope
+    used = np.flatnonzero(jac.any(axis=0))
+    jac = jac[:, used]
+    var = np.einsum("ik,kl,il->i", jac, est.acov[np.ix_(used, used)], jac)
+    return np.sqrt(np.clip(var, 0.0, None))
 
 
 def _structurally_free(layout, j, k) -> bool:

@@ -24,7 +24,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg, special
 
 #: the flagging level: D² beyond the χ²_p quantile at 1 − LEVEL
 LEVEL = 0.001
@@ -73,12 +73,15 @@ def mahalanobis_outliers(values: np.ndarray, row_labels=None) -> Outliers | None
     for start in range(0, n, _CHUNK):
         z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True)
         d2[start:start + _CHUNK] = np.einsum("ij,ij->j", z, z)
-    threshold = float(stats.chi2.isf(LEVEL, p))
+    # the chi-square quantile and tail by scipy.special (what scipy.stats.chi2's isf
+    # and sf call, without their argument handling)
+    threshold = float(special.chdtri(p, LEVEL))
     flagged = np.nonzero(d2 > threshold)[0]
     order = flagged[np.argsort(-d2[flagged])][:LISTED]
     labels = (np.asarray(row_labels) if row_labels is not None else np.arange(1, len(values) + 1))
-    largest = tuple((_plain(labels[index[i]]), float(d2[i]), float(stats.chi2.sf(d2[i], p)))
-                    for i in order)
+    tails = special.chdtrc(p, d2[order])
+    largest = tuple((_plain(labels[index[i]]), float(d2[i]), float(tail))
+                    for i, tail in zip(order, tails))
     return Outliers(n, threshold, int(len(flagged)), largest, p)
 
 
