@@ -93,6 +93,22 @@ def test_text_header_names_the_columns_as_the_pandas_reader_does(tmp_path, name,
     assert list(_Source(study_for(tmp_path, name)).columns()) == reference
 
 
+def test_text_files_read_as_pandas_pyarrow_engine_reads_them(tmp_path):
+    # scalewright calls pyarrow's CSV reader itself (itemdata._read_text); outside
+    # reference: pandas' read_csv with its pyarrow engine on the same file, whose
+    # not-available marks are pandas' na_values default
+    from pandas._libs.parsers import STR_NA_VALUES
+    from scalewright.itemdata import NOT_AVAILABLE, _read_text
+    assert set(NOT_AVAILABLE) == set(STR_NA_VALUES)
+    text = ("id,a,b,c,d,e,f,g,h\nT1,1,2.5,x,,true,NA,,-9\nT2,2,,y,,false,n/a, ,None\n"
+            "T3,3,4,,,True,null,,#N/A\n")
+    (tmp_path / "mixed.csv").write_text(text, encoding="utf-8")
+    columns = list("abcdefgh")
+    ours = _read_text(tmp_path / "mixed.csv", ",", columns)
+    reference = pd.read_csv(tmp_path / "mixed.csv", engine="pyarrow", usecols=columns)
+    pd.testing.assert_frame_equal(ours, reference)
+
+
 def test_a_header_with_a_nul_byte_gets_a_message_not_a_crash(tmp_path):
     (tmp_path / "answers.csv").write_bytes(b"pid,q1\x00,q2,q3,q4\n1,1,2,3,4\n")
     with pytest.raises(StudyError, match=r"the item 'q1' .* is not a column"):

@@ -38,7 +38,7 @@ from scalewright.methods import LISTWISE, MIXED, ORDINAL, ROBUST, choose_method
 from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
-from scalewright.outliers import item_correlations, mahalanobis_outliers
+from scalewright.outliers import complete_rows_covariance, item_correlations, mahalanobis_outliers
 from scalewright.output import check_targets, write_outputs
 from scalewright.progress import say
 from scalewright.repeats import repeated_ids
@@ -206,8 +206,9 @@ def _reanalysis_keys(study: Study, data: ItemData, choice) -> dict:
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
-    found = mahalanobis_outliers(values, data.row_ids)
-    correlations = item_correlations(values, data.items, saturated)
+    complete = complete_rows_covariance(values)
+    found = mahalanobis_outliers(values, data.row_ids, complete)
+    correlations = item_correlations(values, data.items, saturated, complete)
     return {"outliers": found.to_dict() if found else None, "correlations": correlations,
             "repeated_ids": repeated_ids(data.row_ids, study.data.id_column)}
 

@@ -49,22 +49,33 @@ class Outliers:
                 "largest": [{"row": row, "d2": d2, "p_value": p} for row, d2, p in self.largest]}
 
 
-def mahalanobis_outliers(values: np.ndarray, row_labels=None) -> Outliers | None:
+def complete_rows_covariance(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The rows answering every item (their indices), their mean and their
+    covariance (divisor n): what :func:`mahalanobis_outliers` and
+    :func:`item_correlations` both start from, computed once."""
+    index = np.flatnonzero(~np.isnan(values).any(axis=1))
+    if len(index) < 2:                     # no covariance to speak of (and no warnings)
+        p = values.shape[1]
+        return index, np.full(p, np.nan), np.full((p, p), np.nan)
+    x = values[index] if len(index) < len(values) else values
+    return index, x.mean(axis=0), np.cov(x, rowvar=False, bias=True)
+
+
+def mahalanobis_outliers(values: np.ndarray, row_labels=None,
+                         complete: tuple | None = None) -> Outliers | None:
     """Flag rows whose Mahalanobis distance is improbable under normality.
 
     ``values`` is the n × p answer matrix (NaN = missing); rows with a
     missing answer are skipped.  ``row_labels`` names the rows (the id
-    column); 1-based data row numbers are used otherwise.  None when fewer
-    complete rows than p + 2 or a singular covariance.
+    column); 1-based data row numbers are used otherwise; ``complete`` is
+    :func:`complete_rows_covariance` of ``values`` when the caller has it.
+    None when fewer complete rows than p + 2 or a singular covariance.
     """
-    complete = ~np.isnan(values).any(axis=1)
-    index = np.nonzero(complete)[0]
+    index, mean, cov = complete or complete_rows_covariance(values)
     n, p = len(index), values.shape[1]
     if n < p + 2:
         return None
     x = values[index] if len(index) < len(values) else values
-    mean = x.mean(axis=0)
-    cov = np.cov(x, rowvar=False, bias=True)
     try:
         chol = linalg.cholesky(cov, lower=True)
     except linalg.LinAlgError:
@@ -85,14 +96,15 @@ def mahalanobis_outliers(values: np.ndarray, row_labels=None) -> Outliers | None
     return Outliers(n, threshold, int(len(flagged)), largest, p)
 
 
-def item_correlations(values: np.ndarray, items, saturated_cov: np.ndarray | None = None) -> dict:
+def item_correlations(values: np.ndarray, items, saturated_cov: np.ndarray | None = None,
+                      complete: tuple | None = None) -> dict:
     """The item correlation matrix: from ``saturated_cov`` (the EM estimate
-    under missing answers) when given, else from the complete rows."""
+    under missing answers) when given, else from the complete rows
+    (``complete``: their :func:`complete_rows_covariance`, when the caller has it)."""
     if saturated_cov is not None:
         cov, basis = saturated_cov, "maximum-likelihood (EM) estimate using every answer"
     else:
-        complete = values[~np.isnan(values).any(axis=1)]
-        cov, basis = np.cov(complete, rowvar=False, bias=True), "rows answering every item"
+        cov, basis = (complete or complete_rows_covariance(values))[2], "rows answering every item"
     sd = np.sqrt(np.diag(cov))
     corr = cov / np.outer(sd, sd)
     return {"items": list(items), "basis": basis,
