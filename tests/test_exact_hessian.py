@@ -111,6 +111,45 @@ def test_warm_started_refit_reaches_the_cold_fit_solution(hs_x):
             assert_allclose(warm.theta, cold.theta, rtol=0, atol=1e-5)
 
 
+def test_warm_refits_reuse_the_hessian_and_land_on_the_cold_solution(monkeypatch):
+    # theory: chord steps (Newton's direction from a Hessian factored earlier; Kelley
+    # 1995, ch. 5) converge to the same root of the gradient, only linearly; the
+    # optimiser keeps the factor while each step shrinks the gradient four-fold, so on
+    # drop-one refits of a fitting model it computes fewer Hessians than it takes steps
+    from scalewright.evaluate import moments_subset, point_estimate
+    from scalewright.scalequality import without_item
+    constructs = {f"f{k}": tuple(f"i{k}{j}" for j in range(6)) for k in range(5)}
+    loadings = np.kron(np.eye(5), np.linspace(.5, .8, 6)[:, None])
+    phi = np.full((5, 5), .3) + .7 * np.eye(5)
+    x, _ = simulate_cfa(np.random.default_rng(11), loadings, phi, 1500)
+    spec = make_spec(constructs)
+    full_block = complete_data_blocks(x)[0]
+    full = point_estimate(spec, full_block)
+    hessians = []
+    original = NormalFit.value_grad_hessian
+
+    def counted(self, theta):
+        value, grad, hessian = original(self, theta)
+
+        def counting():
+            hessians.append(1)
+            return hessian()
+        return value, grad, counting
+
+    steps = 0
+    for item in ("i00", "i13", "i25", "i31", "i44"):
+        reduced = without_item(spec, item)
+        block = moments_subset(full_block, spec.items, reduced.items)
+        monkeypatch.setattr(NormalFit, "value_grad_hessian", counted)
+        warm = point_estimate(reduced, block, start_from=full)
+        monkeypatch.setattr(NormalFit, "value_grad_hessian", original)
+        cold = point_estimate(reduced, block)
+        assert warm.record.converged and warm.record.gradient_norm < 1e-7
+        assert_allclose(warm.theta, cold.theta, rtol=0, atol=1e-5)
+        steps += warm.record.iterations
+    assert len(hessians) < steps
+
+
 def test_newton_phase_lands_where_fisher_scoring_lands_on_misspecified_models():
     # theory: the ML solution is a property of the data and the model, not of the
     # optimiser; on seeded samples from populations with unmodelled cross-loadings

@@ -18,7 +18,11 @@ search, so the method never does worse than plain Fisher scoring for long.
 Where the objective can give its exact Hessian (normal-theory ML on complete
 data without a mean structure, :mod:`scalewright.estimate.exact_hessian`),
 the steps after a full step are Newton steps, which converge quadratically:
-at 100 items and 10 constructs three iterations instead of six.
+at 100 items and 10 constructs three iterations instead of six.  A warm
+refit (a model one item smaller, started from the larger model's solution)
+keeps the factored Hessian for the next step (a chord step) while each step
+shrinks the gradient at least fourfold, which at 100-200 items saves most
+of its Hessians (each costs about two gradients) for one or two more steps.
 
 References
 ----------
@@ -26,6 +30,8 @@ Jennrich, R. I. & Sampson, P. F. (1976). Newton-Raphson and related
 algorithms for maximum likelihood variance component estimation.
 Technometrics 18, 11–17.
 Nocedal, J. & Wright, S. J. (2006). Numerical Optimization (2nd ed.). Springer.
+Kelley, C. T. (1995). Iterative Methods for Linear and Nonlinear Equations.
+SIAM (ch. 5: Newton's method and the chord method).
 Dennis, J. E., Gay, D. M. & Welsch, R. E. (1981). An adaptive nonlinear
 least-squares algorithm. ACM Transactions on Mathematical Software 7, 348–368.
 """
@@ -38,6 +44,10 @@ from typing import Callable
 import numpy as np
 from scipy import linalg
 
+
+#: a warm refit keeps the Newton step's Hessian (chord steps, Kelley 1995, ch. 5)
+#: while each step shrinks the largest gradient element at least this much
+CHORD_CONTRACTION = 0.25
 
 #: relative size of the rounding error in an objective value: a few hundred
 #: additions of products each off by machine epsilon (common practice, no source)
@@ -96,8 +106,14 @@ def fisher_scoring(theta0: np.ndarray,
                                       "the start values give an implied covariance matrix "
                                       "that is not positive definite")
     correction = _Correction()
+    factor, chord = None, False        # the last Newton step's Hessian factor; reuse it next?
     for iteration in range(1, max_iter + 1):
-        step = None if hessian is None else _solve(hessian(), grad)
+        step = None
+        if hessian is not None:
+            if not chord:
+                factor = _factor(hessian())
+            if factor is not None:
+                step = linalg.cho_solve(factor, grad, check_finite=False)
         if step is None and hessian is not None:   # Hessian not positive definite here
             f, grad, info = value_grad_info(theta)
             correction = _Correction()
@@ -148,6 +164,10 @@ def fisher_scoring(theta0: np.ndarray,
             else:
                 correction = correction.updated(info, s_vec, grad - grad_old)
         gnorm = float(np.max(np.abs(grad))) if grad.size else 0.0
+        # a warm refit reuses the Hessian factor (a chord step) while each step shrinks
+        # the gradient at least CHORD_CONTRACTION-fold; otherwise the Hessian is recomputed
+        chord = (warm and exact is not None and factor is not None
+                 and gnorm <= CHORD_CONTRACTION * float(np.max(np.abs(grad_old))))
         small_step = np.max(np.abs(t * step) / (1.0 + np.abs(theta)), initial=0.0) < step_tol
         if gnorm < grad_tol or (small_step and gnorm < 1e-6):
             return theta, OptimizerRecord(True, iteration, gnorm, f, "converged")
@@ -205,10 +225,16 @@ class _Correction:
 _MAX_TERMS = 32
 
 
-def _solve(matrix: np.ndarray, grad: np.ndarray) -> np.ndarray | None:
-    """``matrix⁻¹ grad`` by Cholesky, or None when the matrix is not positive definite."""
+def _factor(matrix: np.ndarray):
+    """The Cholesky factor of ``matrix`` (``scipy.linalg.cho_factor``), or None
+    when it is not positive definite."""
     try:
-        factor = linalg.cho_factor(matrix, lower=True, check_finite=False)
+        return linalg.cho_factor(matrix, lower=True, check_finite=False)
     except linalg.LinAlgError:
         return None
-    return linalg.cho_solve(factor, grad, check_finite=False)
+
+
+def _solve(matrix: np.ndarray, grad: np.ndarray) -> np.ndarray | None:
+    """``matrix⁻¹ grad`` by Cholesky, or None when the matrix is not positive definite."""
+    factor = _factor(matrix)
+    return None if factor is None else linalg.cho_solve(factor, grad, check_finite=False)
