@@ -474,6 +474,9 @@ def test_subset_of_the_moments_equals_a_fresh_estimation_with_merged_categories(
     assert all(np.array_equal(a, b) for a, b in zip(part.thresholds, fresh.thresholds))
     assert np.array_equal(part.codes, fresh.codes) and np.array_equal(part.n_pairs, fresh.n_pairs)
     assert part.collapse_notes == fresh.collapse_notes
-    named = [n.split("'")[1] for n in full.collapse_notes]        # seeded: 4 of 5 merged
-    assert named == ["q1", "q3", "q4", "q5"]
+    # cut at ±2.9, each item's extreme category expects about 1.3 of 700 answers, so
+    # nearly every item is merged; the draw itself depends on numpy's multivariate
+    # normal sampler, so the test asks only that a dropped and a kept item were merged
+    named = [n.split("'")[1] for n in full.collapse_notes]
+    assert {"q1", "q3"} & set(named) and set(keep) & set(named)
     assert [n.split("'")[1] for n in part.collapse_notes] == [i for i in keep if i in named]
