@@ -100,9 +100,10 @@ def test_text_files_read_as_pandas_pyarrow_engine_reads_them(tmp_path):
     from pandas._libs.parsers import STR_NA_VALUES
     from scalewright.itemdata import NOT_AVAILABLE, _read_text
     assert set(NOT_AVAILABLE) == set(STR_NA_VALUES)
-    text = ("id,a,b,c,d,e,f,g,h\nT1,1,2.5,x,,true,NA,,-9\nT2,2,,y,,false,n/a, ,None\n"
-            "T3,3,4,,,True,null,,#N/A\n")
-    (tmp_path / "mixed.csv").write_text(text, encoding="utf-8")
+    # (a byte-order mark, Windows line ends; the first column is one of those read)
+    text = ("\ufeffa,id,b,c,d,e,f,g,h\r\n1,T1,2.5,x,,true,NA,,-9\r\n2,T2,,y,,false,n/a, ,None\r\n"
+            "3,T3,4,,,True,null,,#N/A\r\n")
+    (tmp_path / "mixed.csv").write_text(text, encoding="utf-8", newline="")
     columns = list("abcdefgh")
     ours = _read_text(tmp_path / "mixed.csv", ",", columns)
     reference = pd.read_csv(tmp_path / "mixed.csv", engine="pyarrow", usecols=columns)

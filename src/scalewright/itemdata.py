@@ -212,8 +212,8 @@ class _Source:
         """The header row of a text file: its first line that is not empty,
         split by the csv module (quotes and a byte-order mark removed, as the
         CSV reader removes them); an empty name becomes 'Unnamed: k' (k from
-        0) and a name written twice is listed once (the repeated-name check
-        reads the header as written).  A few microseconds, where asking the
+        0).  A name written twice is one column in :meth:`columns`; the
+        repeated-name check (:meth:`require`) reads the header as written.  A few microseconds, where asking the
         pandas reader for zero rows took 3-7 ms at 100 columns."""
         with open(self.path, encoding="utf-8-sig", newline="") as handle:
             first = next((row for row in csv.reader(handle, delimiter=self._separator())
