@@ -374,18 +374,23 @@ def test_data_file_that_is_not_utf8_says_how_to_save_it(tmp_path):
 
 
 @pytest.mark.parametrize("suffix", [".csv", ".xlsx"])
-def test_a_column_name_repeated_in_the_header_is_an_error(tmp_path, suffix):
-    # the readers would silently rename the second 'q2' to 'q2.1' and use the first
+@pytest.mark.parametrize("unnamed", [False, True])
+def test_a_column_name_repeated_in_the_header_is_an_error(tmp_path, suffix, unnamed):
+    # the readers would silently rename the second 'q2' to 'q2.1' and use the first;
+    # the columns are counted from the first, also past a column without a name
     frame = answers()
     frame.columns = [*frame.columns[:-1], "q2"]
+    if unnamed:           # an unnamed column first: 'q2' is then in columns 4 and 7
+        frame.insert(0, "", np.arange(len(frame)))
     name = "answers" + suffix
     if suffix == ".csv":
         frame.to_csv(tmp_path / name, index=False)
     else:
         frame.to_excel(tmp_path / name, index=False)
     with pytest.raises(StudyError, match=r"line 2: the column name 'q2' appears 2 times in the "
-                                         rf"header of the data file 'answers\{suffix}' \(columns 3 "
-                                         r"and 6\), so it is not clear which column holds its "
+                                         rf"header of the data file 'answers\{suffix}' \(columns "
+                                         rf"{3 + unnamed} and {6 + unnamed}\), so it is not clear "
+                                         r"which column holds its "
                                          r"answers\. Rename or delete the extra columns"):
         read_items(study_for(tmp_path, name))
 

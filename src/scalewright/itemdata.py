@@ -285,10 +285,16 @@ class _Source:
                   "matches its format and that text files are saved as UTF-8")
 
     def header(self) -> list[str]:
-        """The column names exactly as the file writes them (the readers rename a
-        repeated name, e.g. to 'q1.1'); only text files and workbooks can repeat one."""
+        """The column names exactly as the file writes them, one per column, so
+        that positions count from the first column (the readers rename a
+        repeated name, e.g. to 'q1.1'); only text files and workbooks can
+        repeat one."""
         try:
+            if self.suffix in (".csv", ".tsv", ".txt"):
+                return self._text_header()
             rows = self._leading_rows(1)
+        except pd.errors.EmptyDataError:
+            return []
         except (*READ_ERRORS, csv.Error) as exc:
             self._unreadable(exc)
         return rows[0] if rows else []
@@ -309,16 +315,17 @@ class _Source:
 
     def _leading_rows(self, rows: int) -> list[list[str]]:
         """The first ``rows`` rows of a text file or workbook as written, each
-        the list of its non-empty cells as text (rows may differ in length);
-        nothing for the other formats, whose headers cannot repeat a name."""
+        the list of its cells as text, an empty cell as '' (rows may differ in
+        length); nothing for the other formats, whose headers cannot repeat a
+        name."""
         if self.suffix in (".csv", ".tsv", ".txt"):
             with open(self.path, encoding="utf-8-sig", newline="") as handle:
-                lines = itertools.islice(csv.reader(handle, delimiter=self._separator()), rows)
-                return [[cell for cell in line if cell != ""] for line in lines]
+                return list(itertools.islice(csv.reader(handle, delimiter=self._separator()),
+                                             rows))
         if self.suffix == ".xlsx":
             frame = pd.read_excel(self.path, sheet_name=self._sheet(), header=None, nrows=rows,
                                   dtype=str, engine="openpyxl")
-            return [[str(v) for v in row if not pd.isna(v)] for row in frame.to_numpy()]
+            return [["" if pd.isna(v) else str(v) for v in row] for row in frame.to_numpy()]
         return []
 
     # columns present ---------------------------------------------------------
