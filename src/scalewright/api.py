@@ -26,7 +26,8 @@ from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.dwls import DwlsModel
 from scalewright.estimate.fiml import saturated_covariance, saturated_model
-from scalewright.estimate.normal import complete_data_blocks
+from scalewright.estimate.normal import CompleteRows, complete_data_blocks, complete_rows
+from scalewright.estimate.spd_inverse import cholesky_inverse
 from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
 from scalewright.evaluate_mixed import evaluate_mixed, refit_mixed
@@ -38,7 +39,7 @@ from scalewright.methods import LISTWISE, MIXED, ORDINAL, ROBUST, choose_method
 from scalewright.scalequality import scale_quality_keys
 from scalewright.itemdata import ItemData, read_items
 from scalewright.modelresult import ModelResult
-from scalewright.outliers import complete_rows_covariance, item_correlations, mahalanobis_outliers
+from scalewright.outliers import item_correlations, mahalanobis_outliers
 from scalewright.output import check_targets, write_outputs
 from scalewright.progress import say
 from scalewright.repeats import repeated_ids
@@ -164,10 +165,11 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
+    complete = complete_rows(np.asarray(data.values))
     models = []
     for k, spec in enumerate(study.models, start=1):
         say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
-        models.append(_fit_placed(study, spec, data, rows, choice, fit_only))
+        models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
     models = tuple(models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.to_dict() for m in models],
@@ -182,8 +184,8 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
                else "incomplete answers": int(data.n_rows - n_used)}
     return CheckResult(study, data, screening, models, n_used, dropped,
                        _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-                       extra, missing_data_summary(data), choice, _reanalysis_keys(study, data, choice),
-                       fit_only)
+                       extra, missing_data_summary(data), choice,
+                       _reanalysis_keys(study, data, choice, complete), fit_only)
 
 
 def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
@@ -199,14 +201,14 @@ def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
     return keys
 
 
-def _reanalysis_keys(study: Study, data: ItemData, choice) -> dict:
+def _reanalysis_keys(study: Study, data: ItemData, choice, complete: CompleteRows) -> dict:
     """Outlier screening, the item correlation matrix and repeated ids
-    (reporting checklist lines 11, 12 and 8), under ``data``."""
+    (reporting checklist lines 11, 12 and 8), under ``data``; ``complete``:
+    its complete rows and their moments."""
     values = np.asarray(data.values)
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
-    complete = complete_rows_covariance(values)
     found = mahalanobis_outliers(values, data.row_ids, complete)
     correlations = item_correlations(values, data.items, saturated, complete)
     return {"outliers": found.to_dict() if found else None, "correlations": correlations,
@@ -233,11 +235,11 @@ def _rows_used(study: Study, data: ItemData, choice) -> np.ndarray:
 
 
 def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
-                fit_only: bool) -> ModelResult:
+                complete: CompleteRows, fit_only: bool) -> ModelResult:
     """:func:`_fit_model`; a problem the estimation core finds (it knows no files)
     is said at the model's place in the model file."""
     try:
-        return _fit_model(study, spec, data, rows, choice, fit_only)
+        return _fit_model(study, spec, data, rows, choice, complete, fit_only)
     except StudyError as exc:
         if str(exc).startswith((study.path.name, data.file.name)):
             raise
@@ -245,12 +247,16 @@ def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
 
 
 def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
-               fit_only: bool) -> ModelResult:
+               complete: CompleteRows, fit_only: bool) -> ModelResult:
     """One rival model by the chosen method, with its local-fit and scale-quality
-    keys unless ``fit_only``."""
+    keys unless ``fit_only``.  ``complete`` holds the moments of the rows
+    answering every item: for a model on every item (columns in the data's
+    order) they are the moments of its complete rows, which are not computed
+    again."""
     columns = [data.items.index(i) for i in spec.items]
     values = np.asarray(data.values)
-    if rows.all() and columns == list(range(values.shape[1])):
+    every_item = columns == list(range(values.shape[1]))
+    if rows.all() and every_item:
         x = values                        # no copy of a large file
     else:
         x = values[np.ix_(rows, columns)]
@@ -279,11 +285,14 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
 
         model.extra.update(quality_keys(model, study, complete, fit=refit))
         return model
-    incomplete = np.isnan(x).any(axis=1)
-    complete = x[~incomplete] if incomplete.any() else x
-    _check_sample_covariance(spec, np.cov(complete, rowvar=False) if len(complete) > len(columns)
-                             else saturated_covariance(x, spec.items, data.file.name))
-    model = evaluate_answers(spec, x, choice, data.file.name)
+    shared = complete.moments if every_item else None
+    n_complete = shared.n if every_item else int((~np.isnan(x).any(axis=1)).sum())
+    if n_complete > len(columns):
+        _check_sample_covariance(spec, shared.cov if every_item else
+                                 np.cov(x[~np.isnan(x).any(axis=1)], rowvar=False))
+    else:
+        _check_sample_covariance(spec, saturated_covariance(x, spec.items, data.file.name))
+    model = evaluate_answers(spec, x, choice, data.file.name, moments=shared)
     if fit_only:
         return model
     saturated = None
@@ -350,7 +359,14 @@ def _check_sample_covariance(spec, cov: np.ndarray) -> None:
     items are complete (planned missingness), the saturated model's ML
     covariance (EM), whose reading of the answers refuses items never answered
     together."""
-    values, vectors = np.linalg.eigh(cov / np.outer(np.sqrt(np.diag(cov)), np.sqrt(np.diag(cov))))
+    correlation = cov / np.outer(np.sqrt(np.diag(cov)), np.sqrt(np.diag(cov)))
+    factored = cholesky_inverse(correlation)
+    # λ_min/λ_max ≥ 1/(‖R‖₁‖R⁻¹‖₁) (a norm bounds the spectral radius; Horn & Johnson
+    # 2013, ch. 5), which spares the eigendecomposition of a well-conditioned matrix
+    if factored is not None and np.abs(correlation).sum(axis=0).max() * \
+            np.abs(factored[1]).sum(axis=0).max() < 1e10:
+        return
+    values, vectors = np.linalg.eigh(correlation)
     if values[0] > 1e-10 * values[-1]:
         return
     weights = vectors[:, 0]

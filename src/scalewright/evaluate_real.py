@@ -28,7 +28,7 @@ from scalewright.estimate.fiml import (baseline_yuan_bentler, fiml_information, 
 from scalewright.estimate.mcar import little_mcar
 from scalewright.estimate.result import Estimate, invert_information
 from scalewright.estimate.robust import RobustTest, baseline_test, robust_fit_indices, robust_ml
-from scalewright.estimate.normal import complete_data_blocks
+from scalewright.estimate.normal import Block, complete_data_blocks
 from scalewright.evaluate import NORMAL_ML, POINT_GRAD_TOL, evaluate_moments, fit_from
 from scalewright.indices import FitIndices, ScaledFitIndices, fit_indices
 from scalewright.itemdata import ItemData
@@ -97,11 +97,14 @@ def evaluate_with(spec, data: ItemData, choice: MethodChoice) -> ModelResult:
 
 def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
                      start_from: Estimate | None = None, *,
-                     trial: bool = False) -> ModelResult:
+                     trial: bool = False, moments: Block | None = None) -> ModelResult:
     """:func:`evaluate_with` on the answer matrix of the model's items
     (columns in ``spec.items`` order, NaN = missing); ``where`` names the
     data file in messages; ``start_from``, the estimate of a related model,
     gives the start values of the parameters both name alike (refits).
+    ``moments``, when the caller has them, are the mean and covariance
+    (divisor n) of the rows of ``x`` without a missing answer, which the
+    complete-data route then does not compute again.
     A ``trial`` fit (the trial removals of the refinement path, which are
     compared by their fit only) skips the standard errors, the robust
     corrections and the RMSEA interval and close-fit p: ``acov`` is None,
@@ -115,13 +118,15 @@ def evaluate_answers(spec, x: np.ndarray, choice: MethodChoice, where: str,
         if choice.missing_handling == FULL_INFORMATION and incomplete.any():
             return _full_information(spec, x, robust, where, start_from, trial)
         return _complete(spec, x[~incomplete] if incomplete.any() else x, robust, start_from,
-                         trial)
+                         trial, moments)
 
 
 def _complete(spec, x: np.ndarray, robust: bool, start_from: Estimate | None,
-              trial: bool = False) -> ModelResult:
-    """Complete rows: normal-theory ML, then the robust corrections if asked."""
-    result = evaluate_moments(spec, complete_data_blocks(x)[0], start_from, trial=trial)
+              trial: bool = False, moments: Block | None = None) -> ModelResult:
+    """Complete rows: normal-theory ML (on ``moments`` when given, the moments
+    of ``x``), then the robust corrections if asked."""
+    block = complete_data_blocks(x)[0] if moments is None else moments
+    result = evaluate_moments(spec, block, start_from, trial=trial)
     est = result.estimate
     if not robust or est.acov is None:
         return result

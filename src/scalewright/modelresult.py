@@ -12,7 +12,7 @@ from scipy import special
 
 from scalewright.estimate.result import Estimate
 from scalewright.indices import FitIndices
-from scalewright.layout import GENERAL, LOADING, PATH, RESIDUAL_COV
+from scalewright.layout import GENERAL, PATH, RESIDUAL_COV
 from scalewright.standardize import Standardized, delta_method_se
 
 
@@ -93,24 +93,27 @@ def _free_lookup(est: Estimate, kind: str) -> dict:
 
 
 def loading_rows(est: Estimate, std: Standardized) -> list[dict]:
-    """Every non-zero loading, free or fixed (a marker loading has no SE)."""
+    """Every non-zero loading, free or fixed (a marker loading has no SE), by
+    construct, then item."""
     layout = est.layout
     lam = est.matrices().loadings
-    free = _free_lookup(est, LOADING)
-    se = est.se
-    rows = []
-    for j, f in enumerate(layout.factors):
-        for i, item in enumerate(layout.items):
-            k = free.get((f, item))
-            if k is None and lam[i, j] == 0.0:
-                continue
-            s = float(se[k]) if k is not None else None
-            z, p = _z_and_p(lam[i, j], s) if s is not None else (None, None)
-            rows.append({"construct": f, "item": item, "estimate": float(lam[i, j]),
-                         "se": _num(s), "z": z, "p_value": p, "fixed": k is None,
-                         "std_estimate": float(std.loadings[i, j]),
-                         "primary": layout.primary.get(item) == f or layout.kinds[j] == GENERAL})
-    return rows
+    cells = layout.patterns[0].loadings
+    param = np.full(lam.shape, -1)
+    param[cells.rows, cells.cols] = cells.params
+    cols, rows = np.nonzero(((param >= 0) | (lam != 0.0)).T)    # construct-major order
+    k = param[rows, cols]
+    se = np.where(k >= 0, est.se[np.maximum(k, 0)], np.nan)
+    out = []
+    for i, j, kk, estimate, s, standardized in zip(rows.tolist(), cols.tolist(), k.tolist(),
+                                                   lam[rows, cols].tolist(), se.tolist(),
+                                                   std.loadings[rows, cols].tolist()):
+        f, item = layout.factors[j], layout.items[i]
+        z, p = _z_and_p(estimate, s) if kk >= 0 else (None, None)
+        out.append({"construct": f, "item": item, "estimate": estimate,
+                    "se": _num(s) if kk >= 0 else None, "z": z, "p_value": p,
+                    "fixed": kk < 0, "std_estimate": standardized,
+                    "primary": layout.primary.get(item) == f or layout.kinds[j] == GENERAL})
+    return out
 
 
 def path_rows(est: Estimate, std: Standardized) -> list[dict]:

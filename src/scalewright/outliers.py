@@ -26,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, special
 
+from scalewright.estimate.normal import CompleteRows, complete_rows
+
 #: the flagging level: D² beyond the χ²_p quantile at 1 − LEVEL
 LEVEL = 0.001
 #: at most this many flagged rows are listed by name
@@ -49,40 +51,30 @@ class Outliers:
                 "largest": [{"row": row, "d2": d2, "p_value": p} for row, d2, p in self.largest]}
 
 
-def complete_rows_covariance(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The rows answering every item (their indices), their mean and their
-    covariance (divisor n): what :func:`mahalanobis_outliers` and
-    :func:`item_correlations` both start from, computed once."""
-    index = np.flatnonzero(~np.isnan(values).any(axis=1))
-    if len(index) < 2:                     # no covariance to speak of (and no warnings)
-        p = values.shape[1]
-        return index, np.full(p, np.nan), np.full((p, p), np.nan)
-    x = values[index] if len(index) < len(values) else values
-    return index, x.mean(axis=0), np.cov(x, rowvar=False, bias=True)
-
-
 def mahalanobis_outliers(values: np.ndarray, row_labels=None,
-                         complete: tuple | None = None) -> Outliers | None:
+                         complete: CompleteRows | None = None) -> Outliers | None:
     """Flag rows whose Mahalanobis distance is improbable under normality.
 
     ``values`` is the n × p answer matrix (NaN = missing); rows with a
     missing answer are skipped.  ``row_labels`` names the rows (the id
     column); 1-based data row numbers are used otherwise; ``complete`` is
-    :func:`complete_rows_covariance` of ``values`` when the caller has it.
+    :func:`complete_rows` of ``values`` when the caller has it.
     None when fewer complete rows than p + 2 or a singular covariance.
     """
-    index, mean, cov = complete or complete_rows_covariance(values)
+    complete = complete or complete_rows(values)
+    index, mean, cov = complete.index, complete.moments.mean, complete.moments.cov
     n, p = len(index), values.shape[1]
     if n < p + 2:
         return None
     x = values[index] if len(index) < len(values) else values
     try:
-        chol = linalg.cholesky(cov, lower=True)
+        chol = linalg.cholesky(cov, lower=True, check_finite=False)
     except linalg.LinAlgError:
         return None
     d2 = np.empty(n)
     for start in range(0, n, _CHUNK):
-        z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True)
+        z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True,
+                                    check_finite=False)
         d2[start:start + _CHUNK] = np.einsum("ij,ij->j", z, z)
     # the chi-square quantile and tail by scipy.special (what scipy.stats.chi2's isf
     # and sf call, without their argument handling)
@@ -97,14 +89,15 @@ def mahalanobis_outliers(values: np.ndarray, row_labels=None,
 
 
 def item_correlations(values: np.ndarray, items, saturated_cov: np.ndarray | None = None,
-                      complete: tuple | None = None) -> dict:
+                      complete: CompleteRows | None = None) -> dict:
     """The item correlation matrix: from ``saturated_cov`` (the EM estimate
     under missing answers) when given, else from the complete rows
-    (``complete``: their :func:`complete_rows_covariance`, when the caller has it)."""
+    (``complete``: their :func:`complete_rows`, when the caller has it)."""
     if saturated_cov is not None:
         cov, basis = saturated_cov, "maximum-likelihood (EM) estimate using every answer"
     else:
-        cov, basis = (complete or complete_rows_covariance(values))[2], "rows answering every item"
+        cov = (complete or complete_rows(values)).moments.cov
+        basis = "rows answering every item"
     sd = np.sqrt(np.diag(cov))
     corr = cov / np.outer(sd, sd)
     return {"items": list(items), "basis": basis,

@@ -85,6 +85,29 @@ def complete_data_blocks(values: np.ndarray, group_index: np.ndarray | None = No
 
 
 @dataclass(frozen=True)
+class CompleteRows:
+    """The rows answering every item (``index``) and their moments (``moments``:
+    mean and covariance with divisor n), computed once per check for the
+    outlier screen, the item correlations, and the singular-covariance check
+    and complete-data fit of a model on every item (``scalewright.api``)."""
+
+    index: np.ndarray
+    moments: Block
+
+
+def complete_rows(values: np.ndarray) -> CompleteRows:
+    """:class:`CompleteRows` of an n × p answer matrix (NaN = missing); NaN
+    moments when fewer than two rows are complete."""
+    index = np.flatnonzero(~np.isnan(values).any(axis=1))
+    p = values.shape[1]
+    if len(index) < 2:                     # no covariance to speak of (and no warnings)
+        return CompleteRows(index, Block(0, np.arange(p), len(index), np.full((p, p), np.nan),
+                                         np.full(p, np.nan)))
+    x = values[index] if len(index) < len(values) else values
+    return CompleteRows(index, complete_data_blocks(x)[0])
+
+
+@dataclass(frozen=True)
 class _GroupStack:
     """The blocks of one group as padded arrays, so that every pattern is
     handled at once: block ``k`` observes the items where ``observed[k]``."""
