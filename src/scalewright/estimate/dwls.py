@@ -27,7 +27,11 @@ itself and ``N W = diag(Γ)⁻¹`` (``OrdinalMoments.dwls_weights``).  The Jacob
 :func:`scalewright.layout.cell_derivatives`: the row of pair ``i < j`` is
 ``a_i b_j + b_i a_j``.  Minimisation is by Gauss–Newton (the scoring
 matrix ``2ΔᵀWΔ``) with a backtracking line search, using
-:func:`scalewright.estimate.fisher.fisher_scoring`.
+:func:`scalewright.estimate.fisher.fisher_scoring`, and Newton steps with
+the exact Hessian ``2ΔᵀWΔ − 2Σ_k w_k e_k ∂²ρ_k`` once a full step has been
+taken (:meth:`_DeltaModel.hessian`): Gauss–Newton alone converges only
+linearly when the model misfits (6–9 iterations on the rival models of a
+48-item study, 3–4 with Newton steps).
 
 Robust standard errors (sandwich; Muthén 1984; Muthén, du Toit & Spisic
 1997), with any constant multiple of ``W`` (it cancels):
@@ -84,6 +88,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import stats
 
+from scalewright.estimate.exact_hessian import add_second_derivatives
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.mixed import MixedMoments
 from scalewright.estimate.polychoric import OrdinalMoments
@@ -226,6 +231,29 @@ class _DeltaModel:
         theta[self.free] = phi
         return self.pattern.matrices(theta).implied_cov[self.rows, self.cols]
 
+    def hessian(self, theta: np.ndarray, e: np.ndarray, w: np.ndarray, delta: np.ndarray,
+                wd: np.ndarray) -> np.ndarray:
+        """The exact Hessian of ``F = eᵀ diag(w) e``, ``e = r − ρ``, in the
+        free parameters:
+
+            ∂²F/∂φ∂φᵀ = 2ΔᵀWΔ − 2 Σ_k w_k e_k ∂²ρ_k/∂φ∂φᵀ,
+
+        where the sum is ``½ tr(E ∂²Σ)`` with ``E_ij = E_ji = w_k e_k`` for the
+        pair ``k = (i, j)`` (ρ is the off-diagonal of Σ; the diagonal of
+        ``E`` is zero), the second-derivative term of
+        :mod:`scalewright.estimate.exact_hessian`.  ``wd`` is ``WΔ``.
+        Gauss–Newton keeps only the first term, so it converges linearly
+        when the model misfits; the module docstring of
+        :mod:`scalewright.estimate.fisher` says when Newton steps are taken."""
+        weighted = np.zeros((self.layout.p, self.layout.p))
+        weighted[self.rows, self.cols] = w * e
+        weighted += weighted.T
+        cells = len(self.pattern.cell_params)
+        second = np.zeros((cells, cells))
+        add_second_derivatives(second, self.pattern, self.pattern.matrices(theta), weighted)
+        inc = self.inc[:, self.free]
+        return 2.0 * (delta.T @ wd) - 2.0 * (inc.T @ second @ inc)
+
     def jacobians(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """``Δ = ∂ρ/∂φ`` (p* × q) and ``∂diag Σ/∂φ`` (p × q) at the full ``theta``."""
         a, b, _ = cell_derivatives(self.pattern, self.pattern.matrices(theta))
@@ -295,8 +323,16 @@ def fit_dwls(layout: Layout, moments: OrdinalMoments, correlations: np.ndarray |
         wd = w_opt[:, None] * delta
         return float(e @ (w_opt * e)), -2.0 * (wd.T @ e), 2.0 * (delta.T @ wd)
 
+    def value_grad_hessian(phi):
+        theta = model.full(phi)
+        e = r - model.rho(phi)
+        delta, _ = model.jacobians(theta)
+        wd = w_opt[:, None] * delta
+        return float(e @ (w_opt * e)), -2.0 * (wd.T @ e), lambda: model.hessian(theta, e, w_opt,
+                                                                               delta, wd)
+
     phi, record = fisher_scoring(layout.start[model.free], value, value_grad_info,
-                                 max_iter=max_iter)
+                                 max_iter=max_iter, value_grad_hessian=value_grad_hessian)
     theta = model.full(phi)
     delta, diag = model.jacobians(theta)
     e = r - model.rho(phi)

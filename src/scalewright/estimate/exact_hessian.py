@@ -76,15 +76,16 @@ class CompleteTerms:
         """``∂²f/∂c∂d``."""
         hess, _ = trace_form(self._index, sandwich(self._factors, self._k))
         hess -= trace_form(self._index, self._wew)[0]
-        _add_moving_columns(hess, self._pattern, self._mats, self._e)
+        add_second_derivatives(hess, self._pattern, self._mats, self._e)
         return hess
 
 
-def _add_moving_columns(hess: np.ndarray, pattern: Pattern, mats: Matrices,
-                        e: np.ndarray) -> None:
-    """Add ``½ tr(E ∂²Σ/∂c∂d)``: the blocks of the module docstring, placed at
-    the cells' positions (loadings, paths, disturbances come first, in that
-    order, as in :func:`scalewright.layout.cell_factors`)."""
+def add_second_derivatives(hess: np.ndarray, pattern: Pattern, mats: Matrices,
+                           e: np.ndarray) -> None:
+    """Add ``½ tr(E ∂²Σ/∂c∂d)`` for a symmetric ``E``: the blocks of the module
+    docstring, placed at the cells' positions (loadings, paths, disturbances
+    come first, in that order, as in :func:`scalewright.layout.cell_factors`).
+    The DWLS Hessian uses it too (:func:`scalewright.estimate.dwls.fit_dwls`)."""
     lam, pth, psi = pattern.loadings, pattern.paths, pattern.disturbances
     a_mat = mats.total_effects
     h = mats.loadings @ a_mat
