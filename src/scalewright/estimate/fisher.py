@@ -16,7 +16,8 @@ whenever it makes the matrix indefinite or a full step fails the line
 search, so the method never does worse than plain Fisher scoring for long.
 
 Where the objective can give its exact Hessian (normal-theory ML on complete
-data without a mean structure, :mod:`scalewright.estimate.exact_hessian`),
+data without a mean structure, :mod:`scalewright.estimate.exact_hessian`;
+DWLS, :mod:`scalewright.estimate.dwls`),
 the steps after a full step are Newton steps, which converge quadratically:
 at 100 items and 10 constructs three iterations instead of six.  A warm
 refit (a model one item smaller, started from the larger model's solution)
