@@ -268,13 +268,13 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
         if fit_only:
             return model
         analysed = _merged_sparse_categories(study, spec, choice, x)
-        complete = analysed[~np.isnan(analysed).any(axis=1)]
+        complete_answers = analysed[~np.isnan(analysed).any(axis=1)]
 
         def refit(reduced_spec, answers, columns, start_from):
             # the DWLS route computes its own start values (``start_from`` unused);
             # the refinement path refits by the model's own route on the same answers
             # (pairwise, categories merged as before), so its steps' fit stays comparable
-            # with step 0; the alphas it reports come from ``complete``.  The refits
+            # with step 0; the alphas it reports come from ``complete_answers``.  The refits
             # read their moments off the model's (exact on the same rows)
             if choice.estimator == ORDINAL:
                 return refit_ordinal(reduced_spec, model.fitted.moments, x[:, columns],
@@ -283,7 +283,7 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
                                reduced_spec.items, choice.continuous_items, study.scale,
                                study.collapse_sparse)
 
-        model.extra.update(quality_keys(model, study, complete, fit=refit))
+        model.extra.update(quality_keys(model, study, complete_answers, fit=refit))
         return model
     shared = complete.moments if every_item else None
     n_complete = shared.n if every_item else int((~np.isnan(x).any(axis=1)).sum())
@@ -316,7 +316,7 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
         # complete data: the refits of the refinement path and of omega-if-dropped
         # need only the ML point estimates and normal-theory fit, whose sufficient
         # statistics are the moments, so large files are not copied per refit
-        moments = complete_data_blocks(x)[0]
+        moments = shared if shared is not None else complete_data_blocks(x)[0]
 
         def refit(reduced_spec, answers, columns, start_from, trial=False):
             return evaluate_moments(reduced_spec,
