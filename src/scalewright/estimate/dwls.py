@@ -316,20 +316,20 @@ def fit_dwls(layout: Layout, moments: OrdinalMoments, correlations: np.ndarray |
         e = r - model.rho(phi)
         return float(e @ (w_opt * e))
 
-    def value_grad_info(phi):
+    def at(phi):
+        """θ, the residuals e, Δ and WΔ at φ."""
         theta = model.full(phi)
-        e = r - model.rho(phi)
         delta, _ = model.jacobians(theta)
-        wd = w_opt[:, None] * delta
+        return theta, r - model.rho(phi), delta, w_opt[:, None] * delta
+
+    def value_grad_info(phi):
+        _, e, delta, wd = at(phi)
         return float(e @ (w_opt * e)), -2.0 * (wd.T @ e), 2.0 * (delta.T @ wd)
 
     def value_grad_hessian(phi):
-        theta = model.full(phi)
-        e = r - model.rho(phi)
-        delta, _ = model.jacobians(theta)
-        wd = w_opt[:, None] * delta
-        return float(e @ (w_opt * e)), -2.0 * (wd.T @ e), lambda: model.hessian(theta, e, w_opt,
-                                                                               delta, wd)
+        theta, e, delta, wd = at(phi)
+        return (float(e @ (w_opt * e)), -2.0 * (wd.T @ e),
+                lambda: model.hessian(theta, e, w_opt, delta, wd))
 
     phi, record = fisher_scoring(layout.start[model.free], value, value_grad_info,
                                  max_iter=max_iter, value_grad_hessian=value_grad_hessian)
