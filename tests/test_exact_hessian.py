@@ -145,6 +145,7 @@ def test_warm_refits_reuse_the_hessian_and_land_on_the_cold_solution(monkeypatch
         monkeypatch.setattr(NormalFit, "value_grad_hessian", original)
         cold = point_estimate(reduced, block)
         assert warm.record.converged and warm.record.gradient_norm < 1e-7
+        # tolerance: both stop at a gradient of 1e-7 (POINT_GRAD_TOL), ~1e-6 from the optimum
         assert_allclose(warm.theta, cold.theta, rtol=0, atol=1e-5)
         steps += warm.record.iterations
     assert len(hessians) < steps

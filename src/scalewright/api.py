@@ -26,7 +26,7 @@ from scalewright.compare import compare_models
 from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.dwls import DwlsModel
 from scalewright.estimate.fiml import saturated_covariance, saturated_model
-from scalewright.estimate.normal import CompleteRows, complete_data_blocks, complete_rows
+from scalewright.estimate.normal import CompleteRows, complete_rows
 from scalewright.estimate.spd_inverse import cholesky_inverse
 from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
@@ -249,10 +249,9 @@ def _fit_placed(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
 def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
                complete: CompleteRows, fit_only: bool) -> ModelResult:
     """One rival model by the chosen method, with its local-fit and scale-quality
-    keys unless ``fit_only``.  ``complete`` holds the moments of the rows
-    answering every item: for a model on every item (columns in the data's
-    order) they are the moments of its complete rows, which are not computed
-    again."""
+    keys unless ``fit_only``.  ``complete`` holds the rows answering every
+    item and their moments: for a model on every item (columns in the data's
+    order) they are its own complete rows, which are then not found again."""
     columns = [data.items.index(i) for i in spec.items]
     values = np.asarray(data.values)
     every_item = columns == list(range(values.shape[1]))
@@ -285,14 +284,10 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
 
         model.extra.update(quality_keys(model, study, complete_answers, fit=refit))
         return model
-    shared = complete.moments if every_item else None
-    n_complete = shared.n if every_item else int((~np.isnan(x).any(axis=1)).sum())
-    if n_complete > len(columns):
-        _check_sample_covariance(spec, shared.cov if every_item else
-                                 np.cov(x[~np.isnan(x).any(axis=1)], rowvar=False))
-    else:
-        _check_sample_covariance(spec, saturated_covariance(x, spec.items, data.file.name))
-    model = evaluate_answers(spec, x, choice, data.file.name, moments=shared)
+    own = (complete if every_item else complete_rows(x)).moments   # of x's complete rows
+    _check_sample_covariance(spec, own.cov if own.n > len(columns) else
+                             saturated_covariance(x, spec.items, data.file.name))
+    model = evaluate_answers(spec, x, choice, data.file.name, moments=own)
     if fit_only:
         return model
     saturated = None
@@ -313,20 +308,19 @@ def _fit_model(study: Study, spec, data: ItemData, rows: np.ndarray, choice,
             return fiml_point_estimate(reduced_spec, answers[:, columns], data.file.name,
                                        model.estimate, observed[np.ix_(columns, columns)])
     else:
-        # complete data: the refits of the refinement path and of omega-if-dropped
-        # need only the ML point estimates and normal-theory fit, whose sufficient
-        # statistics are the moments, so large files are not copied per refit
-        moments = shared if shared is not None else complete_data_blocks(x)[0]
-
+        # complete data (x has no gap, so ``own`` are its moments): the refits of the
+        # refinement path and of omega-if-dropped need only the ML point estimates and
+        # normal-theory fit, whose sufficient statistics are the moments, so large
+        # files are not copied per refit
         def refit(reduced_spec, answers, columns, start_from, trial=False):
             return evaluate_moments(reduced_spec,
-                                    moments_subset(moments, spec.items, reduced_spec.items),
+                                    moments_subset(own, spec.items, reduced_spec.items),
                                     start_from=start_from, trial=trial)
 
         def estimates(reduced_spec, answers, columns):
             # omega if dropped needs only the solution: warm-started, no SEs or indices
             return point_estimate(reduced_spec,
-                                  moments_subset(moments, spec.items, reduced_spec.items),
+                                  moments_subset(own, spec.items, reduced_spec.items),
                                   start_from=model.estimate)
 
     model.extra.update(quality_keys(model, study, x, fit=refit,
