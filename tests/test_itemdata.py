@@ -105,9 +105,32 @@ def test_text_files_read_as_pandas_pyarrow_engine_reads_them(tmp_path):
             "3,T3,4,,,True,null,,#N/A\r\n")
     (tmp_path / "mixed.csv").write_text(text, encoding="utf-8", newline="")
     columns = list("abcdefgh")
-    ours = _read_text(tmp_path / "mixed.csv", ",", columns)
     reference = pd.read_csv(tmp_path / "mixed.csv", engine="pyarrow", usecols=columns)
-    pd.testing.assert_frame_equal(ours, reference)
+    ours = _read_text(tmp_path / "mixed.csv", ",", [], columns)      # no items: as inferred
+    pd.testing.assert_frame_equal(ours.frame, reference)
+    ours = _read_text(tmp_path / "mixed.csv", ",", ["a", "b"], list("cdefgh"))
+    assert ours.numbers is not None
+    np.testing.assert_array_equal(ours.numbers, reference[["a", "b"]].to_numpy(np.float64))
+    pd.testing.assert_frame_equal(ours.frame, reference[list("cdefgh")])
+    # an item column with text ('c', 'e', 'g'): the whole file read as inferred
+    for text_item in ("c", "e", "g"):
+        ours = _read_text(tmp_path / "mixed.csv", ",", ["a", text_item], ["b"])
+        assert ours.numbers is None
+        pd.testing.assert_frame_equal(ours.frame, reference[["a", text_item, "b"]])
+
+
+def test_item_columns_parsed_as_numbers_equal_the_inferred_read(tmp_path):
+    # the fast path parses item columns straight to float64; outside reference: pandas'
+    # read_csv (pyarrow engine) of the same file, converted to float64 afterwards
+    from scalewright.itemdata import _read_text
+    text = ("q1,q2,q3,q4,q5,q6\n1,2.5,-3e2,,NA,1e-320\n-0,NaN,4,,N/A,7\n"
+            "3,0.1,5,,,12345678901234567890\n")
+    (tmp_path / "numbers.csv").write_text(text, encoding="utf-8")
+    columns = [f"q{k}" for k in range(1, 7)]
+    ours = _read_text(tmp_path / "numbers.csv", ",", columns, [])
+    reference = pd.read_csv(tmp_path / "numbers.csv", engine="pyarrow")
+    assert ours.numbers is not None and ours.n_rows == 3
+    np.testing.assert_array_equal(ours.numbers, reference[columns].to_numpy(np.float64))
 
 
 def test_a_header_with_a_nul_byte_gets_a_message_not_a_crash(tmp_path):

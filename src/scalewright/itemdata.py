@@ -103,33 +103,24 @@ def read_items(study: Study) -> ItemData:
     digest = source.sha256()
     columns = source.columns()
     source.require(columns)
-    frame = source.read(columns)
-    n_rows = len(frame)
+    read = source.read(columns)
+    n_rows = read.n_rows
     if n_rows == 0:
         source.fail(f"the data file '{source.shown}' has column names but no rows of answers",
                     "Check that the right file is named")
+    frame = read.frame
     row_ids = None
     if study.data.id_column is not None:
         row_ids = frame[columns[study.data.id_column]].to_numpy()
     codes = _Codes(study.data.missing)
     items = tuple(study.items)
-    values = np.empty((n_rows, len(items)), dtype=np.float64)
-    # the dtypes as a plain dict, once: indexing the dtypes Series cost ~10 µs a column
-    kinds = dict(zip(frame.columns, frame.dtypes))
-    numeric = [j for j, item in enumerate(items) if kinds[columns[item]].kind in "iufb"]
-    # numeric columns in slices: one conversion per slice (a column-by-column loop
-    # spent 150 of 180 ms at 2000 x 100 in pandas' indexing), all at once for small
-    # files, and the temporary float copy bounded by _CELLS_AT_ONCE on large ones
-    width = max(1, _CELLS_AT_ONCE // max(n_rows, 1))
-    for lo in range(0, len(numeric), width):
-        part = numeric[lo:lo + width]
-        values[:, part] = frame[[columns[items[j]] for j in part]].to_numpy(
-            dtype=np.float64, na_value=np.nan)
-    for j in sorted(set(range(len(items))) - set(numeric)):
-        values[:, j] = _numbers(frame[columns[items[j]]], items[j], codes, source, row_ids)
+    values = read.numbers
+    if values is None:
+        values = _item_values(frame, [columns[item] for item in items], items, codes, source,
+                              row_ids)
     group, n_group_missing = (None, 0) if study.groups is None else \
         _groups(frame[columns[study.groups.column]], codes, source)
-    del frame
+    del frame, read
     codes.apply(values)
     _check_answers(values, items, source, row_ids)
     if study.scale is not None:
@@ -140,6 +131,29 @@ def read_items(study: Study) -> ItemData:
     return ItemData(file=study.data.file, sha256=digest, n_rows=n_rows, items=items,
                     values=values, group=group, row_ids=row_ids,
                     columns=tuple(columns), n_group_missing=n_group_missing)
+
+
+def _item_values(frame: pd.DataFrame, labels: list, items: tuple, codes: _Codes,
+                 source: _Source, row_ids) -> np.ndarray:
+    """The item columns of a data frame as one float64 matrix (numeric codes
+    are applied later, on the whole matrix); a text column is read by
+    :func:`_numbers`, which names any cell that is not a number."""
+    n_rows = len(frame)
+    values = np.empty((n_rows, len(items)), dtype=np.float64)
+    # the dtypes as a plain dict, once: indexing the dtypes Series cost ~10 µs a column
+    kinds = dict(zip(frame.columns, frame.dtypes))
+    numeric = [j for j, label in enumerate(labels) if kinds[label].kind in "iufb"]
+    # numeric columns in slices: one conversion per slice (a column-by-column loop
+    # spent 150 of 180 ms at 2000 x 100 in pandas' indexing), all at once for small
+    # files, and the temporary float copy bounded by _CELLS_AT_ONCE on large ones
+    width = max(1, _CELLS_AT_ONCE // max(n_rows, 1))
+    for lo in range(0, len(numeric), width):
+        part = numeric[lo:lo + width]
+        values[:, part] = frame[[labels[j] for j in part]].to_numpy(dtype=np.float64,
+                                                                    na_value=np.nan)
+    for j in sorted(set(range(len(items))) - set(numeric)):
+        values[:, j] = _numbers(frame[labels[j]], items[j], codes, source, row_ids)
+    return values
 
 
 # --------------------------------------------------------------------------- the file
@@ -377,41 +391,78 @@ class _Source:
                           study.place_of(*keys))
 
     # reading -----------------------------------------------------------------
-    def read(self, columns: dict[str, object]) -> pd.DataFrame:
+    def read(self, columns: dict[str, object]) -> _Read:
         study = self.study
-        wanted = [*study.items]
-        wanted += [c for c in (study.data.id_column, study.groups and study.groups.column) if c]
-        labels = [columns[name] for name in wanted]
+        named = [name for name in (study.data.id_column, study.groups and study.groups.column)
+                 if name]
+        items = [columns[name] for name in study.items]
+        others = [columns[name] for name in named]
         try:
             if self.suffix in (".csv", ".tsv", ".txt"):
-                return _read_text(self.path, self._separator(), labels)
+                return _read_text(self.path, self._separator(), items, others)
             if self.suffix == ".xlsx":
-                chosen = set(wanted)
-                return pd.read_excel(self.path, sheet_name=self._sheet(), engine="openpyxl",
-                                     usecols=lambda label: str(label) in chosen)
-            if self.suffix == ".parquet":
-                return pd.read_parquet(self.path, columns=labels)
-            return self._stat_reader()(self.path, usecols=labels, apply_value_formats=False)[0]
+                chosen = {*study.items, *named}
+                frame = pd.read_excel(self.path, sheet_name=self._sheet(), engine="openpyxl",
+                                      usecols=lambda label: str(label) in chosen)
+            elif self.suffix == ".parquet":
+                frame = pd.read_parquet(self.path, columns=items + others)
+            else:
+                frame = self._stat_reader()(self.path, usecols=items + others,
+                                            apply_value_formats=False)[0]
         except READ_ERRORS as exc:
             self._unreadable(exc)
+        return _Read(frame, None, len(frame))
 
 
-def _read_text(path: Path, separator: str, labels: list[str]) -> pd.DataFrame:
-    """The ``labels`` columns of a UTF-8 text file, parsed by pyarrow's CSV
-    reader as pandas' pyarrow engine parses it (pandas' not-available marks
-    are missing, an empty field is missing, a column with nothing but missing
-    cells is float64), called directly: pandas' wrapper added 4-6 ms to the
-    9 ms read of a 2000 × 100 file.  A row with too few or too many fields
-    is an error (``pa.ArrowInvalid``), as it is there."""
+@dataclass(frozen=True)
+class _Read:
+    """The wanted columns of the data file as read: ``numbers`` holds the item
+    columns already parsed as float64 (study order), or is None when the
+    items are columns of ``frame``, which holds every other wanted column."""
+
+    frame: pd.DataFrame
+    numbers: np.ndarray | None
+    n_rows: int
+
+
+def _read_text(path: Path, separator: str, items: list[str], others: list[str]) -> _Read:
+    """The ``items`` and ``others`` columns of a UTF-8 text file, parsed by
+    pyarrow's CSV reader as pandas' pyarrow engine parses it (pandas'
+    not-available marks are missing, an empty field is missing, a column with
+    nothing but missing cells is float64), called directly: pandas' wrapper
+    added 4-6 ms to the 9 ms read of a 2000 × 100 file.  A row with too few or
+    too many fields is an error (``pa.ArrowInvalid``), as it is there.
+
+    The item columns are first parsed straight to float64 and copied into
+    one matrix: inferring each column's type, and the data frame, made that
+    read 12 ms instead of 7.  A cell that is not a number fails that parse,
+    and the file is then read again with every column's type inferred, so
+    that :func:`read_items` can name the cell (a text column)."""
+    try:
+        table = _parse_text(path, separator, [*items, *others], dict.fromkeys(items, pa.float64()))
+    except pa.ArrowInvalid:
+        table = _parse_text(path, separator, [*items, *others], {})
+        return _Read(table.to_pandas(), None, table.num_rows)
+    numbers = np.empty((table.num_rows, len(items)))
+    for j, label in enumerate(items):
+        numbers[:, j] = table.column(label).to_numpy()
+    return _Read(table.select(list(dict.fromkeys(others))).to_pandas(), numbers, table.num_rows)
+
+
+def _parse_text(path: Path, separator: str, labels: list[str], types: dict) -> pa.Table:
+    """pyarrow's parse of the ``labels`` columns (``types``: the columns whose
+    type is given rather than inferred); a column of missing cells only is float64."""
     table = pacsv.read_csv(
         path, parse_options=pacsv.ParseOptions(delimiter=separator),
-        convert_options=pacsv.ConvertOptions(include_columns=labels, null_values=list(NOT_AVAILABLE),
+        convert_options=pacsv.ConvertOptions(include_columns=list(dict.fromkeys(labels)),
+                                             column_types=types,
+                                             null_values=list(NOT_AVAILABLE),
                                              strings_can_be_null=True))
     for k, kind in enumerate(table.schema.types):
         if pa.types.is_null(kind):
             table = table.set_column(k, table.schema.field(k).with_type(pa.float64()),
                                      table.column(k).cast(pa.float64()))
-    return table.to_pandas()
+    return table
 
 
 def _first_use(study: Study, item: str) -> str:
