@@ -182,6 +182,29 @@ def test_mardia_blocks_of_rows_add_up_to_the_whole_on_the_pairs_route(monkeypatc
     np.testing.assert_allclose([result.skewness, result.kurtosis], [b1, b2], rtol=1e-9)
 
 
+@pytest.mark.parametrize("n, p", [(400, 5), (60, 12)])    # the tensor and the n x n route
+def test_screen_distances_are_the_mahalanobis_distances_the_outlier_screen_uses(n, p):
+    # outside reference: scipy's Mahalanobis distance with the ML covariance (÷n) of the
+    # complete rows; the outlier screen given the screen's distances flags what it
+    # flags on its own
+    from scipy.spatial.distance import mahalanobis
+    from scalewright.outliers import mahalanobis_outliers
+    rng = np.random.default_rng(p)
+    x = rng.gamma(2.0, size=(n, p))
+    x[3, 1] = np.nan
+    x[7] = 12.0 * (-1) ** np.arange(p)            # planted far from the rest
+    result = screen(item_data(x))
+    rows = x[~np.isnan(x).any(axis=1)]
+    vi = np.linalg.inv(np.cov(rows, rowvar=False, bias=True))
+    reference = [mahalanobis(r, rows.mean(axis=0), vi) ** 2 for r in rows]
+    np.testing.assert_allclose(result.distances, reference, rtol=1e-9)
+    reused, own = mahalanobis_outliers(x, distances=result.distances), mahalanobis_outliers(x)
+    assert (reused.n_checked, reused.n_flagged) == (own.n_checked, own.n_flagged) and own.n_flagged
+    assert [row for row, _, _ in reused.largest] == [row for row, _, _ in own.largest]
+    np.testing.assert_allclose([d2 for _, d2, _ in reused.largest],
+                               [d2 for _, d2, _ in own.largest], rtol=1e-9)
+
+
 def test_mardia_tests_follow_the_stated_formulas():
     x = np.random.default_rng(9).gamma(3.0, size=(150, 3))
     m = mardia_statistics(x)

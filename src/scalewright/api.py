@@ -161,11 +161,11 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     say(f"reading '{study.data.file.name}'")
     data = read_items(study)
     say(f"screening {len(data.items)} items in {data.n_rows} rows")
-    screening = screen(data)
+    complete = complete_rows(np.asarray(data.values))
+    screening = screen(data, complete)
     choice = choose_method(study, data, screening)
     rows = _rows_used(study, data, choice)
     n_used = int(rows.sum())
-    complete = complete_rows(np.asarray(data.values))
     models = []
     for k, spec in enumerate(study.models, start=1):
         say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
@@ -185,7 +185,8 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     return CheckResult(study, data, screening, models, n_used, dropped,
                        _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
                        extra, missing_data_summary(data), choice,
-                       _reanalysis_keys(study, data, choice, complete), fit_only)
+                       _reanalysis_keys(study, data, choice, complete, screening.distances),
+                       fit_only)
 
 
 def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
@@ -201,15 +202,17 @@ def _invariance(study: Study, data: ItemData, spec, choice) -> dict:
     return keys
 
 
-def _reanalysis_keys(study: Study, data: ItemData, choice, complete: CompleteRows) -> dict:
+def _reanalysis_keys(study: Study, data: ItemData, choice, complete: CompleteRows,
+                     distances: np.ndarray | None) -> dict:
     """Outlier screening, the item correlation matrix and repeated ids
     (reporting checklist lines 11, 12 and 8), under ``data``; ``complete``:
-    its complete rows and their moments."""
+    its complete rows and their moments; ``distances``: their squared
+    Mahalanobis distances when the screen computed them."""
     values = np.asarray(data.values)
     saturated = None
     if choice.missing_handling != LISTWISE and np.isnan(values).any():
         saturated = saturated_covariance(values, data.items, data.file.name)
-    found = mahalanobis_outliers(values, data.row_ids, complete)
+    found = mahalanobis_outliers(values, data.row_ids, complete, distances)
     correlations = item_correlations(values, data.items, saturated, complete)
     return {"outliers": found.to_dict() if found else None, "correlations": correlations,
             "repeated_ids": repeated_ids(data.row_ids, study.data.id_column)}

@@ -8,8 +8,9 @@ with ``S`` the ML covariance of those rows.  Under multivariate normality
 memory).  Flagged rows are *kept*: with Likert items a distant row is usually
 an unusual but genuine pattern of answers, and dropping rows because of the
 fit they spoil capitalises on chance; the report lists them so the researcher
-can look at them.  ``D²`` is computed in row chunks through the Cholesky
-factor, without an ``n × n`` matrix.
+can look at them.  ``D²`` is the item screen's by-product of Mardia's
+kurtosis when the check has it, else computed in row chunks through the
+Cholesky factor, without an ``n × n`` matrix.
 
 References
 ----------
@@ -52,30 +53,26 @@ class Outliers:
 
 
 def mahalanobis_outliers(values: np.ndarray, row_labels=None,
-                         complete: CompleteRows | None = None) -> Outliers | None:
+                         complete: CompleteRows | None = None,
+                         distances: np.ndarray | None = None) -> Outliers | None:
     """Flag rows whose Mahalanobis distance is improbable under normality.
 
     ``values`` is the n × p answer matrix (NaN = missing); rows with a
     missing answer are skipped.  ``row_labels`` names the rows (the id
     column); 1-based data row numbers are used otherwise; ``complete`` is
-    :func:`complete_rows` of ``values`` when the caller has it.
+    :func:`complete_rows` of ``values`` when the caller has it, and
+    ``distances`` the squared distances of those rows when the caller has
+    them (the item screen computes them for Mardia's kurtosis).
     None when fewer complete rows than p + 2 or a singular covariance.
     """
     complete = complete or complete_rows(values)
-    index, mean, cov = complete.index, complete.moments.mean, complete.moments.cov
+    index = complete.index
     n, p = len(index), values.shape[1]
     if n < p + 2:
         return None
-    x = values[index] if len(index) < len(values) else values
-    try:
-        chol = linalg.cholesky(cov, lower=True, check_finite=False)
-    except linalg.LinAlgError:
+    d2 = distances if distances is not None else _squared_distances(values, complete)
+    if d2 is None:
         return None
-    d2 = np.empty(n)
-    for start in range(0, n, _CHUNK):
-        z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True,
-                                    check_finite=False)
-        d2[start:start + _CHUNK] = np.einsum("ij,ij->j", z, z)
     # the chi-square quantile and tail by scipy.special (what scipy.stats.chi2's isf
     # and sf call, without their argument handling)
     threshold = float(special.chdtri(p, LEVEL))
@@ -86,6 +83,23 @@ def mahalanobis_outliers(values: np.ndarray, row_labels=None,
     largest = tuple((_plain(labels[index[i]]), float(d2[i]), float(tail))
                     for i, tail in zip(order, tails))
     return Outliers(n, threshold, int(len(flagged)), largest, p)
+
+
+def _squared_distances(values: np.ndarray, complete: CompleteRows) -> np.ndarray | None:
+    """``D²_i`` of the complete rows, by row chunks through the Cholesky factor
+    of their covariance; None when it is singular."""
+    index, mean, cov = complete.index, complete.moments.mean, complete.moments.cov
+    x = values[index] if len(index) < len(values) else values
+    try:
+        chol = linalg.cholesky(cov, lower=True, check_finite=False)
+    except linalg.LinAlgError:
+        return None
+    d2 = np.empty(len(index))
+    for start in range(0, len(index), _CHUNK):
+        z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True,
+                                    check_finite=False)
+        d2[start:start + _CHUNK] = np.einsum("ij,ij->j", z, z)
+    return d2
 
 
 def item_correlations(values: np.ndarray, items, saturated_cov: np.ndarray | None = None,

@@ -23,12 +23,13 @@ applications. Biometrika, 57, 519-530.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
 import numpy as np
 from scipy import linalg, stats
 
 from scalewright.blas import one_blas_thread
+from scalewright.estimate.normal import Block, CompleteRows, complete_rows
 from scalewright.itemdata import ItemData
 from scalewright.studyfile import format_code
 
@@ -94,6 +95,9 @@ class Screening:
     items: tuple[ItemScreen, ...]
     mardia: Mardia | None
     n_complete: int
+    #: squared Mahalanobis distances of the complete rows (ML covariance), a
+    #: by-product of Mardia's kurtosis that the outlier screen reuses; None with ``mardia``
+    distances: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     def to_dict(self) -> dict:
         """JSON-able form: undefined values become None, answer values become text keys."""
@@ -115,12 +119,15 @@ def _plain(value):
     return value if math.isfinite(value) else None
 
 
-def screen(data: ItemData) -> Screening:
+def screen(data: ItemData, complete: CompleteRows | None = None) -> Screening:
     """Screen each item and test multivariate normality on the complete rows.
 
     Parameters
     ----------
     data : ItemData
+    complete : CompleteRows, optional
+        :func:`~scalewright.estimate.normal.complete_rows` of ``data.values``,
+        when the caller has it (their moments are then not computed again).
 
     Returns
     -------
@@ -131,9 +138,10 @@ def screen(data: ItemData) -> Screening:
     items = tuple(item for lo in range(0, len(data.items), width)
                   for item in _items(data.items[lo:lo + width], values[:, lo:lo + width],
                                      data.n_rows))
-    complete = data.complete_rows()
-    return Screening(items=items, mardia=mardia_statistics(values, rows=complete),
-                     n_complete=int(complete.sum()))
+    complete = complete or complete_rows(values)
+    mardia, distances = _mardia(values, complete.index, complete.moments)
+    return Screening(items=items, mardia=mardia, n_complete=len(complete.index),
+                     distances=distances)
 
 
 def _columns_at_once(n_rows: int) -> int:
@@ -231,30 +239,43 @@ def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia |
     skewness and kurtosis in testing normality and robustness studies.
     Sankhya B, 36, 115-128.
     """
-    dt = np.array(x.T, order="C") if rows is None else x.T[:, rows]  # one row per item
+    return _mardia(x, None if rows is None else np.flatnonzero(rows))[0]
+
+
+def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None
+            ) -> tuple[Mardia | None, np.ndarray | None]:
+    """:func:`mardia_statistics` of the ``rows`` (indices) of ``x``, and the
+    squared Mahalanobis distances ``d_i' S^-1 d_i`` of those rows (None with
+    the statistics); ``moments``: their mean and ML covariance, when known."""
+    dt = np.array(x.T, order="C") if rows is None or len(rows) == len(x) else x.T[:, rows]
     p, n = dt.shape
     if n < max(p + 2, 4):            # the exact variance below needs n > 3
-        return None
+        return None, None
     # one BLAS thread: these small and thin products ran 10-100x slower threaded on a
     # busy 2-core machine (see DEVELOPERS.md, "Speed")
     with one_blas_thread():
-        dt -= dt.mean(axis=1, keepdims=True)
-        s = dt @ dt.T / n
+        if moments is None:
+            dt -= dt.mean(axis=1, keepdims=True)
+            s = dt @ dt.T / n
+        else:
+            dt -= moments.mean[:, None]
+            s = moments.cov
         scale = np.sqrt(np.diag(s))
         if np.any(scale == 0) or np.linalg.eigvalsh(s / np.outer(scale, scale))[0] < _SINGULAR:
-            return None
+            return None, None
         whiten = linalg.solve_triangular(np.linalg.cholesky(s), np.eye(p), lower=True)
         # the n x n route costs ~n²p/2, the tensor route ~np³/3: take the cheaper
         moment_sums = _moment_sums_by_pairs if 3 * n < 2 * p * p else _moment_sums
-        cubes, squares = moment_sums(dt, whiten)
+        cubes, distances = moment_sums(dt, whiten)
     b1 = cubes / n ** 2  # Mardia (1970), via the tensor identity
-    b2 = squares / n  # Mardia (1970)
+    b2 = float(distances @ distances) / n  # Mardia (1970)
     df = p * (p + 1) * (p + 2) / 6
     chi2 = n * b1 / 6
     kurtosis_z = (b2 - _kurtosis_mean(n, p)) / math.sqrt(_kurtosis_variance(n, p))
     return Mardia(n=n, p=p, skewness=b1, skewness_chi2=chi2, skewness_df=df,
                   skewness_p=float(stats.chi2.sf(chi2, df)), kurtosis=b2,
-                  kurtosis_z=kurtosis_z, kurtosis_p=float(2 * stats.norm.sf(abs(kurtosis_z))))
+                  kurtosis_z=kurtosis_z,
+                  kurtosis_p=float(2 * stats.norm.sf(abs(kurtosis_z)))), distances
 
 
 def _kurtosis_mean(n: int, p: int) -> float:
@@ -268,7 +289,7 @@ def _kurtosis_variance(n: int, p: int) -> float:
     return 8 * p * (p + 2) * (n - 3) * (n - p - 1) * (n - p + 1) / ((n + 1) ** 2 * (n + 3) * (n + 5))
 
 
-def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
+def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]:
     """As :func:`_moment_sums`, straight from the definition: the cubes of
     the n x n matrix of ``z_i' z_j``, built one block of rows at a time so
     that memory stays at one block of rows by n.  The matrix is symmetric,
@@ -278,7 +299,7 @@ def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, fl
     the part below the diagonal."""
     z = whiten @ dt
     n = z.shape[1]
-    squares = float(np.sum(np.einsum("ij,ij->j", z, z) ** 2))
+    distances = np.einsum("ij,ij->j", z, z)
     width = max(1, min(_PAIR_ROWS, _CHUNK_CELLS // n))
     cubes = 0.0
     for start in range(0, n, width):
@@ -287,11 +308,11 @@ def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, fl
         squared = products * products
         diagonal = float(np.vdot(squared[:, :stop - start], products[:, :stop - start]))
         cubes += 2.0 * float(np.vdot(squared, products)) - diagonal
-    return cubes, squares
+    return cubes, distances
 
 
-def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
-    """sum_i sum_j (z_i' z_j)^3 and sum_i (z_i' z_i)^2, with z_i = whiten @ d_i.
+def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]:
+    """sum_i sum_j (z_i' z_j)^3 and the squared distances z_i' z_i, with z_i = whiten @ d_i.
 
     `dt` holds the centred rows d_i as columns (p x n).  The double sum equals
     sum_abc T_abc^2 with T_abc = sum_i z_ia z_ib z_ic.  T is symmetric in its
@@ -304,11 +325,11 @@ def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
     """
     p, n = dt.shape
     slabs = [np.zeros((p - k, p - k)) for k in range(p)]
-    squares = 0.0
+    distances = np.empty(n)
     width = max(1, _CHUNK_CELLS // p)
     for start in range(0, n, width):
         block = whiten @ dt[:, start:start + width]
-        squares += float(np.sum(np.einsum("ij,ij->j", block, block) ** 2))
+        distances[start:start + width] = np.einsum("ij,ij->j", block, block)
         for k in range(p):
             tail = block[k:]
             slabs[k] += (tail * block[k]) @ tail.T
@@ -318,4 +339,4 @@ def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, float]:
         weight[0, :] = weight[:, 0] = 1.5
         weight[0, 0] = 1.0
         cubes += float(np.sum(weight * slab * slab))
-    return cubes, squares
+    return cubes, distances
