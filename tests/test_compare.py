@@ -286,3 +286,15 @@ def test_ordinal_fits_are_not_compared_by_their_statistics_alone():
                   "scaling_factor": 1.111}
     with pytest.raises(ValueError, match="dwls_difference_row"):
         chi_square_difference(weak, configural)
+
+
+def test_the_comparison_keys_are_the_whole_dict_in_short(hs_x):
+    # the check compares the rivals from ModelResult.comparison_keys(), the part of
+    # to_dict() the comparison reads: the same comparison as from the whole dicts
+    three, one = make_spec(HS_CONSTRUCTS, name="three"), make_spec(ONE, name="one")
+    results = [evaluate_normal(three, hs_x), evaluate_normal(one, hs_x)]
+    for result in results:
+        whole = result.to_dict()
+        assert result.comparison_keys() == {k: whole[k] for k in result.comparison_keys()}
+    assert compare_models([three, one], [r.comparison_keys() for r in results]) == \
+        compare_models([three, one], [r.to_dict() for r in results])

@@ -172,7 +172,7 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
         models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
     models = tuple(models)
     extra = {"method": choice.to_dict()}
-    extra.update(compare_models(study.models, [m.to_dict() for m in models],
+    extra.update(compare_models(study.models, [m.comparison_keys() for m in models],
                                 {m.name: m.fitted for m in models
                                  if isinstance(m.fitted, DwlsModel)}))
     if study.groups is not None and not fit_only:

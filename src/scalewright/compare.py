@@ -426,7 +426,8 @@ def compare_models(specs: Sequence, models: Sequence[dict],
     specs : sequence of ModelSpec
         The models as written in the model file (for nesting and ``first``).
     models : sequence of dict
-        ``ModelResult.to_dict()`` of the same models (matched by ``name``).
+        ``ModelResult.to_dict()`` of the same models (matched by ``name``),
+        or the part of it the comparison reads (``ModelResult.comparison_keys()``).
     dwls_models : mapping of name to DwlsModel, optional
         The fits of the ordinal route (``ModelResult.fitted``), which the
         DWLS difference test needs; a DWLS pair without them is not tested.

@@ -48,6 +48,14 @@ class ModelResult:
     def converged(self) -> bool:
         return self.estimate.record.converged
 
+    def comparison_keys(self) -> dict:
+        """The keys of :meth:`to_dict` that the rival comparison reads
+        (:func:`~scalewright.compare.compare_models`), without the tables of
+        estimates, which take most of the dict's time."""
+        return {"name": self.name, "converged": self.converged, "estimator": self.estimator,
+                "fit": self.fit.to_dict(), "n_used": self.estimate.n,
+                "items": list(self.estimate.layout.items)}
+
     def to_dict(self) -> dict:
         est = self.estimate
         layout = est.layout
