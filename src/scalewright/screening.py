@@ -159,13 +159,18 @@ def _items(names, columns: np.ndarray, n_rows: int) -> list[ItemScreen]:
     x = np.array(columns.T, order="C")          # one row per item
     answered = ~np.isnan(x)
     n = answered.sum(axis=1)
+    every = bool(answered.all())                 # no cell to leave out: no masking
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(answered, x, 0.0).sum(axis=1) / n
-        d = np.where(answered, x - mean[:, None], 0.0)
+        mean = (x if every else np.where(answered, x, 0.0)).sum(axis=1) / n
+        d = x - mean[:, None]
+        if not every:
+            d[~answered] = 0.0
         d2 = d * d
         m2 = d2.sum(axis=1) / n
-        m3 = (d2 * d).sum(axis=1) / n
-        m4 = (d2 * d2).sum(axis=1) / n
+        d *= d2                                  # in place: d³, then d⁴ in d2
+        m3 = d.sum(axis=1) / n
+        d2 *= d2
+        m4 = d2.sum(axis=1) / n
     x.sort(axis=1)                               # NaN last in each row
     starts = np.ones(x.shape, dtype=bool)
     starts[:, 1:] = x[:, 1:] != x[:, :-1]
