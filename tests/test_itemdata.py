@@ -370,6 +370,20 @@ def test_data_file_that_is_a_folder(tmp_path):
         read_items(study_for(tmp_path, "answers.csv"))
 
 
+def test_a_data_file_this_process_may_not_open_is_said_before_anything_is_read(
+        tmp_path, monkeypatch):
+    # (tests run as root here, whom file permissions do not stop: the refusal is simulated)
+    import scalewright.itemdata as itemdata
+    name = write_csv(tmp_path, answers())
+
+    def refused(path, *args, **kwargs):
+        raise PermissionError(13, "Permission denied", str(path))
+    monkeypatch.setattr(itemdata, "open", refused, raising=False)
+    with pytest.raises(StudyError, match=r"line 2: the data file 'answers\.csv' cannot be read "
+                                         r"\(Permission denied\)\. Check the file's permissions"):
+        read_items(study_for(tmp_path, name))
+
+
 def test_unreadable_data_file_says_which_format_was_expected(tmp_path):
     (tmp_path / "answers.xlsx").write_text("this is not a workbook")
     with pytest.raises(StudyError, match=r"line 2: the data file 'answers\.xlsx' could not be read "
