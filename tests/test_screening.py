@@ -338,3 +338,19 @@ def test_skewed_answers_are_detected():
     x = rng.chisquare(3, size=(300, 4)) + rng.normal(size=(300, 1))
     m = mardia_statistics(x)
     assert m.skewness_p < 1e-6 and m.kurtosis_p < 1e-3
+
+
+@pytest.mark.parametrize("n, p", [(400, 5), (60, 12)])    # the tensor and the n x n route
+def test_a_skewness_summed_on_another_thread_is_the_one_summed_here(n, p):
+    # the check sums Mardia's skewness on a second thread (screen(..., pool)); the
+    # statistics, read after the pool is closed, are the same numbers to the last bit
+    from concurrent.futures import Future, ThreadPoolExecutor
+    x = np.random.default_rng(n).gamma(2.0, size=(n, p))
+    here = screen(item_data(x))
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        there = screen(item_data(x), pool=pool)
+        assert isinstance(there.mardia.cube_sum, Future)
+        assert there.mardia.kurtosis_p == here.mardia.kurtosis_p   # at once, not waited for
+    assert there.to_dict() == here.to_dict()
+    b1, _ = brute_force_mardia(x)
+    np.testing.assert_allclose(there.mardia.skewness, b1, rtol=1e-9)

@@ -14,6 +14,7 @@ import dataclasses
 import datetime as _dt
 import functools
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -162,14 +163,18 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     data = read_items(study)
     say(f"screening {len(data.items)} items in {data.n_rows} rows")
     complete = complete_rows(np.asarray(data.values))
-    screening = screen(data, complete)
-    choice = choose_method(study, data, screening)
-    rows = _rows_used(study, data, choice)
-    n_used = int(rows.sum())
-    models = []
-    for k, spec in enumerate(study.models, start=1):
-        say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
-        models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
+    # Mardia's skewness, the n²p/2 products of the screen, is summed on a second thread
+    # while the method is chosen (from the kurtosis) and the models are fitted: the
+    # 100-item check took 40 ms instead of 45 (measured; DEVELOPERS.md, "Speed")
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        screening = screen(data, complete, pool)
+        choice = choose_method(study, data, screening)
+        rows = _rows_used(study, data, choice)
+        n_used = int(rows.sum())
+        models = []
+        for k, spec in enumerate(study.models, start=1):
+            say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
+            models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
     models = tuple(models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.comparison_keys() for m in models],

@@ -23,6 +23,7 @@ applications. Biometrika, 57, 519-530.
 from __future__ import annotations
 
 import math
+from concurrent.futures import Executor, Future
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
@@ -69,18 +70,46 @@ class Mardia:
     """Mardia's (1970) multivariate skewness b1,p and kurtosis b2,p with their tests.
 
     ``skewness_chi2`` = n b1,p / 6 on p(p+1)(p+2)/6 df; ``kurtosis_z`` =
-    (b2,p - p(p+2)) / sqrt(8p(p+2)/n), with a two-sided normal p-value.
+    (b2,p - E b2,p) / sqrt(Var b2,p) with the exact normal-sample moments of
+    Mardia (1974), with a two-sided normal p-value (:func:`mardia_statistics`).
+
+    The skewness rests on ``cube_sum`` = sum_ij (z_i' z_j)^3, which takes
+    most of the screen's time; :func:`screen` given an executor leaves it
+    computing there (a Future) while the check goes on, and the skewness
+    waits for it when first read.  The kurtosis, which the method choice
+    reads, is there at once.
     """
 
     n: int
     p: int
-    skewness: float
-    skewness_chi2: float
-    skewness_df: float
-    skewness_p: float
     kurtosis: float
     kurtosis_z: float
     kurtosis_p: float
+    cube_sum: float | Future = field(repr=False)
+
+    @property
+    def skewness(self) -> float:
+        """b1,p = (1/n^2) sum_ij (z_i' z_j)^3 (Mardia 1970)."""
+        cubes = self.cube_sum.result() if isinstance(self.cube_sum, Future) else self.cube_sum
+        return cubes / self.n ** 2
+
+    @property
+    def skewness_df(self) -> float:
+        return self.p * (self.p + 1) * (self.p + 2) / 6
+
+    @property
+    def skewness_chi2(self) -> float:
+        return self.n * self.skewness / 6
+
+    @property
+    def skewness_p(self) -> float:
+        return float(stats.chi2.sf(self.skewness_chi2, self.skewness_df))
+
+    def to_dict(self) -> dict:
+        return {"n": self.n, "p": self.p, "skewness": self.skewness,
+                "skewness_chi2": self.skewness_chi2, "skewness_df": self.skewness_df,
+                "skewness_p": self.skewness_p, "kurtosis": self.kurtosis,
+                "kurtosis_z": self.kurtosis_z, "kurtosis_p": self.kurtosis_p}
 
 
 @dataclass(frozen=True)
@@ -108,7 +137,7 @@ class Screening:
                                     for value, count in screen_.frequencies.items()}
             items.append(entry)
         mardia = None if self.mardia is None else \
-            {k: _plain(v) for k, v in asdict(self.mardia).items()}
+            {k: _plain(v) for k, v in self.mardia.to_dict().items()}
         return {"items": items, "mardia": mardia, "n_complete": int(self.n_complete)}
 
 
@@ -119,7 +148,8 @@ def _plain(value):
     return value if math.isfinite(value) else None
 
 
-def screen(data: ItemData, complete: CompleteRows | None = None) -> Screening:
+def screen(data: ItemData, complete: CompleteRows | None = None,
+           pool: Executor | None = None) -> Screening:
     """Screen each item and test multivariate normality on the complete rows.
 
     Parameters
@@ -128,6 +158,9 @@ def screen(data: ItemData, complete: CompleteRows | None = None) -> Screening:
     complete : CompleteRows, optional
         :func:`~scalewright.estimate.normal.complete_rows` of ``data.values``,
         when the caller has it (their moments are then not computed again).
+    pool : Executor, optional
+        Where Mardia's skewness sum is computed while the caller goes on
+        (:class:`Mardia`); without one it is computed here.
 
     Returns
     -------
@@ -139,7 +172,7 @@ def screen(data: ItemData, complete: CompleteRows | None = None) -> Screening:
                   for item in _items(data.items[lo:lo + width], values[:, lo:lo + width],
                                      data.n_rows))
     complete = complete or complete_rows(values)
-    mardia, distances = _mardia(values, complete.index, complete.moments)
+    mardia, distances = _mardia(values, complete.index, complete.moments, pool)
     return Screening(items=items, mardia=mardia, n_complete=len(complete.index),
                      distances=distances)
 
@@ -247,11 +280,12 @@ def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia |
     return _mardia(x, None if rows is None else np.flatnonzero(rows))[0]
 
 
-def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None
-            ) -> tuple[Mardia | None, np.ndarray | None]:
+def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None,
+            pool: Executor | None = None) -> tuple[Mardia | None, np.ndarray | None]:
     """:func:`mardia_statistics` of the ``rows`` (indices) of ``x``, and the
     squared Mahalanobis distances ``d_i' S^-1 d_i`` of those rows (None with
-    the statistics); ``moments``: their mean and ML covariance, when known."""
+    the statistics); ``moments``: their mean and ML covariance, when known;
+    ``pool``: where the skewness sum is computed (:class:`Mardia`)."""
     dt = np.array(x.T, order="C") if rows is None or len(rows) == len(x) else x.T[:, rows]
     p, n = dt.shape
     if n < max(p + 2, 4):            # the exact variance below needs n > 3
@@ -270,17 +304,27 @@ def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None
             return None, None
         whiten = linalg.solve_triangular(np.linalg.cholesky(s), np.eye(p), lower=True)
         # the n x n route costs ~n²p/2, the tensor route ~np³/3: take the cheaper
-        moment_sums = _moment_sums_by_pairs if 3 * n < 2 * p * p else _moment_sums
-        cubes, distances = moment_sums(dt, whiten)
-    b1 = cubes / n ** 2  # Mardia (1970), via the tensor identity
+        if 3 * n < 2 * p * p:
+            z = whiten @ dt
+            distances = np.einsum("ij,ij->j", z, z)
+            cube_sum = _pinned(_pair_cube_sum, z)
+        else:
+            distances = _block_distances(dt, whiten)
+            cube_sum = _pinned(_tensor_cube_sum, dt, whiten)
     b2 = float(distances @ distances) / n  # Mardia (1970)
-    df = p * (p + 1) * (p + 2) / 6
-    chi2 = n * b1 / 6
     kurtosis_z = (b2 - _kurtosis_mean(n, p)) / math.sqrt(_kurtosis_variance(n, p))
-    return Mardia(n=n, p=p, skewness=b1, skewness_chi2=chi2, skewness_df=df,
-                  skewness_p=float(stats.chi2.sf(chi2, df)), kurtosis=b2,
-                  kurtosis_z=kurtosis_z,
-                  kurtosis_p=float(2 * stats.norm.sf(abs(kurtosis_z)))), distances
+    return Mardia(n=n, p=p, kurtosis=b2, kurtosis_z=kurtosis_z,
+                  kurtosis_p=float(2 * stats.norm.sf(abs(kurtosis_z))),
+                  cube_sum=cube_sum() if pool is None else pool.submit(cube_sum)), distances
+
+
+def _pinned(function, *args):
+    """``function(*args)`` to be called later, with one BLAS thread (the
+    executor's thread is not inside the caller's limit)."""
+    def call():
+        with one_blas_thread():
+            return function(*args)
+    return call
 
 
 def _kurtosis_mean(n: int, p: int) -> float:
@@ -294,17 +338,16 @@ def _kurtosis_variance(n: int, p: int) -> float:
     return 8 * p * (p + 2) * (n - 3) * (n - p - 1) * (n - p + 1) / ((n + 1) ** 2 * (n + 3) * (n + 5))
 
 
-def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]:
-    """As :func:`_moment_sums`, straight from the definition: the cubes of
-    the n x n matrix of ``z_i' z_j``, built one block of rows at a time so
-    that memory stays at one block of rows by n.  The matrix is symmetric,
-    so each block of rows takes only its own and the later columns (about
-    n²p/2 multiply-adds in all, with blocks of at most ``_PAIR_ROWS`` rows):
-    its square diagonal part counts once, the part to its right twice, for
-    the part below the diagonal."""
-    z = whiten @ dt
+def _pair_cube_sum(z: np.ndarray) -> float:
+    """sum_i sum_j (z_i' z_j)^3 (the whitened rows z_i as the columns of ``z``,
+    p x n) straight from the definition: the cubes of the n x n matrix of
+    ``z_i' z_j``, built one block of rows at a time so that memory stays at
+    one block of rows by n.  The matrix is symmetric, so each block of rows
+    takes only its own and the later columns (about n²p/2 multiply-adds in
+    all, with blocks of at most ``_PAIR_ROWS`` rows): its square diagonal
+    part counts once, the part to its right twice, for the part below the
+    diagonal."""
     n = z.shape[1]
-    distances = np.einsum("ij,ij->j", z, z)
     width = max(1, min(_PAIR_ROWS, _CHUNK_CELLS // n))
     cubes = 0.0
     for start in range(0, n, width):
@@ -313,11 +356,22 @@ def _moment_sums_by_pairs(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np
         squared = products * products
         diagonal = float(np.vdot(squared[:, :stop - start], products[:, :stop - start]))
         cubes += 2.0 * float(np.vdot(squared, products)) - diagonal
-    return cubes, distances
+    return cubes
 
 
-def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]:
-    """sum_i sum_j (z_i' z_j)^3 and the squared distances z_i' z_i, with z_i = whiten @ d_i.
+def _block_distances(dt: np.ndarray, whiten: np.ndarray) -> np.ndarray:
+    """The squared distances z_i' z_i, z_i = whiten @ d_i, by blocks of rows."""
+    p, n = dt.shape
+    distances = np.empty(n)
+    width = max(1, _CHUNK_CELLS // p)
+    for start in range(0, n, width):
+        block = whiten @ dt[:, start:start + width]
+        distances[start:start + width] = np.einsum("ij,ij->j", block, block)
+    return distances
+
+
+def _tensor_cube_sum(dt: np.ndarray, whiten: np.ndarray) -> float:
+    """sum_i sum_j (z_i' z_j)^3, with z_i = whiten @ d_i, without the n x n matrix.
 
     `dt` holds the centred rows d_i as columns (p x n).  The double sum equals
     sum_abc T_abc^2 with T_abc = sum_i z_ia z_ib z_ic.  T is symmetric in its
@@ -330,11 +384,9 @@ def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]
     """
     p, n = dt.shape
     slabs = [np.zeros((p - k, p - k)) for k in range(p)]
-    distances = np.empty(n)
     width = max(1, _CHUNK_CELLS // p)
     for start in range(0, n, width):
         block = whiten @ dt[:, start:start + width]
-        distances[start:start + width] = np.einsum("ij,ij->j", block, block)
         for k in range(p):
             tail = block[k:]
             slabs[k] += (tail * block[k]) @ tail.T
@@ -344,4 +396,4 @@ def _moment_sums(dt: np.ndarray, whiten: np.ndarray) -> tuple[float, np.ndarray]
         weight[0, :] = weight[:, 0] = 1.5
         weight[0, 0] = 1.0
         cubes += float(np.sum(weight * slab * slab))
-    return cubes, distances
+    return cubes
