@@ -167,12 +167,13 @@ def screen(data: ItemData, complete: CompleteRows | None = None,
     Screening
     """
     values = data.values
+    complete = complete or complete_rows(values)
+    # Mardia's statistics first: with a pool, the skewness sum then runs beside the items'
+    mardia, distances = _mardia(values, complete.index, complete.moments, pool)
     width = _columns_at_once(data.n_rows)
     items = tuple(item for lo in range(0, len(data.items), width)
                   for item in _items(data.items[lo:lo + width], values[:, lo:lo + width],
                                      data.n_rows))
-    complete = complete or complete_rows(values)
-    mardia, distances = _mardia(values, complete.index, complete.moments, pool)
     return Screening(items=items, mardia=mardia, n_complete=len(complete.index),
                      distances=distances)
 
@@ -353,10 +354,14 @@ def _pair_cube_sum(z: np.ndarray) -> float:
     for start in range(0, n, width):
         stop = min(start + width, n)
         products = z[:, start:stop].T @ z[:, start:]
-        squared = products * products
-        diagonal = float(np.vdot(squared[:, :stop - start], products[:, :stop - start]))
-        cubes += 2.0 * float(np.vdot(squared, products)) - diagonal
+        square = products[:, :stop - start]
+        cubes += 2.0 * _cube_sum(products) - _cube_sum(square)
     return cubes
+
+
+def _cube_sum(x: np.ndarray) -> float:
+    """sum x^3 over every element, in one pass (no squared temporary)."""
+    return float(np.einsum("ij,ij,ij->", x, x, x))
 
 
 def _block_distances(dt: np.ndarray, whiten: np.ndarray) -> np.ndarray:

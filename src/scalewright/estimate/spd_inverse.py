@@ -11,15 +11,17 @@ from scipy.linalg import lapack
 
 def cholesky_inverse(matrix: np.ndarray):
     """``(L, A⁻¹, log|A|)``, or None when ``A`` is not positive definite.
-    ``potri`` fills the lower triangle only; the upper is mirrored from it."""
+    ``potri`` fills the lower triangle only and leaves the upper as it found
+    it, zero (``clean=True`` zeroes the factor's upper triangle), so adding
+    the transpose mirrors it, and counts the diagonal twice."""
     chol, info = lapack.dpotrf(matrix, lower=True, clean=True)
     if info != 0:
         return None
     inv, info = lapack.dpotri(chol, lower=True)
     if info != 0:
         return None
-    inv = np.tril(inv)
-    inv += np.tril(inv, -1).T
+    inv += inv.T
+    inv[np.diag_indices_from(inv)] *= 0.5
     return chol, inv, 2.0 * np.sum(np.log(np.diagonal(chol)))
 
 
