@@ -455,11 +455,17 @@ def _read_text(path: Path, separator: str, items: list[str], others: list[str]) 
     one matrix: inferring each column's type, and the data frame, made that
     read 12 ms instead of 7.  A cell that is not a number fails that parse,
     and the file is then read again with every column's type inferred, so
-    that :func:`read_items` can name the cell (a text column)."""
+    that :func:`read_items` can name the cell (a text column).  Without id or
+    grouping columns, only an empty cell is taken as missing in that parse:
+    matching every cell against the other marks cost 1 ms of the 7, and a
+    cell holding one of them ('NA') fails the number parse, so such a file is
+    read by the second parse, with every mark (pandas' 'nan' and 'NaN' read
+    as the number NaN, which is missing too)."""
     try:
-        table = _parse_text(path, separator, [*items, *others], dict.fromkeys(items, pa.float64()))
+        table = _parse_text(path, separator, [*items, *others], dict.fromkeys(items, pa.float64()),
+                            NOT_AVAILABLE if others else ("",))
     except pa.ArrowInvalid:
-        table = _parse_text(path, separator, [*items, *others], {})
+        table = _parse_text(path, separator, [*items, *others], {}, NOT_AVAILABLE)
         return _Read(table.to_pandas(), None, table.num_rows)
     numbers = np.empty((table.num_rows, len(items)))
     for j, label in enumerate(items):
@@ -467,14 +473,15 @@ def _read_text(path: Path, separator: str, items: list[str], others: list[str]) 
     return _Read(table.select(list(dict.fromkeys(others))).to_pandas(), numbers, table.num_rows)
 
 
-def _parse_text(path: Path, separator: str, labels: list[str], types: dict) -> pa.Table:
+def _parse_text(path: Path, separator: str, labels: list[str], types: dict,
+                missing: tuple[str, ...]) -> pa.Table:
     """pyarrow's parse of the ``labels`` columns (``types``: the columns whose
-    type is given rather than inferred); a column of missing cells only is float64."""
+    type is given rather than inferred; ``missing``: the cells read as
+    missing); a column of missing cells only is float64."""
     table = pacsv.read_csv(
         path, parse_options=pacsv.ParseOptions(delimiter=separator),
         convert_options=pacsv.ConvertOptions(include_columns=list(dict.fromkeys(labels)),
-                                             column_types=types,
-                                             null_values=list(NOT_AVAILABLE),
+                                             column_types=types, null_values=list(missing),
                                              strings_can_be_null=True))
     for k, kind in enumerate(table.schema.types):
         if pa.types.is_null(kind):
