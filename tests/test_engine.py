@@ -397,3 +397,23 @@ def test_information_inverse_and_its_identification_verdict_follow_the_eigenvalu
             continue
         assert_allclose(acov, np.linalg.inv(info) / 50, rtol=1e-6 if ratio > 1e-6 else 1e-3)
         assert bool(involved) == (ratio < NEARLY_SINGULAR)
+
+
+def test_the_engine_pins_blas_to_one_thread_whatever_its_caller_set(hs_x, monkeypatch):
+    # a threaded BLAS made the engine's small products several times slower on a
+    # 2-core machine (benchmarks/bench_engine.py, unpinned): fit_normal pins it itself
+    from threadpoolctl import threadpool_info, threadpool_limits
+    import scalewright.estimate.normal as normal
+    from scalewright.specify import build_layout
+    seen = []
+    optimiser = normal.fisher_scoring
+
+    def watched(*args, **kwargs):
+        seen.append({lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"})
+        return optimiser(*args, **kwargs)
+    monkeypatch.setattr(normal, "fisher_scoring", watched)
+    blocks = normal.complete_data_blocks(hs_x)
+    with threadpool_limits(limits=2, user_api="blas"):
+        normal.fit_normal(build_layout(make_spec(HS_CONSTRUCTS), blocks[0].cov), blocks)
+        after = {lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"}
+    assert seen == [{1}] and after == {2}

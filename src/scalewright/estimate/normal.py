@@ -39,15 +39,14 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-
 from scipy.linalg import lapack
 
+from scalewright.blas import one_blas_thread
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
+from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.pattern_products import pair_form
 from scalewright.estimate.spd_inverse import cholesky_inverse
-from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
-
 from scalewright.layout import Layout, Matrices, Pattern, cell_factors
 
 LOG_2PI = np.log(2.0 * np.pi)
@@ -462,11 +461,17 @@ def fit_normal(layout: Layout, blocks: tuple[Block, ...], start: np.ndarray | No
     within about ``1e-8 / i`` of the optimum, which is ``1e-8 √(N/i)`` of its
     standard error ``1/√(N i)``: below 1e-5 of a standard error up to a
     million cases, and the log-likelihood, quadratic near the optimum, is
-    exact to rounding."""
+    exact to rounding.
+
+    BLAS is pinned to one thread for the fit, whatever the caller's setting:
+    its products are small, and two BLAS threads made the 100-item fit take
+    32 ms instead of 8.5 on a 2-core machine (benchmarks/bench_engine.py,
+    unpinned; :mod:`scalewright.blas`)."""
     objective = NormalFit(layout, blocks)
     theta0 = layout.start if start is None else start
-    theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info,
-                                   grad_tol=grad_tol,
-                                   value_grad_hessian=objective.value_grad_hessian,
-                                   warm=start is not None)
+    with one_blas_thread():
+        theta, record = fisher_scoring(theta0, objective.value, objective.value_grad_info,
+                                       grad_tol=grad_tol,
+                                       value_grad_hessian=objective.value_grad_hessian,
+                                       warm=start is not None)
     return theta, record, objective
