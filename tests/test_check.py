@@ -187,6 +187,16 @@ def test_fit_only_check_gives_the_same_fit_and_estimates_without_the_later_stage
     assert "invariance" in whole and "invariance" not in quick
 
 
+def test_a_result_is_plain_data_that_can_be_pickled(demo_result):
+    # the check sums Mardia's skewness on a second thread; the result it returns holds
+    # the number, not the pending computation, so it can be copied, pickled and reloaded
+    import pickle
+    from concurrent.futures import Future
+    assert not isinstance(demo_result.screening.mardia.cube_sum, Future)
+    again = pickle.loads(pickle.dumps(demo_result))
+    assert again.to_dict() == demo_result.to_dict()
+
+
 def test_cli_fit_only_says_what_was_left_out_in_the_summary_and_the_checklist(demo_copy,
                                                                                tmp_path):
     out = tmp_path / "out"

@@ -175,6 +175,7 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
         for k, spec in enumerate(study.models, start=1):
             say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
             models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
+    screening = screening.resolved()       # plain data again (a result can be pickled)
     models = tuple(models)
     extra = {"method": choice.to_dict()}
     extra.update(compare_models(study.models, [m.comparison_keys() for m in models],

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 from concurrent.futures import Executor, Future
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 from scipy import linalg, stats
@@ -105,6 +105,13 @@ class Mardia:
     def skewness_p(self) -> float:
         return float(stats.chi2.sf(self.skewness_chi2, self.skewness_df))
 
+    def resolved(self) -> Mardia:
+        """This result with the skewness sum as a number (waited for if still
+        computing): plain data again, which can be copied and pickled."""
+        if not isinstance(self.cube_sum, Future):
+            return self
+        return replace(self, cube_sum=float(self.cube_sum.result()))
+
     def to_dict(self) -> dict:
         return {"n": self.n, "p": self.p, "skewness": self.skewness,
                 "skewness_chi2": self.skewness_chi2, "skewness_df": self.skewness_df,
@@ -127,6 +134,10 @@ class Screening:
     #: squared Mahalanobis distances of the complete rows (ML covariance), a
     #: by-product of Mardia's kurtosis that the outlier screen reuses; None with ``mardia``
     distances: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+    def resolved(self) -> Screening:
+        """This screening with Mardia's skewness sum as a number (:meth:`Mardia.resolved`)."""
+        return self if self.mardia is None else replace(self, mardia=self.mardia.resolved())
 
     def to_dict(self) -> dict:
         """JSON-able form: undefined values become None, answer values become text keys."""
