@@ -475,3 +475,15 @@ def test_random_models_match_semopy(seed):
     assert checked == len(result.estimate.theta)
     chi_square = float(semopy.calc_stats(model)["chi2"].iloc[0])
     assert_allclose(result.fit.chi_square, chi_square, rtol=1e-6)
+
+
+def test_the_condition_bound_never_exceeds_the_eigenvalue_ratio():
+    # theory: λ_min/λ_max ≥ 1/(‖A‖₁‖A⁻¹‖₁) (a norm bounds the spectral radius; Horn &
+    # Johnson 2013, ch. 5); outside reference for the ratio: numpy's eigvalsh
+    from scalewright.estimate.spd_inverse import condition_bound
+    rng = np.random.default_rng(7)
+    for scale in (1e-12, 1e-6, 1e-2, 1.0):
+        a = rng.normal(size=(12, 12))
+        a = a @ a.T + scale * np.eye(12)
+        values = np.linalg.eigvalsh(a)
+        assert condition_bound(a, np.linalg.inv(a)) <= values[0] / values[-1] * (1 + 1e-9)

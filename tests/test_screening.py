@@ -296,7 +296,9 @@ def test_screen_gives_no_mardia_when_too_few_rows_are_complete():
 
 
 def test_mardia_memory_does_not_grow_with_blocks_of_rows(monkeypatch):
+    from scalewright import outliers               # its blocks give the distances
     monkeypatch.setattr(screening, "_CHUNK_CELLS", 100_000)  # 0.8 MB blocks
+    monkeypatch.setattr(outliers, "_CHUNK_CELLS", 100_000)
     x = np.random.default_rng(0).normal(size=(200_000, 5))
     tracemalloc.start()
     mardia_statistics(x)

@@ -28,7 +28,7 @@ from scalewright.diagnostics import classified_warnings
 from scalewright.estimate.dwls import DwlsModel
 from scalewright.estimate.fiml import saturated_covariance, saturated_model
 from scalewright.estimate.normal import CompleteRows, complete_rows
-from scalewright.estimate.spd_inverse import cholesky_inverse
+from scalewright.estimate.spd_inverse import cholesky_inverse, condition_bound
 from scalewright.estimate.polychoric import collapse_sparse_columns
 from scalewright.evaluate import evaluate_moments, moments_subset, point_estimate
 from scalewright.evaluate_mixed import evaluate_mixed, refit_mixed
@@ -46,6 +46,11 @@ from scalewright.progress import say
 from scalewright.repeats import repeated_ids
 from scalewright.screening import Screening, screen
 from scalewright.studyfile import Study, load_study
+
+#: smallest eigenvalue of a model's item correlation matrix, relative to the largest,
+#: below which its sample covariance counts as singular (rounding level; common
+#: practice, no source)
+_SINGULAR = 1e-10
 
 
 @dataclass(frozen=True)
@@ -364,13 +369,10 @@ def _check_sample_covariance(spec, cov: np.ndarray) -> None:
     together."""
     correlation = cov / np.outer(np.sqrt(np.diag(cov)), np.sqrt(np.diag(cov)))
     factored = cholesky_inverse(correlation)
-    # λ_min/λ_max ≥ 1/(‖R‖₁‖R⁻¹‖₁) (a norm bounds the spectral radius; Horn & Johnson
-    # 2013, ch. 5), which spares the eigendecomposition of a well-conditioned matrix
-    if factored is not None and np.abs(correlation).sum(axis=0).max() * \
-            np.abs(factored[1]).sum(axis=0).max() < 1e10:
-        return
+    if factored is not None and condition_bound(correlation, factored[1]) > _SINGULAR:
+        return                                      # well conditioned: no eigendecomposition
     values, vectors = np.linalg.eigh(correlation)
-    if values[0] > 1e-10 * values[-1]:
+    if values[0] > _SINGULAR * values[-1]:
         return
     weights = vectors[:, 0]
     involved = [spec.items[i] for i in np.nonzero(np.abs(weights) > 0.05)[0]]

@@ -49,7 +49,7 @@ class ModelResult:
         return self.estimate.record.converged
 
     def comparison_keys(self) -> dict:
-        """The keys of :meth:`to_dict` that the rival comparison reads
+        """The first keys of :meth:`to_dict`, those the rival comparison reads
         (:func:`~scalewright.compare.compare_models`), without the tables of
         estimates, which take most of the dict's time."""
         return {"name": self.name, "converged": self.converged, "estimator": self.estimator,
@@ -59,16 +59,11 @@ class ModelResult:
     def to_dict(self) -> dict:
         est = self.estimate
         layout = est.layout
-        out = {
-            "name": self.name,
-            "converged": self.converged,
-            "estimator": self.estimator,
-            "fit": self.fit.to_dict(),
+        out = self.comparison_keys()
+        out.update({
             "optimizer": est.record.to_dict(),
             "standard_errors": STANDARD_ERRORS.get(est.method, est.method),
             "identification": list(layout.notes),
-            "n_used": est.n,
-            "items": list(layout.items),
             "constructs": [{"name": f, "kind": k} for f, k in zip(layout.factors, layout.kinds)],
             "loadings": loading_rows(est, self.std),
             "higher_order_paths": path_rows(est, self.std),
@@ -78,7 +73,7 @@ class ModelResult:
             "r_squared": [{"item": it, "value": float(v)}
                           for it, v in zip(layout.items, self.std.r_squared)],
             "warnings": list(self.warnings),
-        }
+        })
         out.update(self.extra)
         return out
 

@@ -33,7 +33,7 @@ from scalewright.estimate.normal import CompleteRows, complete_rows
 LEVEL = 0.001
 #: at most this many flagged rows are listed by name
 LISTED = 10
-_CHUNK = 65536
+_CHUNK_CELLS = 2_000_000   # cells of one block of rows (16 MB)
 
 
 @dataclass(frozen=True)
@@ -86,20 +86,33 @@ def mahalanobis_outliers(values: np.ndarray, row_labels=None,
 
 
 def _squared_distances(values: np.ndarray, complete: CompleteRows) -> np.ndarray | None:
-    """``D²_i`` of the complete rows, by row chunks through the Cholesky factor
-    of their covariance; None when it is singular."""
+    """``D²_i`` of the complete rows, through the Cholesky factor of their
+    covariance; None when it is singular."""
     index, mean, cov = complete.index, complete.moments.mean, complete.moments.cov
-    x = values[index] if len(index) < len(values) else values
     try:
         chol = linalg.cholesky(cov, lower=True, check_finite=False)
     except linalg.LinAlgError:
         return None
-    d2 = np.empty(len(index))
-    for start in range(0, len(index), _CHUNK):
-        z = linalg.solve_triangular(chol, (x[start:start + _CHUNK] - mean).T, lower=True,
-                                    check_finite=False)
-        d2[start:start + _CHUNK] = np.einsum("ij,ij->j", z, z)
-    return d2
+    whiten = linalg.solve_triangular(chol, np.eye(len(cov)), lower=True, check_finite=False)
+    return squared_distances(values[index] if len(index) < len(values) else values, whiten,
+                             mean)
+
+
+def squared_distances(rows: np.ndarray, whiten: np.ndarray,
+                      mean: np.ndarray | None = None) -> np.ndarray:
+    """``‖W (x_i − x̄)‖²`` for the rows ``x_i`` of ``rows`` (n × p), with
+    ``W = L⁻¹`` for ``S = LLᵀ``: the squared Mahalanobis distances ``(x_i −
+    x̄)ᵀ S⁻¹ (x_i − x̄)``.  Rows already centred are given without ``mean``.
+    Computed by blocks of rows, so that memory beyond the result stays at one
+    block (the item screen's Mardia kurtosis uses it too)."""
+    n, p = rows.shape
+    out = np.empty(n)
+    width = max(1, _CHUNK_CELLS // max(p, 1))
+    for start in range(0, n, width):
+        block = rows[start:start + width]
+        z = whiten @ (block if mean is None else block - mean).T
+        out[start:start + width] = np.einsum("ij,ij->j", z, z)
+    return out
 
 
 def item_correlations(values: np.ndarray, items, saturated_cov: np.ndarray | None = None,

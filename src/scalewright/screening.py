@@ -32,6 +32,7 @@ from scipy import linalg, stats
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.normal import Block, CompleteRows, complete_rows
 from scalewright.itemdata import ItemData
+from scalewright.outliers import squared_distances
 from scalewright.studyfile import format_code
 
 _MAX_FREQUENCIES = 15  # answer counts are kept for items with at most this many distinct values
@@ -321,7 +322,7 @@ def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None
             distances = np.einsum("ij,ij->j", z, z)
             cube_sum = _pinned(_pair_cube_sum, z)
         else:
-            distances = _block_distances(dt, whiten)
+            distances = squared_distances(dt.T, whiten)
             cube_sum = _pinned(_tensor_cube_sum, dt, whiten)
     b2 = float(distances @ distances) / n  # Mardia (1970)
     kurtosis_z = (b2 - _kurtosis_mean(n, p)) / math.sqrt(_kurtosis_variance(n, p))
@@ -373,17 +374,6 @@ def _pair_cube_sum(z: np.ndarray) -> float:
 def _cube_sum(x: np.ndarray) -> float:
     """sum x^3 over every element, in one pass (no squared temporary)."""
     return float(np.einsum("ij,ij,ij->", x, x, x))
-
-
-def _block_distances(dt: np.ndarray, whiten: np.ndarray) -> np.ndarray:
-    """The squared distances z_i' z_i, z_i = whiten @ d_i, by blocks of rows."""
-    p, n = dt.shape
-    distances = np.empty(n)
-    width = max(1, _CHUNK_CELLS // p)
-    for start in range(0, n, width):
-        block = whiten @ dt[:, start:start + width]
-        distances[start:start + width] = np.einsum("ij,ij->j", block, block)
-    return distances
 
 
 def _tensor_cube_sum(dt: np.ndarray, whiten: np.ndarray) -> float:

@@ -8,7 +8,7 @@ from functools import cached_property
 import numpy as np
 
 from scalewright.estimate.fisher import OptimizerRecord
-from scalewright.estimate.spd_inverse import cholesky_inverse
+from scalewright.estimate.spd_inverse import cholesky_inverse, condition_bound
 from scalewright.layout import Layout, Matrices
 
 
@@ -105,8 +105,6 @@ def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tup
     ----------
     Rothenberg, T. J. (1971). Identification in parametric models.
     Econometrica 39, 577–591.
-    Horn, R. A. & Johnson, C. R. (2013). Matrix Analysis (2nd ed.). Cambridge
-    University Press.
     Rindskopf, D. (1984). Structural equation models: empirical identification,
     Heywood cases, and related problems. Sociological Methods & Research 13, 109–119.
     """
@@ -115,12 +113,7 @@ def invert_information(info: np.ndarray, n: int) -> tuple[np.ndarray | None, tup
     factored = cholesky_inverse(scaled)
     if factored is not None:
         inverse = factored[1]
-        # a norm bounds the spectral radius, so λ_max ≤ ‖I‖₁ and 1/λ_min ≤ ‖I⁻¹‖₁: the
-        # ratio is at least 1/(‖I‖₁‖I⁻¹‖₁), which spares the eigendecomposition when the
-        # model is well conditioned (a spectral radius is at most any matrix norm;
-        # Horn & Johnson 2013, ch. 5)
-        bound = 1.0 / (np.abs(scaled).sum(axis=0).max() * np.abs(inverse).sum(axis=0).max())
-        if bound >= NEARLY_SINGULAR:
+        if condition_bound(scaled, inverse) >= NEARLY_SINGULAR:   # no eigendecomposition needed
             return inverse / np.outer(d, d) / n, ()
     values, vectors = np.linalg.eigh(scaled)
     ratio = float(values[0] / max(values[-1], 1e-300))

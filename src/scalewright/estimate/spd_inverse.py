@@ -32,3 +32,12 @@ def spd_inverse(matrix: np.ndarray) -> np.ndarray:
     apart), and by LU when ``A`` turns out not to be positive definite."""
     out = cholesky_inverse(matrix)
     return np.linalg.inv(matrix) if out is None else out[1]
+
+
+def condition_bound(matrix: np.ndarray, inverse: np.ndarray) -> float:
+    """A lower bound on ``λ_min/λ_max`` of a symmetric positive definite ``A``
+    from ``A`` and ``A⁻¹``: a matrix norm bounds the spectral radius, so
+    ``λ_max ≤ ‖A‖₁`` and ``1/λ_min ≤ ‖A⁻¹‖₁``, and the ratio is at least
+    ``1/(‖A‖₁‖A⁻¹‖₁)`` (Horn & Johnson 2013, Matrix Analysis, 2nd ed., ch. 5).
+    A bound above a threshold spares an eigendecomposition."""
+    return 1.0 / (np.abs(matrix).sum(axis=0).max() * np.abs(inverse).sum(axis=0).max())
