@@ -184,3 +184,77 @@ def test_newton_phase_lands_where_fisher_scoring_lands_on_misspecified_models():
             # tolerance: both stop at a gradient of 1e-8, i.e. ~1e-7 from the optimum
             assert_allclose(newton, plain, rtol=0, atol=1e-6)
             assert record.iterations <= plain_record.iterations
+
+
+def _misfitting_sample(n_items, n_constructs, seed):
+    """A sample from a correlated-constructs population with one unmodelled
+    cross-loading per construct, so a model without them misfits."""
+    per = n_items // n_constructs
+    names = [f"i{k}" for k in range(n_items)]
+    constructs = {f"f{j}": tuple(names[per * j:per * (j + 1)]) for j in range(n_constructs)}
+    rng = np.random.default_rng(seed)
+    lam = np.kron(np.eye(n_constructs), np.ones((per, 1))) * rng.uniform(0.5, 0.8, (n_items, 1))
+    for j in range(n_constructs):
+        lam[per * j, (j + 1) % n_constructs] = 0.2
+    phi = np.full((n_constructs, n_constructs), 0.3) + 0.7 * np.eye(n_constructs)
+    x, _ = simulate_cfa(rng, lam, phi, 2000, residual=np.diag(1.0 - np.diag(lam @ phi @ lam.T)))
+    return make_spec(constructs), x
+
+
+@pytest.mark.parametrize("n_items, n_constructs", [(30, 5), (60, 6)])
+def test_chord_steps_contract_about_twice_as_little_as_the_newton_step_before_them(
+        n_items, n_constructs):
+    # theory (Kelley 1995, Iterative Methods for Linear and Nonlinear Equations, ch. 5):
+    # a Newton step from error e0 leaves e1 ~ (gamma/2)|H^-1| e0^2, and chord steps
+    # with that step's Hessian contract by gamma|H^-1| e0 = 2 e1/e0; fisher._keep_factor
+    # predicts the chord steps from the Newton step's shrink r as 2r.  Tolerance: a
+    # factor 2 either way, since the largest gradient element only tracks the error
+    spec, x = _misfitting_sample(n_items, n_constructs, seed=n_items)
+    blocks = complete_data_blocks(x)
+    layout = build_layout(spec, blocks[0].cov)
+    fit = NormalFit(layout, blocks)
+    _, g0, info = fit.value_grad_info(layout.start)
+    theta1 = layout.start - np.linalg.solve(info, g0)          # the Fisher step
+    _, g1, hessian = fit.value_grad_hessian(theta1)
+    h1 = hessian()
+    theta2 = theta1 - np.linalg.solve(h1, g1)                  # a Newton step
+    g2 = fit.value_grad_hessian(theta2)[1]
+    theta3 = theta2 - np.linalg.solve(h1, g2)                  # a chord step
+    g3 = fit.value_grad_hessian(theta3)[1]
+    largest = lambda g: np.abs(g).max()                        # noqa: E731
+    newton_shrink, chord_shrink = largest(g2) / largest(g1), largest(g3) / largest(g2)
+    assert newton_shrink < 0.05                                # near the optimum
+    assert 0.5 <= chord_shrink / (2.0 * newton_shrink) <= 2.0
+
+
+def test_cold_fits_end_with_chord_steps_that_save_hessians_and_keep_the_solution(monkeypatch):
+    # theory: chord and Newton steps find the same root of the gradient (Kelley 1995,
+    # ch. 5), so the estimates must not move; a chord step is taken only where two are
+    # predicted to finish, i.e. in place of a Newton step, so a fit never computes more
+    # Hessians than with Newton steps alone, and here (the last Newton step of both
+    # fits shrinks the gradient about a thousand-fold) it computes fewer
+    from scalewright.estimate import fisher
+    original_terms, original_keep = NormalFit.value_grad_hessian, fisher._keep_factor
+    for n_items, n_constructs in ((100, 10), (12, 3)):
+        spec, x = _misfitting_sample(n_items, n_constructs, seed=n_items)
+        blocks = complete_data_blocks(x)
+        layout = build_layout(spec, blocks[0].cov)
+        hessians = []
+
+        def counted(self, theta):
+            value, grad, hessian = original_terms(self, theta)
+
+            def counting():
+                hessians.append(1)
+                return hessian()
+            return value, grad, counting
+        monkeypatch.setattr(NormalFit, "value_grad_hessian", counted)
+        with_chords, record, _ = fit_normal(layout, blocks)
+        chord_hessians = len(hessians)
+        monkeypatch.setattr(fisher, "_keep_factor", lambda *args: False)
+        newton_only, newton_record, _ = fit_normal(layout, blocks)
+        monkeypatch.setattr(fisher, "_keep_factor", original_keep)
+        assert record.converged and newton_record.converged
+        # tolerance: both stop at a gradient of 1e-8, i.e. ~1e-7 from the optimum
+        assert_allclose(with_chords, newton_only, rtol=0, atol=1e-6)
+        assert chord_hessians < len(hessians) - chord_hessians
