@@ -430,7 +430,24 @@ def test_random_models_match_semopy(seed):
     # speak of), chi-square within 1e-6
     rng = np.random.default_rng(1000 + seed)
     m, per = int(rng.integers(2, 5)), int(rng.integers(3, 6))
-    n = int(rng.choice([150, 400, 2000]))
+    _check_random_model_against_semopy(rng, seed, m, per, int(rng.choice([150, 400, 2000])))
+
+
+@pytest.mark.parametrize("seed, m, per", [(0, 4, 12), (1, 5, 10)])
+def test_random_models_of_many_items_match_semopy(seed, m, per):
+    # outside reference: semopy 2.3.11 as above, for 48 and 50 items, where the implied
+    # covariance is inverted through its factor structure (estimate/factor_inverse.py)
+    # and cold fits end with chord steps (estimate/fisher.py)
+    from scalewright.estimate import factor_inverse
+    assert factor_inverse.applies(m * per, m, diagonal_residuals=True)
+    rng = np.random.default_rng(2000 + seed)
+    _check_random_model_against_semopy(rng, seed + 1, m, per, 1000, residual_pairs=False)
+
+
+def _check_random_model_against_semopy(rng, seed, m, per, n, residual_pairs=True):
+    """The random model of ``test_random_models_match_semopy`` with ``m`` constructs
+    of ``per`` items and ``n`` cases; odd seeds add a cross-loading, seeds divisible
+    by 3 a residual covariance (when ``residual_pairs``)."""
     items = [f"v{k}" for k in range(m * per)]
     constructs = {f"F{j}": tuple(items[j * per:(j + 1) * per]) for j in range(m)}
     loadings = np.zeros((m * per, m))
@@ -445,7 +462,7 @@ def test_random_models_match_semopy(seed):
     np.fill_diagonal(phi, 1.0)
     x, _ = simulate_cfa(rng, loadings, phi, n)
     x = x * rng.uniform(0.5, 3.0, m * per) + rng.uniform(-2.0, 5.0, m * per)
-    residual = ((items[0], items[per]),) if seed % 3 == 0 else ()
+    residual = ((items[0], items[per]),) if seed % 3 == 0 and residual_pairs else ()
     result = evaluate_normal(make_spec(constructs, cross_loadings=cross,
                                        residual_covariances=residual,
                                        identification="marker"), x)

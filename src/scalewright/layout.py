@@ -124,6 +124,13 @@ class Pattern:
     def has_means(self) -> bool:
         return len(self.intercepts) > 0 or len(self.latent_means) > 0
 
+    @cached_property
+    def diagonal_residuals(self) -> bool:
+        """Whether ``Θ`` is diagonal at every parameter value (no residual covariances)."""
+        fixed = self.fixed.residuals
+        return (bool(np.all(self.residuals.rows == self.residuals.cols))
+                and np.count_nonzero(fixed) == np.count_nonzero(np.diagonal(fixed)))
+
     def matrices(self, theta: np.ndarray) -> Matrices:
         """Fill the free cells with ``theta``."""
         f = self.fixed

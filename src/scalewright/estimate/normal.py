@@ -44,6 +44,7 @@ from scipy.linalg import lapack
 from scalewright.blas import one_blas_thread
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
+from scalewright.estimate import factor_inverse
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.pattern_products import pair_form
 from scalewright.estimate.spd_inverse import cholesky_inverse
@@ -185,9 +186,10 @@ class NormalFit:
         not positive definite), computed once per ``θ`` (see the class docstring)."""
         key = theta.tobytes()
         if self._last.get("key") != key:
-            parts = [_complete_inverse(mats.implied_cov) if stack.complete
+            parts = [_complete_inverse(pattern, mats) if stack.complete
                      else embedded_inverse(mats.implied_cov, stack.observed)
-                     for stack, mats in zip(self._stacks, self._all_matrices(theta))]
+                     for stack, pattern, mats in zip(self._stacks, self.layout.patterns,
+                                                     self._all_matrices(theta))]
             self._last.update(key=key, parts=parts)
         return self._last["parts"]
 
@@ -346,11 +348,18 @@ def _embedded_cholesky_inverse(sigma: np.ndarray, observed: np.ndarray):
     return v * mask, logdet
 
 
-def _complete_inverse(sigma: np.ndarray):
+def _complete_inverse(pattern: Pattern, mats: Matrices):
     """``Σ⁻¹`` and ``log|Σ|`` shaped as :func:`embedded_inverse` returns them for
-    one pattern that observes every item (``cholesky_inverse``, without the
-    batch machinery); None when ``Σ`` is not positive definite."""
-    full = cholesky_inverse(sigma)
+    one pattern that observes every item, without the batch machinery: through
+    the factor structure where that is cheaper
+    (:mod:`~scalewright.estimate.factor_inverse`), else by ``cholesky_inverse``;
+    None when ``Σ`` is not positive definite."""
+    if factor_inverse.applies(pattern.p, pattern.m, pattern.diagonal_residuals):
+        parts = factor_inverse.inverse(mats)
+        if parts is not None:
+            inv, logdet = parts
+            return inv[None], np.array([logdet])
+    full = cholesky_inverse(mats.implied_cov)
     if full is None:
         return None
     _, inv, logdet = full
