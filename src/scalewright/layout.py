@@ -125,6 +125,11 @@ class Pattern:
         return len(self.intercepts) > 0 or len(self.latent_means) > 0
 
     @cached_property
+    def cell_columns(self) -> "CellColumns":
+        """The free cells' columns in :class:`CellFactors` (they depend on the pattern alone)."""
+        return _cell_columns(self)
+
+    @cached_property
     def diagonal_residuals(self) -> bool:
         """Whether ``Θ`` is diagonal at every parameter value (no residual covariances)."""
         fixed = self.fixed.residuals
@@ -283,18 +288,43 @@ class CellFactors:
 
 
 def cell_factors(pattern: Pattern, mats: Matrices) -> CellFactors:
-    """The factors of :func:`cell_derivatives` (see its table) in index form."""
-    p, m = pattern.p, pattern.m
+    """The factors of :func:`cell_derivatives` (see its table) in index form;
+    the indices depend on the pattern alone (:attr:`Pattern.cell_columns`)."""
+    p = pattern.p
     a_mat = mats.total_effects
     h = mats.loadings @ a_mat
     g = mats.loadings @ (a_mat @ mats.disturbances @ a_mat.T)
-    u = np.hstack([np.eye(p), h, np.zeros((p, 1))])
-    w = np.hstack([np.eye(p), g, h, np.zeros((p, 1))])
-    u_zero, w_zero = p + m, p + 2 * m
+    eye = np.eye(p)
+    u = np.hstack([eye, h, np.zeros((p, 1))])
+    w = np.hstack([eye, g, h, np.zeros((p, 1))])
+    cols = pattern.cell_columns
+    if cols.mu_index is None:
+        return CellFactors(u, w, cols.a_index, cols.b_index, cols.b_scale, None, None)
+    kappa = a_mat @ mats.latent_means
+    lam, pth = pattern.loadings, pattern.paths
+    n_cov = len(pattern.disturbances) + len(pattern.residuals)
+    n_means = len(pattern.intercepts) + len(pattern.latent_means)
+    mu_scale = np.concatenate([kappa[lam.cols], kappa[pth.cols], np.zeros(n_cov), np.ones(n_means)])
+    return CellFactors(u, w, cols.a_index, cols.b_index, cols.b_scale, cols.mu_index, mu_scale)
 
+
+@dataclass(frozen=True)
+class CellColumns:
+    """Which columns of ``U`` and ``W`` each free cell takes (and ``b``'s scale),
+    in :class:`CellFactors`' terms; ``mu_index`` is None without a mean structure."""
+
+    a_index: np.ndarray
+    b_index: np.ndarray
+    b_scale: np.ndarray
+    mu_index: np.ndarray | None
+
+
+def _cell_columns(pattern: Pattern) -> CellColumns:
+    """:class:`CellColumns` of a pattern, from :func:`cell_derivatives`' table."""
+    p, m = pattern.p, pattern.m
+    u_zero, w_zero = p + m, p + 2 * m
     lam, pth, psi, res = pattern.loadings, pattern.paths, pattern.disturbances, pattern.residuals
-    n_nu, n_al = len(pattern.intercepts), len(pattern.latent_means)
-    n_means = n_nu + n_al
+    n_means = len(pattern.intercepts) + len(pattern.latent_means)
     a_index = np.concatenate([lam.rows, p + pth.rows, p + psi.rows, res.rows,
                               np.full(n_means, u_zero)])
     b_index = np.concatenate([p + lam.cols, p + pth.cols, p + m + psi.cols, res.cols,
@@ -302,11 +332,9 @@ def cell_factors(pattern: Pattern, mats: Matrices) -> CellFactors:
     b_scale = np.concatenate([np.ones(len(lam) + len(pth)),
                               np.where(psi.rows == psi.cols, 0.5, 1.0),
                               np.where(res.rows == res.cols, 0.5, 1.0), np.zeros(n_means)])
-    if not pattern.has_means:
-        return CellFactors(u, w, a_index, b_index, b_scale, None, None)
-    kappa = a_mat @ mats.latent_means
-    mu_index = np.concatenate([lam.rows, p + pth.rows, np.full(len(psi) + len(res), u_zero),
-                               pattern.intercepts.rows, p + pattern.latent_means.rows])
-    mu_scale = np.concatenate([kappa[lam.cols], kappa[pth.cols], np.zeros(len(psi) + len(res)),
-                               np.ones(n_means)])
-    return CellFactors(u, w, a_index, b_index, b_scale, mu_index, mu_scale)
+    mu_index = None
+    if pattern.has_means:
+        mu_index = np.concatenate([lam.rows, p + pth.rows, np.full(len(psi) + len(res), u_zero),
+                                   pattern.intercepts.rows, p + pattern.latent_means.rows])
+    return CellColumns(*(None if a is None else _read_only(a)
+                         for a in (a_index, b_index, b_scale, mu_index)))
