@@ -18,7 +18,11 @@ and unpinned = as many threads as cores), in the same run:
   in a fresh child process with the same BLAS setting (after one small
   untimed fit that pays its set-up costs).
 
-Each time is the median of several wall-clock runs; the ratio is also given
+Each size and setting is timed in ``--rounds`` rounds, each timing ours and
+then semopy's, so that both meet the shared machine's slow and fast spells
+(on one day the same code's medians moved by half between runs minutes
+apart); the "rounds" column gives the lowest and highest of the rounds'
+ratios.  Each time is the median of the rounds' wall-clock runs pooled; the ratio is also given
 in CPU time (``time.process_time``), which waiting for a busy core does not
 stretch.  semopy's runs stop once they have
 taken ``--semopy-budget`` seconds for a size and setting (at least one run),
@@ -47,8 +51,8 @@ from pathlib import Path
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from common import (describe_machine, machine_state, model_spec, normal_sample, population,
-                    semopy_description, semopy_runs, timed)
+from common import (SemopyRuns, Timing, describe_machine, machine_state, model_spec,
+                    normal_sample, population, semopy_description, semopy_runs, timed)
 
 from scalewright.estimate.normal import complete_data_blocks, fit_normal
 from scalewright.evaluate import evaluate_normal
@@ -89,14 +93,21 @@ def bench_size(n_items, n_constructs, args) -> dict:
            "df": int(result.fit.df), "chi_square": float(result.fit.chi_square),
            "iterations": int(result.estimate.record.iterations), "settings": {}}
     for name, threads in SETTINGS:
-        with threadpool_limits(limits=threads, user_api="blas"):
-            fit = timed(lambda: engine_fit(spec, x), args.repeat, warmup=1)
-            evaluate = timed(lambda: evaluate_normal(spec, x), args.repeat, warmup=1)
-        theirs = semopy_runs(description, frame, threads=threads, repeat=args.semopy_repeat,
-                             budget=args.semopy_budget, limit=args.semopy_limit)
+        fits, evaluates, semopys = [], [], []
+        for _ in range(args.rounds):
+            with threadpool_limits(limits=threads, user_api="blas"):
+                fits.append(timed(lambda: engine_fit(spec, x), args.repeat, warmup=1))
+                evaluates.append(timed(lambda: evaluate_normal(spec, x), args.repeat, warmup=1))
+            semopys.append(semopy_runs(description, frame, threads=threads,
+                                       repeat=args.semopy_repeat, budget=args.semopy_budget,
+                                       limit=args.semopy_limit))
+        fit, evaluate = Timing.pooled(fits), Timing.pooled(evaluates)
+        theirs = SemopyRuns.pooled(semopys)
+        rounds = [ratio(s.median, f.median) for s, f in zip(semopys, fits) if s.times]
         out["settings"][name] = {
             "threads": threads, "fit": fit.to_dict(), "evaluate": evaluate.to_dict(),
             "semopy": theirs.to_dict(), "semopy_shown": theirs.shown(),
+            "ratio_fit_rounds": rounds,
             "ratio_fit": ratio(theirs.median, fit.median),
             "ratio_fit_cpu": ratio(theirs.cpu_median, fit.cpu_median),
             "ratio_evaluate": ratio(theirs.median, evaluate.median),
@@ -116,14 +127,20 @@ def _x(value: float | None, width: int) -> str:
     return f"{'-':>{width}}" if value is None else f"{value:{width - 1}.0f}x"
 
 
+def _span(values: list[float], width: int) -> str:
+    """Lowest–highest of the rounds' ratios."""
+    text = f"{min(values):.0f}-{max(values):.0f}x" if values else "-"
+    return f"{text:>{width}}"
+
+
 def _e(value: float | None, width: int) -> str:
     return f"{'not run':>{width}}" if value is None else f"{value:{width}.1e}"
 
 
 def table(rows: list[dict]) -> str:
     head = (f"{'items/constr':>12} {'BLAS':>8} {'fit ms':>8} {'eval ms':>8} {'semopy s':>9} "
-            f"{'runs':>4} {'semopy/fit':>10} {'(CPU time)':>10} {'semopy/eval':>11} "
-            f"{'chi2 rel diff':>13}")
+            f"{'runs':>4} {'semopy/fit':>10} {'rounds':>11} {'(CPU time)':>10} "
+            f"{'semopy/eval':>11} {'chi2 rel diff':>13}")
     lines = [head, "-" * len(head)]
     for r in rows:
         for name, s in r["settings"].items():
@@ -131,7 +148,8 @@ def table(rows: list[dict]) -> str:
                 f"{r['items']:>7}/{r['constructs']:<4} {name:>8} "
                 f"{1e3 * s['fit']['median_s']:8.1f} {1e3 * s['evaluate']['median_s']:8.1f} "
                 f"{s['semopy_shown']:>9} {s['semopy']['repeats']:>4} "
-                f"{_x(s['ratio_fit'], 10)} {_x(s['ratio_fit_cpu'], 10)} "
+                f"{_x(s['ratio_fit'], 10)} {_span(s['ratio_fit_rounds'], 11)} "
+                f"{_x(s['ratio_fit_cpu'], 10)} "
                 f"{_x(s['ratio_evaluate'], 11)} "
                 f"{_e(s['chi2_rel_diff_default'], 13)}")
     lines += ["", f"{'items/constr':>12} {'df':>6} {'iter':>4} {'chi2 ours':>12} "
@@ -149,8 +167,12 @@ def main() -> None:
     parser.add_argument("--sizes", default=",".join(f"{p}/{k}" for p, k in SIZES),
                         help="items/constructs pairs, comma-separated (default: all five)")
     parser.add_argument("--rows", type=int, default=N_ROWS)
-    parser.add_argument("--repeat", type=int, default=7, help="timed runs of ours")
-    parser.add_argument("--semopy-repeat", type=int, default=3, help="most timed semopy runs")
+    parser.add_argument("--repeat", type=int, default=7, help="timed runs of ours per round")
+    parser.add_argument("--semopy-repeat", type=int, default=3,
+                        help="most timed semopy runs per round")
+    parser.add_argument("--rounds", type=int, default=3,
+                        help="rounds per size and setting, each timing ours and then semopy, so "
+                             "that both meet the machine's slow and fast spells (default 3)")
     parser.add_argument("--semopy-budget", type=float, default=60.0,
                         help="no further semopy run starts after this many seconds per size "
                              "and setting")

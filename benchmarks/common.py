@@ -188,6 +188,12 @@ class Timing:
         return {"median_s": self.median, "min_s": min(self.times), "max_s": max(self.times),
                 "cpu_median_s": self.cpu_median, "repeats": len(self.times)}
 
+    @classmethod
+    def pooled(cls, parts: list["Timing"]) -> "Timing":
+        """The runs of several timings (rounds) as one; the last round's value."""
+        return cls(tuple(t for p in parts for t in p.times), tuple(c for p in parts for c in p.cpu),
+                   parts[-1].value)
+
 
 def timed(function: Callable[[], object], repeat: int, warmup: int = 0,
           budget: float = float("inf")) -> Timing:
@@ -241,6 +247,13 @@ class SemopyRuns:
     def shown(self) -> str:
         """Median seconds, or "> limit" when no run finished."""
         return f"{self.median:.2f}" if self.times else f">{self.limit:.0f}"
+
+    @classmethod
+    def pooled(cls, parts: list["SemopyRuns"]) -> "SemopyRuns":
+        """The runs of several children (rounds) as one."""
+        return cls(tuple(t for p in parts for t in p.times), tuple(c for p in parts for c in p.cpu),
+                   next((p.chi_square for p in parts if p.chi_square is not None), None),
+                   any(p.stopped for p in parts), parts[0].limit)
 
 
 def semopy_runs(description: str, frame, *, threads: int, repeat: int, budget: float,
