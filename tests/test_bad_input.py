@@ -139,3 +139,26 @@ def test_non_convergence_message_names_the_model_line_and_the_fix(tmp_path, hs_d
         " ".join(err.split())
     assert "did not converge" in err and "identification: marker" in err
     assert "Traceback" not in err
+
+
+def test_an_error_after_the_screen_stops_the_skewness_sum_instead_of_waiting_for_it(
+        tmp_path, rng, monkeypatch):
+    # Mardia's skewness sum runs on a second thread while the models are fitted
+    # (api._checked); a model the check refuses at its fit must end that sum through
+    # its stop flag, not wait for it (on a million rows the sum takes seconds).  The
+    # stand-in sum waits for the flag for at most a minute and records how it ended
+    from scalewright import screening
+    ended = []
+
+    def slow_sum(*args):
+        stop = args[-1]
+        ended.append("stopped" if stop.wait(timeout=60) else "timed out")
+        return float("nan")
+    monkeypatch.setattr(screening, "_pair_cube_sum", slow_sum)
+    monkeypatch.setattr(screening, "_tensor_cube_sum", slow_sum)
+    data = pd.DataFrame(likert(rng, 200, 3), columns=["a1", "a2", "a3"])
+    models = ("  m:\n    constructs:\n      a: [a1, a2, a3]\n"
+              "    residual_covariances:\n      - [a1, a2]\n      - [a1, a3]\n      - [a2, a3]\n")
+    with pytest.raises(StudyError, match=r"model 'm' has 9 free parameters"):
+        scalewright.check(write_study(tmp_path, models, data))
+    assert ended == ["stopped"]

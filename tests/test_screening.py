@@ -356,3 +356,15 @@ def test_a_skewness_summed_on_another_thread_is_the_one_summed_here(n, p):
     assert there.to_dict() == here.to_dict()
     b1, _ = brute_force_mardia(x)
     np.testing.assert_allclose(there.mardia.skewness, b1, rtol=1e-9)
+
+
+def test_a_set_stop_flag_ends_either_skewness_route_without_a_number():
+    # screen(..., stop): the check sets the flag when a later stage fails, and the sum
+    # on the second thread then gives up at its next block instead of finishing
+    import threading
+    from scalewright.screening import _pair_cube_sum, _tensor_cube_sum
+    x = np.random.default_rng(5).standard_normal((5, 200))
+    stop = threading.Event()
+    assert np.isfinite(_pair_cube_sum(x, stop)) and np.isfinite(_tensor_cube_sum(x, np.eye(5), stop))
+    stop.set()
+    assert math.isnan(_pair_cube_sum(x, stop)) and math.isnan(_tensor_cube_sum(x, np.eye(5), stop))

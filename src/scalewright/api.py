@@ -13,6 +13,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import functools
+import threading
 import warnings
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -171,15 +172,22 @@ def _checked(study: Study, fit_only: bool = False) -> CheckResult:
     # Mardia's skewness, the n²p/2 products of the screen, is summed on a second thread
     # while the method is chosen (from the kurtosis) and the models are fitted: the
     # 100-item check took 40 ms instead of 45 (measured; DEVELOPERS.md, "Speed")
+    # An error (or an interrupt) in those stages sets `stop`, which ends the sum at its next
+    # block, so that the message is not held back until the sum is done
+    stop = threading.Event()
     with ThreadPoolExecutor(max_workers=1) as pool:
-        screening = screen(data, complete, pool)
-        choice = choose_method(study, data, screening)
-        rows = _rows_used(study, data, choice)
-        n_used = int(rows.sum())
-        models = []
-        for k, spec in enumerate(study.models, start=1):
-            say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
-            models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
+        try:
+            screening = screen(data, complete, pool, stop)
+            choice = choose_method(study, data, screening)
+            rows = _rows_used(study, data, choice)
+            n_used = int(rows.sum())
+            models = []
+            for k, spec in enumerate(study.models, start=1):
+                say(f"model '{spec.name}' ({k} of {len(study.models)}): fitting")
+                models.append(_fit_placed(study, spec, data, rows, choice, complete, fit_only))
+        except BaseException:
+            stop.set()
+            raise
     screening = screening.resolved()       # plain data again (a result can be pickled)
     models = tuple(models)
     extra = {"method": choice.to_dict()}

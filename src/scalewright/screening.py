@@ -25,6 +25,7 @@ from __future__ import annotations
 import math
 from concurrent.futures import Executor, Future
 from dataclasses import asdict, dataclass, field, replace
+from threading import Event
 
 import numpy as np
 from scipy import linalg, stats
@@ -161,7 +162,7 @@ def _plain(value):
 
 
 def screen(data: ItemData, complete: CompleteRows | None = None,
-           pool: Executor | None = None) -> Screening:
+           pool: Executor | None = None, stop: Event | None = None) -> Screening:
     """Screen each item and test multivariate normality on the complete rows.
 
     Parameters
@@ -173,6 +174,10 @@ def screen(data: ItemData, complete: CompleteRows | None = None,
     pool : Executor, optional
         Where Mardia's skewness sum is computed while the caller goes on
         (:class:`Mardia`); without one it is computed here.
+    stop : threading.Event, optional
+        Set by a caller that gives up (an error in a later stage): the sum on
+        the pool then ends at its next block of rows, with NaN, instead of
+        holding the error's message back until it is done.
 
     Returns
     -------
@@ -181,7 +186,7 @@ def screen(data: ItemData, complete: CompleteRows | None = None,
     values = data.values
     complete = complete or complete_rows(values)
     # Mardia's statistics first: with a pool, the skewness sum then runs beside the items'
-    mardia, distances = _mardia(values, complete.index, complete.moments, pool)
+    mardia, distances = _mardia(values, complete.index, complete.moments, pool, stop)
     width = _columns_at_once(data.n_rows)
     items = tuple(item for lo in range(0, len(data.items), width)
                   for item in _items(data.items[lo:lo + width], values[:, lo:lo + width],
@@ -294,11 +299,13 @@ def mardia_statistics(x: np.ndarray, rows: np.ndarray | None = None) -> Mardia |
 
 
 def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None,
-            pool: Executor | None = None) -> tuple[Mardia | None, np.ndarray | None]:
+            pool: Executor | None = None,
+            stop: Event | None = None) -> tuple[Mardia | None, np.ndarray | None]:
     """:func:`mardia_statistics` of the ``rows`` (indices) of ``x``, and the
     squared Mahalanobis distances ``d_i' S^-1 d_i`` of those rows (None with
     the statistics); ``moments``: their mean and ML covariance, when known;
-    ``pool``: where the skewness sum is computed (:class:`Mardia`)."""
+    ``pool`` and ``stop``: where the skewness sum is computed (:class:`Mardia`)
+    and what ends it early (:func:`screen`)."""
     dt = np.array(x.T, order="C") if rows is None or len(rows) == len(x) else x.T[:, rows]
     p, n = dt.shape
     if n < max(p + 2, 4):            # the exact variance below needs n > 3
@@ -320,10 +327,10 @@ def _mardia(x: np.ndarray, rows: np.ndarray | None, moments: Block | None = None
         if 3 * n < 2 * p * p:
             z = whiten @ dt
             distances = np.einsum("ij,ij->j", z, z)
-            cube_sum = _pinned(_pair_cube_sum, z)
+            cube_sum = _pinned(_pair_cube_sum, z, stop)
         else:
             distances = squared_distances(dt.T, whiten)
-            cube_sum = _pinned(_tensor_cube_sum, dt, whiten)
+            cube_sum = _pinned(_tensor_cube_sum, dt, whiten, stop)
     b2 = float(distances @ distances) / n  # Mardia (1970)
     kurtosis_z = (b2 - _kurtosis_mean(n, p)) / math.sqrt(_kurtosis_variance(n, p))
     return Mardia(n=n, p=p, kurtosis=b2, kurtosis_z=kurtosis_z,
@@ -351,7 +358,7 @@ def _kurtosis_variance(n: int, p: int) -> float:
     return 8 * p * (p + 2) * (n - 3) * (n - p - 1) * (n - p + 1) / ((n + 1) ** 2 * (n + 3) * (n + 5))
 
 
-def _pair_cube_sum(z: np.ndarray) -> float:
+def _pair_cube_sum(z: np.ndarray, stop: Event | None = None) -> float:
     """sum_i sum_j (z_i' z_j)^3 (the whitened rows z_i as the columns of ``z``,
     p x n) straight from the definition: the cubes of the n x n matrix of
     ``z_i' z_j``, built one block of rows at a time so that memory stays at
@@ -359,14 +366,16 @@ def _pair_cube_sum(z: np.ndarray) -> float:
     takes only its own and the later columns (about n²p/2 multiply-adds in
     all, with blocks of at most ``_PAIR_ROWS`` rows): its square diagonal
     part counts once, the part to its right twice, for the part below the
-    diagonal."""
+    diagonal.  NaN once ``stop`` is set (:func:`screen`)."""
     n = z.shape[1]
     width = max(1, min(_PAIR_ROWS, _CHUNK_CELLS // n))
     cubes = 0.0
     for start in range(0, n, width):
-        stop = min(start + width, n)
-        products = z[:, start:stop].T @ z[:, start:]
-        square = products[:, :stop - start]
+        if stop is not None and stop.is_set():
+            return math.nan
+        end = min(start + width, n)
+        products = z[:, start:end].T @ z[:, start:]
+        square = products[:, :end - start]
         cubes += 2.0 * _cube_sum(products) - _cube_sum(square)
     return cubes
 
@@ -376,7 +385,7 @@ def _cube_sum(x: np.ndarray) -> float:
     return float(np.einsum("ij,ij,ij->", x, x, x))
 
 
-def _tensor_cube_sum(dt: np.ndarray, whiten: np.ndarray) -> float:
+def _tensor_cube_sum(dt: np.ndarray, whiten: np.ndarray, stop: Event | None = None) -> float:
     """sum_i sum_j (z_i' z_j)^3, with z_i = whiten @ d_i, without the n x n matrix.
 
     `dt` holds the centred rows d_i as columns (p x n).  The double sum equals
@@ -386,12 +395,15 @@ def _tensor_cube_sum(dt: np.ndarray, whiten: np.ndarray) -> float:
     how many ordered triples each entry stands for: three distinct indices
     have 6 orderings and sit twice in their slab (weight 3); (k, b, b) has 3
     and sits once (weight 3); (k, k, c) has 3 and sits twice, in the first row
-    and column (weight 1.5); (k, k, k) sits once (weight 1).
+    and column (weight 1.5); (k, k, k) sits once (weight 1).  NaN once
+    ``stop`` is set (:func:`screen`).
     """
     p, n = dt.shape
     slabs = [np.zeros((p - k, p - k)) for k in range(p)]
     width = max(1, _CHUNK_CELLS // p)
     for start in range(0, n, width):
+        if stop is not None and stop.is_set():
+            return math.nan
         block = whiten @ dt[:, start:start + width]
         for k in range(p):
             tail = block[k:]
