@@ -260,10 +260,10 @@ def _factor(matrix: np.ndarray) -> np.ndarray | None:
     """A Cholesky factor of the symmetric ``matrix`` (LAPACK ``potrf``), or None
     when it is not positive definite.
 
-    A symmetric C-ordered matrix is its own transpose, which LAPACK reads in
-    place as a Fortran-ordered array: factoring ``matrix.T`` saves the copy
-    (about a fifth of the factorisation's time at 245 parameters).  Only the
-    factor's lower triangle (``uplo="L"``) is meaningful."""
+    A symmetric C-ordered matrix is its own transpose, which is
+    Fortran-ordered: factoring ``matrix.T`` makes LAPACK's working copy a
+    plain copy instead of a transposing one.  Only the factor's lower
+    triangle (``uplo="L"``) is meaningful."""
     factor, info = lapack.dpotrf(matrix.T, lower=True, clean=False)
     return factor if info == 0 else None
 
