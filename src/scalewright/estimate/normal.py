@@ -42,9 +42,9 @@ import numpy as np
 from scipy.linalg import lapack
 
 from scalewright.blas import one_blas_thread
+from scalewright.estimate import factor_inverse
 from scalewright.estimate.cell_products import CellIndex, sandwich, trace_form
 from scalewright.estimate.exact_hessian import CompleteTerms
-from scalewright.estimate import factor_inverse
 from scalewright.estimate.fisher import OptimizerRecord, fisher_scoring
 from scalewright.estimate.pattern_products import pair_form
 from scalewright.estimate.spd_inverse import cholesky_inverse
@@ -232,32 +232,34 @@ class NormalFit:
             groups.append((stack.weights[0], pattern, terms))
 
         def hessian() -> np.ndarray:
-            hess = np.zeros((q, q))
+            cells = []
             for weight, pattern, terms in groups:
-                _add_cell_matrix(hess, pattern, weight * terms.hessian())
-            return hess
+                cell = terms.hessian()
+                cell *= weight
+                cells.append((pattern, cell))
+            return _parameter_matrix(q, cells)
 
         return total, grad, hessian
 
     def _value_grad_info(self, theta: np.ndarray):
         q = self.layout.n_params
         grad = np.zeros(q)
-        info = np.zeros((q, q))
+        cells = []
         total = 0.0
         means = self.layout.has_means
         for stack, pattern, mats, parts in zip(self._stacks, self.layout.patterns,
                                                self._all_matrices(theta), self._inverses(theta)):
             if parts is None:
-                return np.inf, grad, info
+                return np.inf, grad, np.zeros((q, q))
             v, logdet = parts
             total += _stack_value(stack, v, logdet, mats.implied_mean, means)
             if stack.complete:
                 cell_grad, cell_info = _complete_terms(stack, v[0], pattern, mats, means)
-                _add_cells(grad, info, pattern, cell_grad, cell_info)
-                continue
-            cell_grad, cell_info = _pattern_terms(stack, v, pattern, mats, means)
-            _add_cells(grad, info, pattern, cell_grad, cell_info)
-        return total, grad, info
+            else:
+                cell_grad, cell_info = _pattern_terms(stack, v, pattern, mats, means)
+            _add_cell_vector(grad, pattern, cell_grad)
+            cells.append((pattern, cell_info))
+        return total, grad, _parameter_matrix(q, cells)
 
     def _all_matrices(self, theta):
         """Every group's model matrices at ``θ``, kept for the last ``θ``."""
@@ -389,7 +391,8 @@ def _complete_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: M
     wew = sandwich(f, e)
     cell_grad += wew[index.a, index.b] * index.s
     weight = stack.weights[0]
-    return weight * cell_grad, weight * cell_info
+    cell_info *= weight
+    return weight * cell_grad, cell_info
 
 
 def _pattern_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Matrices,
@@ -420,11 +423,18 @@ def _pattern_terms(stack: _GroupStack, v: np.ndarray, pattern: Pattern, mats: Ma
     return cell_grad, cell_info
 
 
-def _add_cells(grad: np.ndarray, info: np.ndarray, pattern: Pattern, cell_grad: np.ndarray,
-               cell_info: np.ndarray) -> None:
-    """Add cell-by-cell gradient and information into the parameter-by-parameter ones."""
-    _add_cell_vector(grad, pattern, cell_grad)
-    _add_cell_matrix(info, pattern, cell_info)
+def _parameter_matrix(q: int, cells: list) -> np.ndarray:
+    """The parameter-by-parameter sum of the groups' cell-by-cell matrices
+    (``cells``: pairs of a pattern and its matrix, which may be modified).
+    One group whose cells are the parameters gives its own matrix, uncopied."""
+    if len(cells) == 1:
+        pattern, cell = cells[0]
+        if pattern.cells_are_parameters and len(cell) == q:
+            return cell
+    total = np.zeros((q, q))
+    for pattern, cell in cells:
+        _add_cell_matrix(total, pattern, cell)
+    return total
 
 
 def _add_cell_vector(total: np.ndarray, pattern: Pattern, cell: np.ndarray) -> None:
