@@ -32,7 +32,9 @@ and unpinned = as many threads as cores) in the same run:
   default settings, on the same data as read back from the CSV, in a fresh
   child process with the same BLAS setting (bench_engine.py's way).
 
-Each time is the median of several runs; the whole check's ratio is also
+The fit-only check and semopy's fit are timed in ``--rounds`` alternating
+rounds (bench_engine.py's way; the rounds' lowest and highest ratio are
+printed), the other checks once.  Each time is the median of several runs; the whole check's ratio is also
 given in CPU time, which waiting for a busy core does not stretch, and which
 adds up both of the check's threads (the data file's hash and Mardia's
 skewness sum run on a second thread beside the parse and the fits), so that
@@ -64,8 +66,8 @@ import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from bench_engine import N_ROWS, ratio, simulated
-from common import (describe_machine, machine_state, semopy_description, semopy_runs, timed,
-                    write_float_csv, write_model_file)
+from common import (SemopyRuns, Timing, describe_machine, machine_state, semopy_description,
+                    semopy_runs, timed, write_float_csv, write_model_file)
 
 import scalewright
 from scalewright.evaluate import evaluate_normal
@@ -140,10 +142,15 @@ def main() -> None:
     parser.add_argument("--check-budget", type=float, default=60.0,
                         help="no further whole check starts after this many seconds")
     parser.add_argument("--fit-only-repeat", type=int, default=15,
-                        help="runs of the fit-only check")
+                        help="runs of the fit-only check per round")
+    parser.add_argument("--rounds", type=int, default=3,
+                        help="rounds of the fit-only check and semopy's fit, each timing ours "
+                             "and then semopy, so that both meet the machine's slow and fast "
+                             "spells (default 3)")
     parser.add_argument("--rival-repeat", type=int, default=1,
                         help="whole-check runs on the two-model file (0: none)")
-    parser.add_argument("--semopy-repeat", type=int, default=3)
+    parser.add_argument("--semopy-repeat", type=int, default=3,
+                        help="most timed semopy runs per round")
     parser.add_argument("--semopy-budget", type=float, default=60.0)
     parser.add_argument("--semopy-limit", type=float, default=600.0,
                         help="stop semopy's child process after this many seconds")
@@ -166,19 +173,25 @@ def main() -> None:
                 stages, estimator = median_stages(rivals, args.repeat)
                 whole = timed(lambda: scalewright.check(single), args.check_repeat,
                               budget=args.check_budget)
-                fit_only = timed(lambda: scalewright.check(single, fit_only=True),
-                                 args.fit_only_repeat, warmup=1)
                 with_rival = (timed(lambda: scalewright.check(rivals), args.rival_repeat)
                               if args.rival_repeat else None)
-            theirs = semopy_runs(description, frame, threads=SETTINGS[name],
-                                 repeat=args.semopy_repeat, budget=args.semopy_budget,
-                                 limit=args.semopy_limit)
+            fit_onlys, semopys = [], []
+            for _ in range(args.rounds):
+                with threadpool_limits(limits=SETTINGS[name], user_api="blas"):
+                    fit_onlys.append(timed(lambda: scalewright.check(single, fit_only=True),
+                                           args.fit_only_repeat, warmup=1))
+                semopys.append(semopy_runs(description, frame, threads=SETTINGS[name],
+                                           repeat=args.semopy_repeat, budget=args.semopy_budget,
+                                           limit=args.semopy_limit))
+            fit_only, theirs = Timing.pooled(fit_onlys), SemopyRuns.pooled(semopys)
             core = core_totals(stages)
             results[name] = {
                 "threads": SETTINGS[name], "estimator": estimator, "stages": stages,
                 "core_check": core, "whole_check": whole.to_dict(),
                 "fit_only_check": fit_only.to_dict(),
                 "ratio_fit_only": ratio(theirs.median, fit_only.median),
+                "ratio_fit_only_rounds": [ratio(t.median, f.median)
+                                          for t, f in zip(semopys, fit_onlys) if t.times],
                 "ratio_fit_only_cpu": ratio(theirs.cpu_median, fit_only.cpu_median),
                 "whole_check_with_rival": with_rival and with_rival.to_dict(),
                 "semopy_fit": theirs.to_dict(),
@@ -195,6 +208,11 @@ def main() -> None:
     if args.json:
         args.json.write_text(json.dumps({"before": before, "after": after, "rows": args.rows,
                                          "results": results}, indent=1), encoding="utf-8")
+
+
+def _span(values: list[float]) -> str:
+    """Lowest–highest of the rounds' ratios."""
+    return f"{min(values):.1f}-{max(values):.1f}x" if values else "-"
 
 
 def _times(value: float | None) -> str:
@@ -218,7 +236,8 @@ def report(results: dict, rows: int) -> str:
             f"(CPU time {_times(r['ratio_whole_cpu']).strip()})",
             f"    scalewright.check(fit_only=True):       {r['fit_only_check']['median_s']:8.3f} s  "
             f"({r['fit_only_check']['repeats']} runs)  ratio {_times(r['ratio_fit_only'])} "
-            f"(CPU time {_times(r['ratio_fit_only_cpu']).strip()})",
+            f"(CPU time {_times(r['ratio_fit_only_cpu']).strip()}; rounds "
+            f"{_span(r['ratio_fit_only_rounds'])})",
             *([f"    whole scalewright.check(), 2 models:    "
                f"{r['whole_check_with_rival']['median_s']:8.3f} s  "
                f"({r['whole_check_with_rival']['repeats']} runs)  ratio "
