@@ -104,3 +104,25 @@ def test_the_route_is_not_taken_with_residual_covariances_or_for_small_models():
     assert not factor_inverse.applies(pattern.p, pattern.m, pattern.diagonal_residuals)
     assert not factor_inverse.applies(12, 3, True)            # below MIN_ITEMS
     assert not factor_inverse.applies(48, 13, True)           # more than one factor per 4 items
+
+
+def test_two_groups_with_a_mean_structure_fit_the_same_by_either_route(sample, monkeypatch):
+    # each group's pattern takes the route on its own; the scalar-invariance fit (equal
+    # loadings and intercepts, free latent means) must land on the same estimates, fit
+    # and standard errors as with the Cholesky route alone (theory: the routes compute
+    # the same matrices; tolerances: both fits stop at a gradient of 1e-8)
+    from scalewright.estimate import normal
+    from scalewright.multigroup import SCALAR, build_multigroup_layout, complete_moments, fit_multigroup
+    groups = np.arange(len(sample)) % 2
+    shifted = sample + 0.3 * groups[:, None]
+    moments = complete_moments(("a", "b"), shifted, groups, tuple(ITEMS))
+    layout = build_multigroup_layout(SPECS["correlated"], moments, SCALAR)
+    assert all(factor_inverse.applies(p.p, p.m, p.diagonal_residuals) for p in layout.patterns)
+    by_factors = fit_multigroup(layout, moments)
+    monkeypatch.setattr(normal.factor_inverse, "applies", lambda p, m, diagonal: False)
+    by_cholesky = fit_multigroup(layout, moments)
+    assert by_factors.estimate.record.converged and by_cholesky.estimate.record.converged
+    assert_allclose(by_factors.estimate.theta, by_cholesky.estimate.theta, rtol=0, atol=1e-7)
+    assert_allclose(np.sqrt(np.diag(by_factors.estimate.acov)),
+                    np.sqrt(np.diag(by_cholesky.estimate.acov)), rtol=1e-7)
+    assert by_factors.fit.chi_square == pytest.approx(by_cholesky.fit.chi_square, rel=1e-10)
