@@ -427,25 +427,28 @@ def _parameter_matrix(q: int, cells: list) -> np.ndarray:
     """The parameter-by-parameter sum of the groups' cell-by-cell matrices
     (``cells``: pairs of a pattern and its matrix, which may be modified).
     One group whose cells are the parameters gives its own matrix, uncopied."""
-    if len(cells) == 1:
-        pattern, cell = cells[0]
-        if pattern.cells_are_parameters and len(cell) == q:
-            return cell
+    if len(cells) == 1 and _cells_are_all_parameters(*cells[0], q):
+        return cells[0][1]
     total = np.zeros((q, q))
     for pattern, cell in cells:
         _add_cell_matrix(total, pattern, cell)
     return total
 
 
+def _cells_are_all_parameters(pattern: Pattern, cell: np.ndarray, q: int) -> bool:
+    """Whether the pattern's cells are the ``q`` parameters, one each, in order."""
+    return pattern.cells_are_parameters and len(cell) == q
+
+
 def _add_cell_vector(total: np.ndarray, pattern: Pattern, cell: np.ndarray) -> None:
-    if pattern.cells_are_parameters and len(cell) == len(total):
+    if _cells_are_all_parameters(pattern, cell, len(total)):
         total += cell
     else:
         np.add.at(total, pattern.cell_params, cell)
 
 
 def _add_cell_matrix(total: np.ndarray, pattern: Pattern, cell: np.ndarray) -> None:
-    if pattern.cells_are_parameters and len(cell) == len(total):
+    if _cells_are_all_parameters(pattern, cell, len(total)):
         total += cell
     else:
         _add_block(total, pattern.cell_params, cell)
