@@ -65,9 +65,9 @@ from pathlib import Path
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from bench_engine import N_ROWS, ratio, simulated
-from common import (SemopyRuns, Timing, describe_machine, machine_state, semopy_description,
-                    semopy_runs, timed, write_float_csv, write_model_file)
+from bench_engine import N_ROWS, simulated
+from common import (alternating_rounds, describe_machine, machine_state, ratio, ratio_span,
+                    semopy_description, timed, write_float_csv, write_model_file)
 
 import scalewright
 from scalewright.evaluate import evaluate_normal
@@ -175,23 +175,19 @@ def main() -> None:
                               budget=args.check_budget)
                 with_rival = (timed(lambda: scalewright.check(rivals), args.rival_repeat)
                               if args.rival_repeat else None)
-            fit_onlys, semopys = [], []
-            for _ in range(args.rounds):
-                with threadpool_limits(limits=SETTINGS[name], user_api="blas"):
-                    fit_onlys.append(timed(lambda: scalewright.check(single, fit_only=True),
-                                           args.fit_only_repeat, warmup=1))
-                semopys.append(semopy_runs(description, frame, threads=SETTINGS[name],
-                                           repeat=args.semopy_repeat, budget=args.semopy_budget,
-                                           limit=args.semopy_limit))
-            fit_only, theirs = Timing.pooled(fit_onlys), SemopyRuns.pooled(semopys)
+            rounds = alternating_rounds(
+                {"fit_only": lambda: scalewright.check(single, fit_only=True)}, description,
+                frame, threads=SETTINGS[name], rounds=args.rounds, repeat=args.fit_only_repeat,
+                semopy_repeat=args.semopy_repeat, semopy_budget=args.semopy_budget,
+                semopy_limit=args.semopy_limit)
+            fit_only, theirs = rounds.pooled("fit_only"), rounds.semopy_pooled()
             core = core_totals(stages)
             results[name] = {
                 "threads": SETTINGS[name], "estimator": estimator, "stages": stages,
                 "core_check": core, "whole_check": whole.to_dict(),
                 "fit_only_check": fit_only.to_dict(),
                 "ratio_fit_only": ratio(theirs.median, fit_only.median),
-                "ratio_fit_only_rounds": [ratio(t.median, f.median)
-                                          for t, f in zip(semopys, fit_onlys) if t.times],
+                "ratio_fit_only_rounds": rounds.ratios("fit_only"),
                 "ratio_fit_only_cpu": ratio(theirs.cpu_median, fit_only.cpu_median),
                 "whole_check_with_rival": with_rival and with_rival.to_dict(),
                 "semopy_fit": theirs.to_dict(),
@@ -208,11 +204,6 @@ def main() -> None:
     if args.json:
         args.json.write_text(json.dumps({"before": before, "after": after, "rows": args.rows,
                                          "results": results}, indent=1), encoding="utf-8")
-
-
-def _span(values: list[float]) -> str:
-    """Lowest–highest of the rounds' ratios."""
-    return f"{min(values):.1f}-{max(values):.1f}x" if values else "-"
 
 
 def _times(value: float | None) -> str:
@@ -237,7 +228,7 @@ def report(results: dict, rows: int) -> str:
             f"    scalewright.check(fit_only=True):       {r['fit_only_check']['median_s']:8.3f} s  "
             f"({r['fit_only_check']['repeats']} runs)  ratio {_times(r['ratio_fit_only'])} "
             f"(CPU time {_times(r['ratio_fit_only_cpu']).strip()}; rounds "
-            f"{_span(r['ratio_fit_only_rounds'])})",
+            f"{ratio_span(r['ratio_fit_only_rounds'], digits=1)})",
             *([f"    whole scalewright.check(), 2 models:    "
                f"{r['whole_check_with_rival']['median_s']:8.3f} s  "
                f"({r['whole_check_with_rival']['repeats']} runs)  ratio "

@@ -49,10 +49,10 @@ import os
 from pathlib import Path
 
 import pandas as pd
-from threadpoolctl import threadpool_limits
 
-from common import (SemopyRuns, Timing, describe_machine, machine_state, model_spec,
-                    normal_sample, population, semopy_description, semopy_runs, timed)
+from common import (alternating_rounds, describe_machine, machine_state, model_spec,
+                    normal_sample, population, ratio, ratio_span, semopy_description,
+                    semopy_runs)
 
 from scalewright.estimate.normal import complete_data_blocks, fit_normal
 from scalewright.evaluate import evaluate_normal
@@ -79,10 +79,6 @@ def relative(a: float, b: float | None) -> float | None:
     return None if b is None else abs(a - b) / abs(b)
 
 
-def ratio(theirs: float | None, ours: float) -> float | None:
-    return None if theirs is None else theirs / ours
-
-
 def bench_size(n_items, n_constructs, args) -> dict:
     pop, x = simulated(n_items, n_constructs, args.rows)
     spec = model_spec(pop.constructs)
@@ -93,21 +89,17 @@ def bench_size(n_items, n_constructs, args) -> dict:
            "df": int(result.fit.df), "chi_square": float(result.fit.chi_square),
            "iterations": int(result.estimate.record.iterations), "settings": {}}
     for name, threads in SETTINGS:
-        fits, evaluates, semopys = [], [], []
-        for _ in range(args.rounds):
-            with threadpool_limits(limits=threads, user_api="blas"):
-                fits.append(timed(lambda: engine_fit(spec, x), args.repeat, warmup=1))
-                evaluates.append(timed(lambda: evaluate_normal(spec, x), args.repeat, warmup=1))
-            semopys.append(semopy_runs(description, frame, threads=threads,
-                                       repeat=args.semopy_repeat, budget=args.semopy_budget,
-                                       limit=args.semopy_limit))
-        fit, evaluate = Timing.pooled(fits), Timing.pooled(evaluates)
-        theirs = SemopyRuns.pooled(semopys)
-        rounds = [ratio(s.median, f.median) for s, f in zip(semopys, fits) if s.times]
+        rounds = alternating_rounds(
+            {"fit": lambda: engine_fit(spec, x), "evaluate": lambda: evaluate_normal(spec, x)},
+            description, frame, threads=threads, rounds=args.rounds, repeat=args.repeat,
+            semopy_repeat=args.semopy_repeat, semopy_budget=args.semopy_budget,
+            semopy_limit=args.semopy_limit)
+        fit, evaluate = rounds.pooled("fit"), rounds.pooled("evaluate")
+        theirs = rounds.semopy_pooled()
         out["settings"][name] = {
             "threads": threads, "fit": fit.to_dict(), "evaluate": evaluate.to_dict(),
             "semopy": theirs.to_dict(), "semopy_shown": theirs.shown(),
-            "ratio_fit_rounds": rounds,
+            "ratio_fit_rounds": rounds.ratios("fit"),
             "ratio_fit": ratio(theirs.median, fit.median),
             "ratio_fit_cpu": ratio(theirs.cpu_median, fit.cpu_median),
             "ratio_evaluate": ratio(theirs.median, evaluate.median),
@@ -127,12 +119,6 @@ def _x(value: float | None, width: int) -> str:
     return f"{'-':>{width}}" if value is None else f"{value:{width - 1}.0f}x"
 
 
-def _span(values: list[float], width: int) -> str:
-    """Lowest–highest of the rounds' ratios."""
-    text = f"{min(values):.0f}-{max(values):.0f}x" if values else "-"
-    return f"{text:>{width}}"
-
-
 def _e(value: float | None, width: int) -> str:
     return f"{'not run':>{width}}" if value is None else f"{value:{width}.1e}"
 
@@ -148,7 +134,7 @@ def table(rows: list[dict]) -> str:
                 f"{r['items']:>7}/{r['constructs']:<4} {name:>8} "
                 f"{1e3 * s['fit']['median_s']:8.1f} {1e3 * s['evaluate']['median_s']:8.1f} "
                 f"{s['semopy_shown']:>9} {s['semopy']['repeats']:>4} "
-                f"{_x(s['ratio_fit'], 10)} {_span(s['ratio_fit_rounds'], 11)} "
+                f"{_x(s['ratio_fit'], 10)} {ratio_span(s['ratio_fit_rounds']):>11} "
                 f"{_x(s['ratio_fit_cpu'], 10)} "
                 f"{_x(s['ratio_evaluate'], 11)} "
                 f"{_e(s['chi2_rel_diff_default'], 13)}")

@@ -22,7 +22,7 @@ from types import SimpleNamespace
 from typing import Callable, Iterator
 
 import numpy as np
-from threadpoolctl import threadpool_info
+from threadpoolctl import threadpool_info, threadpool_limits
 
 LOADING_RANGE = (0.5, 0.8)     # standardized primary loadings, drawn uniformly
 CONSTRUCT_CORRELATION = 0.3    # every pair of constructs
@@ -312,6 +312,54 @@ def _semopy_child(description, frame, options, threads, repeat, budget, results)
             results.put((seconds, time.process_time() - start_cpu,
                          float(semopy.stats.calc_chi2(model)[0])))
     results.put(None)
+
+
+def ratio(theirs: float | None, ours: float) -> float | None:
+    """semopy's time over ours (None when semopy did not finish)."""
+    return None if theirs is None else theirs / ours
+
+
+@dataclass(frozen=True)
+class Rounds:
+    """Runs of ours and of semopy's fit timed in alternating rounds
+    (:func:`alternating_rounds`): per round, one :class:`Timing` for each of
+    our calls and one :class:`SemopyRuns`."""
+
+    ours: dict[str, list[Timing]]
+    semopy: list[SemopyRuns]
+
+    def pooled(self, name: str) -> Timing:
+        return Timing.pooled(self.ours[name])
+
+    def semopy_pooled(self) -> SemopyRuns:
+        return SemopyRuns.pooled(self.semopy)
+
+    def ratios(self, name: str) -> list[float]:
+        """semopy's median over ours in each round where semopy finished."""
+        return [ratio(theirs.median, mine.median)
+                for theirs, mine in zip(self.semopy, self.ours[name]) if theirs.times]
+
+
+def alternating_rounds(ours: dict[str, Callable[[], object]], description: str, frame, *,
+                       threads: int, rounds: int, repeat: int, semopy_repeat: int,
+                       semopy_budget: float, semopy_limit: float) -> Rounds:
+    """Time each of ``ours`` (``repeat`` runs after one warm-up, BLAS limited
+    to ``threads``) and then semopy's fit (:func:`semopy_runs`), ``rounds``
+    times over, so that both meet the shared machine's slow and fast spells."""
+    mine: dict[str, list[Timing]] = {name: [] for name in ours}
+    theirs = []
+    for _ in range(rounds):
+        with threadpool_limits(limits=threads, user_api="blas"):
+            for name, function in ours.items():
+                mine[name].append(timed(function, repeat, warmup=1))
+        theirs.append(semopy_runs(description, frame, threads=threads, repeat=semopy_repeat,
+                                  budget=semopy_budget, limit=semopy_limit))
+    return Rounds(mine, theirs)
+
+
+def ratio_span(values: list[float], digits: int = 0) -> str:
+    """Lowest–highest of the rounds' ratios, e.g. "126-130x"."""
+    return f"{min(values):.{digits}f}-{max(values):.{digits}f}x" if values else "-"
 
 
 def semopy_polycorr() -> tuple[object, str]:
